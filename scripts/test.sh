@@ -11,6 +11,6 @@ export ROS_DOMAIN_ID="${ROS_DOMAIN_ID:-$(( (RANDOM % 90) + 5 ))}"
 export MPLBACKEND=Agg
 cd "$repo"
 echo "test: ruff check"
-"$venv/bin/ruff" check coverage_fleet test benchmarks launch setup.py
+"$venv/bin/ruff" check .
 echo "test: pytest (ROS_DOMAIN_ID=$ROS_DOMAIN_ID)"
 exec "$venv/bin/python" -m pytest "$@"
