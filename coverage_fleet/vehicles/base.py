@@ -17,6 +17,9 @@ import numpy as np
 
 CommandKind = Literal["twist", "accel", "wrench"]
 
+#: Same value as MpcSettings.sample_time's default (seconds).
+DEFAULT_COMMAND_PERIOD = 0.1
+
 
 @dataclass(frozen=True)
 class OdometryValues:
@@ -78,6 +81,11 @@ class VehicleModel(ABC):
     def __init__(self, params: Mapping[str, Any], source: str) -> None:
         self.params = dict(params)
         self.source = source
+        #: Seconds one command is held (the MPC sample time). Command mappings that turn an
+        #: input into a setpoint reached "after the step" (car-like speed) and the braking
+        #: input use it. The loader sets it from the file's `mpc.sample_time`; a model built
+        #: directly keeps the MpcSettings default.
+        self.command_period: float = DEFAULT_COMMAND_PERIOD
 
     @property
     def nx(self) -> int:
@@ -121,15 +129,18 @@ class VehicleModel(ABC):
     @abstractmethod
     def braking_input(self, x: np.ndarray) -> np.ndarray:
         """An input inside the limits that brings the vehicle towards rest (used when the
-        solver has failed and the previous plan is used up)."""
+        solver has failed and the previous plan is used up). Held for `command_period`, it
+        does not overshoot through zero speed where the limits allow stopping in one step."""
 
     @abstractmethod
     def state_from_odometry(self, odom: OdometryValues) -> np.ndarray:
         """State vector from odometry (pose in `map`, twist in the body frame)."""
 
     @abstractmethod
-    def odometry_from_state(self, x: np.ndarray) -> OdometryValues:
-        """Odometry the headless simulator publishes for a state."""
+    def odometry_from_state(self, x: np.ndarray, u: np.ndarray | None = None) -> OdometryValues:
+        """Odometry the headless simulator publishes for a state. Yaw is wrapped to
+        [-pi, pi). Models whose state holds no velocity (kinematic rover, where the input is
+        the velocity) report the twist of the input `u` being applied, zero without it."""
 
     @abstractmethod
     def command_from_input(self, u: np.ndarray, x: np.ndarray) -> CommandValues:
