@@ -1,0 +1,259 @@
+"""Trial logs and trial directories.
+
+A TrialLog is what one run of the fleet produced (offline simulation or, later, the ROS
+graph): per tick the fleet's cost and generation, per robot its state, input, target,
+distance, progress flags and solver outcome, and every gate opening. `write_trial` puts it
+on disk as CSV files next to the mission as run and a report, atomically: everything is
+written into a temporary folder beside the destination and renamed at the end, so an error
+or Ctrl-C never leaves a half-written trial behind.
+
+Layout of a trial directory:
+
+    mission.yaml          the mission as run (resolved file paths, seed, duration, poses)
+    fleet.csv             time, generation, cost, largest_distance
+    robots/<name>.csv     time, generation, <state names>, <input names>, target_x, target_y,
+                          distance, no_farther, closer, controller_ran, solve_time, status,
+                          solver_ok
+    gate_openings.csv     generation, time, reason, cost, robot, position_x, position_y,
+                          target_x, target_y, distance
+    violations.csv        time, robot, limit, value, bound
+    report/               metrics.json and PNG figures (coverage_fleet.report)
+"""
+
+from __future__ import annotations
+
+import csv
+import math
+import os
+import shutil
+import tempfile
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import yaml
+
+from coverage_fleet.control.gate import GateOpening
+
+
+@dataclass
+class RobotLog:
+    """Per-tick record of one robot."""
+
+    name: str
+    vehicle_kind: str
+    state_names: tuple[str, ...]
+    input_names: tuple[str, ...]
+    position_indices: tuple[int, int]
+    time: list[float] = field(default_factory=list)
+    generation: list[int] = field(default_factory=list)
+    state: list[np.ndarray] = field(default_factory=list)
+    input: list[np.ndarray] = field(default_factory=list)
+    target: list[np.ndarray] = field(default_factory=list)
+    distance: list[float] = field(default_factory=list)
+    no_farther: list[bool] = field(default_factory=list)
+    closer: list[bool] = field(default_factory=list)
+    controller_ran: list[bool] = field(default_factory=list)
+    solve_time: list[float] = field(default_factory=list)
+    status: list[str] = field(default_factory=list)
+    solver_ok: list[bool] = field(default_factory=list)
+
+    def positions(self) -> np.ndarray:
+        """(T, 2) positions over the run."""
+        i, j = self.position_indices
+        states = np.asarray(self.state)
+        return states[:, [i, j]] if len(states) else np.zeros((0, 2))
+
+    def solve_times(self) -> np.ndarray:
+        """Solve times (s) of the ticks where the controller ran."""
+        ran = np.asarray(self.controller_ran, bool)
+        return np.asarray(self.solve_time, float)[ran]
+
+    def solver_failures(self) -> int:
+        ran = np.asarray(self.controller_ran, bool)
+        return int(np.sum(~np.asarray(self.solver_ok, bool)[ran]))
+
+
+@dataclass(frozen=True)
+class LimitViolation:
+    """A state, input or region limit exceeded by more than the check's tolerance."""
+
+    time: float
+    robot: str
+    limit: str
+    value: float
+    bound: float
+
+
+@dataclass
+class TrialLog:
+    """Everything one run of the fleet produced."""
+
+    mission_name: str
+    seed: int
+    step: float
+    duration: float
+    time: list[float] = field(default_factory=list)
+    generation: list[int] = field(default_factory=list)
+    cost: list[float] = field(default_factory=list)
+    largest_distance: list[float] = field(default_factory=list)
+    robots: dict[str, RobotLog] = field(default_factory=dict)
+    openings: list[GateOpening] = field(default_factory=list)
+    violations: list[LimitViolation] = field(default_factory=list)
+    #: Simulated time at which the gate reported the fleet at rest, None if it never did.
+    settled_time: float | None = None
+    #: Wall-clock seconds the run took (informative only).
+    wall_time: float = 0.0
+
+    def final_positions(self) -> dict[str, np.ndarray]:
+        return {name: log.positions()[-1] for name, log in self.robots.items()}
+
+
+# --- writing ------------------------------------------------------------------------------
+
+
+def _fmt(value: Any) -> str:
+    if isinstance(value, bool | np.bool_):
+        return "1" if value else "0"
+    if isinstance(value, float | np.floating):
+        return "nan" if math.isnan(value) else repr(float(value))
+    return str(value)
+
+
+def _write_csv(path: Path, header: list[str], rows: list[list[Any]]) -> None:
+    with path.open("w", newline="") as handle:
+        writer = csv.writer(handle)
+        writer.writerow(header)
+        for row in rows:
+            writer.writerow([_fmt(v) for v in row])
+
+
+def write_log(directory: Path, log: TrialLog) -> None:
+    """The CSV files of a trial (see the module docstring for the columns)."""
+    _write_csv(
+        directory / "fleet.csv",
+        ["time", "generation", "cost", "largest_distance"],
+        [
+            list(r)
+            for r in zip(log.time, log.generation, log.cost, log.largest_distance, strict=True)
+        ],
+    )
+    robots_dir = directory / "robots"
+    robots_dir.mkdir()
+    for name, robot in log.robots.items():
+        header = [
+            "time",
+            "generation",
+            *robot.state_names,
+            *robot.input_names,
+            "target_x",
+            "target_y",
+            "distance",
+            "no_farther",
+            "closer",
+            "controller_ran",
+            "solve_time",
+            "status",
+            "solver_ok",
+        ]
+        rows = []
+        for k in range(len(robot.time)):
+            rows.append(
+                [
+                    robot.time[k],
+                    robot.generation[k],
+                    *robot.state[k].tolist(),
+                    *robot.input[k].tolist(),
+                    *robot.target[k].tolist(),
+                    robot.distance[k],
+                    robot.no_farther[k],
+                    robot.closer[k],
+                    robot.controller_ran[k],
+                    robot.solve_time[k],
+                    robot.status[k],
+                    robot.solver_ok[k],
+                ]
+            )
+        _write_csv(robots_dir / f"{name}.csv", header, rows)
+    opening_rows = []
+    for opening in log.openings:
+        for name, target in opening.targets.items():
+            opening_rows.append(
+                [
+                    opening.generation,
+                    opening.time,
+                    opening.reason,
+                    opening.cost,
+                    name,
+                    *opening.positions[name].tolist(),
+                    *target.tolist(),
+                    opening.distances[name],
+                ]
+            )
+    _write_csv(
+        directory / "gate_openings.csv",
+        [
+            "generation",
+            "time",
+            "reason",
+            "cost",
+            "robot",
+            "position_x",
+            "position_y",
+            "target_x",
+            "target_y",
+            "distance",
+        ],
+        opening_rows,
+    )
+    _write_csv(
+        directory / "violations.csv",
+        ["time", "robot", "limit", "value", "bound"],
+        [[v.time, v.robot, v.limit, v.value, v.bound] for v in log.violations],
+    )
+
+
+def write_trial(
+    directory: str | Path,
+    mission_as_run: dict[str, Any],
+    log: TrialLog,
+    report: Callable[[Path], Any] | None = None,
+) -> Path:
+    """Write a trial directory atomically and return its path.
+
+    `mission_as_run` is the mission mapping to record (see mission_as_run()); `report`, when
+    given, is called with the report/ folder inside the temporary directory and writes the
+    figures and metrics there. Refuses to overwrite an existing directory.
+    """
+    final = Path(directory).resolve()
+    if final.exists():
+        raise FileExistsError(f"trial directory {final} already exists; choose another --out")
+    final.parent.mkdir(parents=True, exist_ok=True)
+    staging = Path(tempfile.mkdtemp(prefix=f".{final.name}.", suffix=".partial", dir=final.parent))
+    try:
+        with (staging / "mission.yaml").open("w") as handle:
+            handle.write(
+                f"# Mission as run by coverage-fleet ({log.mission_name}, seed {log.seed}).\n"
+            )
+            yaml.safe_dump(mission_as_run, handle, sort_keys=False, default_flow_style=None)
+        write_log(staging, log)
+        if report is not None:
+            report_dir = staging / "report"
+            report_dir.mkdir()
+            report(report_dir)
+        os.rename(staging, final)
+    except BaseException:
+        shutil.rmtree(staging, ignore_errors=True)
+        raise
+    return final
+
+
+# --- reading ------------------------------------------------------------------------------
+
+
+def read_csv(path: str | Path) -> list[dict[str, str]]:
+    """Rows of one of the trial's CSV files as dictionaries of strings."""
+    with Path(path).open(newline="") as handle:
+        return list(csv.DictReader(handle))
