@@ -190,6 +190,53 @@ def test_mpc_value_rules(tmp_path: Path) -> None:
     }
 
 
+def test_model_parameter_kinds_and_ranges(tmp_path: Path) -> None:
+    multirotor = {
+        "model": "multirotor",
+        "max_speed": 3.0,
+        "max_acceleration": float("inf"),
+        "polygon_sides": 3,
+        "polygon_fit": "middle",
+        "drag_coefficient": -0.1,
+        "footprint_radius": 0.5,
+    }
+    found = dict(problems_of(write_vehicle(tmp_path, multirotor, name="m.yaml")))
+    assert found == {
+        "vehicle.max_acceleration": "must be finite, got inf",
+        "vehicle.polygon_sides": "must be at least 4, got 3",
+        "vehicle.polygon_fit": "must be one of 'inner', 'outer', got 'middle'",
+        "vehicle.drag_coefficient": "must be at least 0, got -0.1",
+    }
+    car = {
+        "model": "car_like",
+        "wheelbase": 0.3,
+        "max_speed": 3.0,
+        "max_steering_angle": 1.6,
+        "max_acceleration": 2,
+        "max_deceleration": 4,
+        "footprint_radius": 0.3,
+    }
+    found = dict(problems_of(write_vehicle(tmp_path, car, name="c.yaml")))
+    assert found == {"vehicle.max_steering_angle": "must be at most 1.4, got 1.6"}
+
+
+def test_any_single_node_entry_is_accepted_but_not_two(tmp_path: Path) -> None:
+    path = tmp_path / "named.yaml"
+    named = {"coverage_controller": {"ros__parameters": {"vehicle": ROVER}}}
+    path.write_text(yaml.safe_dump(named))
+    assert load_vehicle_file(path).model.max_speed == 1.0
+    path.write_text(
+        yaml.safe_dump(
+            {
+                "/**": {"ros__parameters": {"vehicle": ROVER}},
+                "other": {"ros__parameters": {}},
+            }
+        )
+    )
+    [(_, message)] = problems_of(path)
+    assert message.startswith("one node entry expected, found '/**', 'other'")
+
+
 def test_unknown_section_and_missing_vehicle(tmp_path: Path) -> None:
     path = tmp_path / "v.yaml"
     path.write_text(yaml.safe_dump({"/**": {"ros__parameters": {"mpc": {}, "robot": {}}}}))

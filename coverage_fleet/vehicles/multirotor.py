@@ -25,6 +25,7 @@ from coverage_fleet.vehicles.base import (
     SteadyStateFamily,
     VehicleModel,
 )
+from coverage_fleet.vehicles.braking import stopping_force
 from coverage_fleet.vehicles.parameters import ParameterReader
 from coverage_fleet.vehicles.planar import disc_polygon, rotate, scale_into_polygon
 
@@ -82,10 +83,11 @@ class MultirotorModel(VehicleModel):
         return SteadyStateFamily(("x", "y"), Mx, np.zeros(4), np.zeros((2, 2)), np.zeros(2))
 
     def braking_input(self, x: np.ndarray) -> np.ndarray:
-        # Cancel the velocity within one command period (Euler estimate, drag included),
-        # shrunk into the acceleration polygon if that asks for too much.
-        v = np.asarray(x[2:4], dtype=float)
-        wanted = self.drag * v - v / self.command_period
+        # Stop exactly within one command period where the limits allow; otherwise the same
+        # direction shrunk into the acceleration polygon (still opposing the velocity).
+        wanted = np.array(
+            [stopping_force(1.0, self.drag, float(v), self.command_period) for v in x[2:4]]
+        )
         return scale_into_polygon(wanted, self._accel_H, self._accel_h)
 
     def state_from_odometry(self, odom: OdometryValues) -> np.ndarray:
