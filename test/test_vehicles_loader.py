@@ -309,6 +309,20 @@ def test_same_user_model_without_the_position_dependence_loads(tmp_path: Path) -
     assert spec.model_name.endswith(":PositionDependentCurrentModel")
 
 
+class FullThrottleBrakeModel(PositionDependentCurrentModel):
+    """Invariant, but its 'braking' input lies outside its own limits."""
+
+    def braking_input(self, x: np.ndarray) -> np.ndarray:
+        return np.array([2.0, 0.0])
+
+
+def test_user_model_braking_outside_limits_is_refused(tmp_path: Path) -> None:
+    vehicle = {"model": f"{__name__}:FullThrottleBrakeModel", "current_gradient": 0.0}
+    [(key, message)] = problems_of(write_vehicle(tmp_path, vehicle))
+    assert key == "vehicle.model"
+    assert message.startswith("braking_input(") and "outside the input limits" in message
+
+
 class UnfinishedModel(VehicleModel):
     kind = "unfinished"
     state_names = ("x", "y")
@@ -321,3 +335,21 @@ def test_user_model_missing_methods_is_reported_not_raised(tmp_path: Path) -> No
     [(key, message)] = problems_of(path)
     assert key == "vehicle.model"
     assert "could not be built" in message and "abstract" in message
+
+
+# --- the describe tool ------------------------------------------------------------------
+
+
+def test_describe_prints_limits_or_problems(tmp_path: Path, capsys) -> None:
+    from coverage_fleet.vehicles.describe import main
+
+    car = REPO / "config" / "vehicles" / "car_like.yaml"
+    assert main([str(car)]) == 0
+    out = capsys.readouterr().out
+    assert "car_like (CarLikeModel)" in out
+    assert "steering_angle   [-0.45, 0.45]" in out and "speed            [-0.5, 3]" in out
+    assert "stabilisable at rest: no" in out
+    bad = write_vehicle(tmp_path, {**ROVER, "max_speed": -1})
+    assert main([str(bad)]) == 2
+    err = capsys.readouterr().err
+    assert f"{bad}: vehicle.max_speed: must be a positive number, got -1" in err

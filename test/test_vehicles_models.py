@@ -185,13 +185,17 @@ def test_odometry_round_trip(spec: VehicleSpec) -> None:
     for _ in range(30):
         x = random_state(model, rng)
         back = model.state_from_odometry(model.odometry_from_state(x))
-        for i, name in enumerate(model.state_names):
-            if name in ("yaw", "heading"):
+        for i in range(model.nx):
+            if i in model.angle_indices:
                 assert angles_close(back[i], x[i])
             else:
                 assert back[i] == pytest.approx(x[i], abs=1e-12)
         odom = model.odometry_from_state(x)
         assert -np.pi <= odom.yaw < np.pi
+        # A wrapped yaw continued against the true state gives the state back exactly.
+        far = x.copy()
+        far[list(model.angle_indices)] += 6 * np.pi
+        assert np.allclose(model.continue_angles(back, far), far, atol=1e-9)
 
 
 def admissible_input(model: VehicleModel, x: np.ndarray, step, rng) -> np.ndarray:

@@ -73,6 +73,9 @@ class VehicleModel(ABC):
     state_names: ClassVar[tuple[str, ...]]
     input_names: ClassVar[tuple[str, ...]]
     position_indices: ClassVar[tuple[int, int]] = (0, 1)
+    #: States that are angles (radians). The state keeps them continuous (unwrapped);
+    #: odometry carries them wrapped to [-pi, pi): see continue_angles.
+    angle_indices: ClassVar[tuple[int, ...]] = ()
     command_kind: ClassVar[CommandKind]
     #: False where the linearisation at rest is not stabilisable (unicycle, bicycle):
     #: such a model supports only the `equality` terminal constraint.
@@ -155,6 +158,15 @@ class VehicleModel(ABC):
     def position(self, x: np.ndarray) -> np.ndarray:
         i, j = self.position_indices
         return np.array([x[i], x[j]], dtype=float)
+
+    def continue_angles(self, x: np.ndarray, reference: np.ndarray) -> np.ndarray:
+        """x with each angle state moved by a multiple of 2 pi to lie within pi of the same
+        entry of `reference` (e.g. the previous state), so a wrapped odometry yaw does not
+        jump by 2 pi between two solves."""
+        out = np.array(x, dtype=float)
+        for i in self.angle_indices:
+            out[i] = reference[i] + (out[i] - reference[i] + np.pi) % (2.0 * np.pi) - np.pi
+        return out
 
     def discrete_dynamics(self, sample_time: float, substeps: int) -> ca.Function:
         """x_{k+1} = F(x_k, u_k): `substeps` classical Runge-Kutta 4 steps over sample_time

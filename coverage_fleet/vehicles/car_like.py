@@ -44,6 +44,7 @@ class CarLikeModel(VehicleModel):
     kind = "car_like"
     state_names = ("x", "y", "yaw", "speed")
     input_names = ("acceleration", "steering_angle")
+    angle_indices = (2,)
     command_kind = "twist"
     stabilisable_at_rest = False
 

@@ -32,8 +32,12 @@ def check_model(
         return [Problem(source, "vehicle.model", f"dynamics cannot be built: {error}")]
     rng = np.random.default_rng(20260)
     samples = [(_random_state(model, rng), _random_input(model, rng)) for _ in range(_TRIALS)]
-    problems += _check_position_invariance(model, step, samples, rng, source)
-    problems += _check_steady_states(model, step, rng, source)
+    try:
+        problems += _check_position_invariance(model, step, samples, rng, source)
+        problems += _check_steady_states(model, step, rng, source)
+        problems += _check_fallbacks_and_mappings(model, samples, source)
+    except Exception as error:  # user code: report, never crash the loader
+        problems.append(Problem(source, "vehicle.model", f"model check raised: {error!r}"))
     return problems
 
 
@@ -113,6 +117,46 @@ def _check_position_invariance(model, step, samples, rng, source) -> list[Proble
             )
         ]
     return []
+
+
+def _check_fallbacks_and_mappings(model, samples, source) -> list[Problem]:
+    """The braking input (the last line of defence when the solver fails) must respect the
+    input limits, and the message mappings must give vectors of the right length."""
+    lower, upper = (np.asarray(b, dtype=float) for b in model.input_bounds())
+    E, e = (np.asarray(b, dtype=float) for b in model.input_polytope())
+    problems: list[Problem] = []
+    for x, u in samples:
+        brake = np.asarray(model.braking_input(x), dtype=float)
+        inside = (
+            brake.shape == (model.nu,)
+            and np.all(np.isfinite(brake))
+            and np.all(brake >= lower - 1e-9)
+            and np.all(brake <= upper + 1e-9)
+            and np.all(E @ brake <= e + 1e-9)
+        )
+        if not inside:
+            problems.append(
+                Problem(
+                    source,
+                    "vehicle.model",
+                    f"braking_input({np.round(x, 3).tolist()}) = {brake.tolist()} is outside "
+                    "the input limits",
+                )
+            )
+            break
+        back = np.asarray(model.input_from_command(model.command_from_input(u, x), x))
+        state = np.asarray(model.state_from_odometry(model.odometry_from_state(x)))
+        if back.shape != (model.nu,) or state.shape != (model.nx,):
+            problems.append(
+                Problem(
+                    source,
+                    "vehicle.model",
+                    f"command/odometry mappings must return vectors of length nu={model.nu} "
+                    f"and nx={model.nx}, got {back.shape} and {state.shape}",
+                )
+            )
+            break
+    return problems
 
 
 def _check_steady_states(model, step, rng, source) -> list[Problem]:

@@ -30,6 +30,7 @@ class DifferentialDriveModel(VehicleModel):
     kind = "differential_drive"
     state_names = ("x", "y", "yaw")
     input_names = ("forward_speed", "yaw_rate")
+    angle_indices = (2,)
     command_kind = "twist"
     stabilisable_at_rest = False
 

@@ -35,6 +35,7 @@ class SurfaceVesselModel(VehicleModel):
     kind = "surface_vessel"
     state_names = ("x", "y", "yaw", "surge", "sway", "yaw_rate")
     input_names = ("surge_force", "sway_force", "yaw_moment")
+    angle_indices = (2,)
     command_kind = "wrench"
     stabilisable_at_rest = True
 

@@ -32,6 +32,7 @@ class OmniRoverModel(VehicleModel):
     kind = "omni_rover"
     state_names = ("x", "y", "yaw")
     input_names = ("body_vx", "body_vy", "yaw_rate")
+    angle_indices = (2,)  # yaw: kept continuous in the state, wrapped in odometry
     command_kind = "twist"
     stabilisable_at_rest = True
 
