@@ -1,0 +1,705 @@
+"""Importance densities phi(q) >= 0 over the map plane, and their moments over convex cells.
+
+Every density answers one batched question, `moments(polygons, about)`: per polygon the
+mass, the first moment and the polar second moment about a point (the agent). That is all
+the partition needs, and batching lets the raster density answer for all cells at once.
+
+Three kinds, each with the integration that suits it:
+- UniformDensity: exact closed-form polygon moments.
+- GaussianBumpsDensity: background (exact) + bumps by quadrature in each bump's whitened
+  coordinates (relative error below 1e-9, see QUADRATURE_SPACING).
+- RasterDensity: a piecewise-constant grid integrated by scanlines over per-row prefix sums.
+
+Raster layout (files and inline values alike): rows are listed north first, i.e. the first
+row of the file is the largest y, like a map image (the ROS map_server convention); the
+`origin` is the south-west corner of the south-west cell, in metres in the `map` frame.
+"""
+
+from __future__ import annotations
+
+import math
+from abc import ABC, abstractmethod
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from coverage_fleet.errors import ConfigError, Problem
+from coverage_fleet.geometry.polygon import clip_halfplane, uniform_moments
+from coverage_fleet.geometry.quadrature import polygon_quadrature
+from coverage_fleet.geometry.region import ConvexRegion
+
+#: Quadrature piece size in standard deviations of a bump. With the degree-6 rule this
+#: gives relative errors below 1e-9 on mass and moments (test_geometry_density measures it
+#: against closed-form erf integrals).
+QUADRATURE_SPACING = 0.5
+#: Bumps are integrated over +-BUMP_CUTOFF standard deviations per whitened axis; the mass
+#: left out is below 2 * erfc(8.5 / sqrt(2)) ~ 2e-17 of the bump.
+BUMP_CUTOFF = 8.5
+
+
+@dataclass(frozen=True)
+class CellMoments:
+    """Per polygon i: mass = int phi, first = int (q - a_i) phi, polar = int ||q - a_i||^2 phi,
+    with a_i the `about` point (the agent), so centroid = a_i + first / mass."""
+
+    mass: np.ndarray
+    first: np.ndarray
+    polar: np.ndarray
+
+
+class Density(ABC):
+    """A non-negative importance density on the plane (units: 1 / m^2, any scale)."""
+
+    @abstractmethod
+    def evaluate(self, points: np.ndarray) -> np.ndarray:
+        """phi at each point of an (M, 2) array."""
+
+    @abstractmethod
+    def moments(self, polygons: Sequence[np.ndarray], about: np.ndarray) -> CellMoments:
+        """Moments of phi over each convex CCW polygon, about the matching row of `about`."""
+
+    def mass_in(self, region: ConvexRegion) -> float:
+        """Total mass of the density inside the region."""
+        return float(self.moments([region.vertices], region.centroid[None, :]).mass[0])
+
+    def check_region(self, region: ConvexRegion, source: str, key: str) -> list[Problem]:
+        """Problems with using this density on `region` (empty list if none). The base check:
+        some mass must lie inside, or no centroid would mean anything."""
+        mass = self.mass_in(region)
+        if not (np.isfinite(mass) and mass > 0.0):
+            return [Problem(source, key, "the density has no mass inside the region")]
+        return []
+
+
+def _as_about(about: np.ndarray, count: int) -> np.ndarray:
+    about = np.asarray(about, dtype=float).reshape(-1, 2)
+    if len(about) != count:
+        raise ValueError(f"need one 'about' point per polygon ({count}), got {len(about)}")
+    return about
+
+
+class UniformDensity(Density):
+    """phi = value everywhere: every place matters equally."""
+
+    def __init__(self, value: float = 1.0) -> None:
+        self.value = float(value)
+
+    def evaluate(self, points: np.ndarray) -> np.ndarray:
+        return np.full(len(np.atleast_2d(points)), self.value)
+
+    def moments(self, polygons: Sequence[np.ndarray], about: np.ndarray) -> CellMoments:
+        about = _as_about(about, len(polygons))
+        mass = np.zeros(len(polygons))
+        first = np.zeros((len(polygons), 2))
+        polar = np.zeros(len(polygons))
+        for i, polygon in enumerate(polygons):
+            mass[i], first[i], polar[i] = uniform_moments(polygon, about[i])
+        return CellMoments(self.value * mass, self.value * first, self.value * polar)
+
+
+@dataclass(frozen=True)
+class GaussianBump:
+    """weight * N(q; mean, covariance): `weight` is the bump's mass over the whole plane."""
+
+    weight: float
+    mean: np.ndarray
+    covariance: np.ndarray
+
+
+class GaussianBumpsDensity(Density):
+    """phi(q) = background + sum_k weight_k * N(q; mean_k, cov_k): a few hot spots."""
+
+    def __init__(self, bumps: Sequence[GaussianBump], background: float = 0.0) -> None:
+        self.bumps = list(bumps)
+        self.background = float(background)
+        self._chol = [np.linalg.cholesky(b.covariance) for b in self.bumps]
+
+    def evaluate(self, points: np.ndarray) -> np.ndarray:
+        pts = np.atleast_2d(np.asarray(points, dtype=float))
+        total = np.full(len(pts), self.background)
+        for bump, chol in zip(self.bumps, self._chol, strict=True):
+            z = np.linalg.solve(chol, (pts - bump.mean).T).T
+            norm = bump.weight / (2.0 * math.pi * chol[0, 0] * chol[1, 1])
+            total += norm * np.exp(-0.5 * np.einsum("ij,ij->i", z, z))
+        return total
+
+    def moments(self, polygons: Sequence[np.ndarray], about: np.ndarray) -> CellMoments:
+        about = _as_about(about, len(polygons))
+        mass = np.zeros(len(polygons))
+        first = np.zeros((len(polygons), 2))
+        polar = np.zeros(len(polygons))
+        box = [(np.array(n), BUMP_CUTOFF) for n in ((1, 0), (-1, 0), (0, 1), (0, -1))]
+        for i, polygon in enumerate(polygons):
+            if len(polygon) < 3:
+                continue
+            if self.background > 0.0:
+                m, f, p = uniform_moments(polygon, about[i])
+                mass[i] += self.background * m
+                first[i] += self.background * f
+                polar[i] += self.background * p
+            for bump, chol in zip(self.bumps, self._chol, strict=True):
+                # Whitened coordinates z = L^-1 (q - mean): the bump is a standard normal
+                # there, so one piece size (in standard deviations) suits every bump.
+                # det L > 0 keeps the polygon counter-clockwise.
+                local = np.linalg.solve(chol, (polygon - bump.mean).T).T
+                for normal, offset in box:
+                    local = clip_halfplane(local, normal, offset)
+                if len(local) < 3:
+                    continue
+                z, w = polygon_quadrature(local, QUADRATURE_SPACING)
+                w = w * (bump.weight / (2.0 * math.pi)) * np.exp(-0.5 * np.einsum("ij,ij->i",
+                                                                                   z, z))
+                rel = bump.mean - about[i] + z @ chol.T
+                mass[i] += w.sum()
+                first[i] += w @ rel
+                polar[i] += w @ np.einsum("ij,ij->i", rel, rel)
+        return CellMoments(mass, first, polar)
+
+    def check_region(self, region: ConvexRegion, source: str, key: str) -> list[Problem]:
+        problems = super().check_region(region, source, key)
+        if problems or self.background > 0.0:
+            return problems
+        total = sum(b.weight for b in self.bumps)
+        if self.mass_in(region) < 1e-9 * total:
+            return [Problem(source, key, "the bumps lie (almost) entirely outside the region")]
+        return []
+
+
+@dataclass(frozen=True)
+class _Grid:
+    """A raster grid with per-row prefix sums (what the scanline integration reads)."""
+
+    values: np.ndarray  # (rows, cols), row 0 = south
+    origin: np.ndarray  # south-west corner, metres
+    resolution: float
+    prefix_mass: np.ndarray  # (rows, cols + 1): sum_{j<c} phi_j
+    prefix_x: np.ndarray  # sum_{j<c} phi_j (j + 1/2)          (x in cells)
+    prefix_xx: np.ndarray  # sum_{j<c} phi_j ((j+1)^3 - j^3)/3  (x^2 in cells^2)
+
+    @classmethod
+    def build(cls, values: np.ndarray, origin: np.ndarray, resolution: float) -> _Grid:
+        rows, cols = values.shape
+        j = np.arange(cols, dtype=float)
+        zero = np.zeros((rows, 1))
+
+        def prefix(weighted: np.ndarray) -> np.ndarray:
+            return np.hstack([zero, np.cumsum(weighted, axis=1)])
+
+        return cls(
+            values=values,
+            origin=origin,
+            resolution=resolution,
+            prefix_mass=prefix(values),
+            prefix_x=prefix(values * (j + 0.5)),
+            prefix_xx=prefix(values * (((j + 1.0) ** 3 - j**3) / 3.0)),
+        )
+
+
+class RasterDensity(Density):
+    """A piecewise-constant grid of values: cell (r, c) covers
+    x in origin_x + [c, c+1) * resolution, y in origin_y + [r, r+1) * resolution (row 0 is
+    the south row here; files list north first, see the module docstring). Outside the grid
+    phi = fill_value if one was given, else 0 (check_region then insists that the grid
+    covers the region).
+
+    Integration over a convex polygon (`moments`): for every grid row the polygon's chord
+    [x_left, x_right] at the row's centre line, and along it the exact integral of the
+    piecewise-constant phi from per-row prefix sums (fractional end cells included). The
+    row's vertical extent uses the midpoint rule, exact wherever the chord is constant
+    across the row; y^2 adds the row's own h^2/12. Cost: O(rows spanned) per polygon, no
+    per-cell work. Error: only where a polygon edge cuts a row obliquely; it is
+    O(resolution^2) per unit length of boundary times the jump of phi between cells.
+    """
+
+    def __init__(
+        self,
+        values: np.ndarray,
+        origin: Sequence[float],
+        resolution: float,
+        fill_value: float | None = None,
+    ) -> None:
+        self.values = np.asarray(values, dtype=float)
+        self.origin = np.asarray(origin, dtype=float).reshape(2)
+        self.resolution = float(resolution)
+        self.fill_value = None if fill_value is None else float(fill_value)
+        self._grid = _Grid.build(self.values, self.origin, self.resolution)
+        self._padded: dict[tuple[int, int, int, int], _Grid] = {}
+
+    @property
+    def extent(self) -> tuple[float, float, float, float]:
+        """(x_min, y_min, x_max, y_max) covered by the grid, metres."""
+        rows, cols = self.values.shape
+        x0, y0 = self.origin
+        return (x0, y0, x0 + cols * self.resolution, y0 + rows * self.resolution)
+
+    def evaluate(self, points: np.ndarray) -> np.ndarray:
+        pts = np.atleast_2d(np.asarray(points, dtype=float))
+        rows, cols = self.values.shape
+        col = np.floor((pts[:, 0] - self.origin[0]) / self.resolution).astype(int)
+        row = np.floor((pts[:, 1] - self.origin[1]) / self.resolution).astype(int)
+        inside = (row >= 0) & (row < rows) & (col >= 0) & (col < cols)
+        out = np.full(len(pts), 0.0 if self.fill_value is None else self.fill_value)
+        out[inside] = self.values[row[inside], col[inside]]
+        return out
+
+    def _grid_for(self, low: np.ndarray, high: np.ndarray) -> _Grid:
+        """The grid, padded with fill_value (aligned to the same cells) if the polygons
+        reach beyond it; without a fill value outside is 0 and needs no padding."""
+        if self.fill_value is None:
+            return self._grid
+        rows, cols = self.values.shape
+        h = self.resolution
+        left = max(0, math.ceil((self.origin[0] - low[0]) / h))
+        bottom = max(0, math.ceil((self.origin[1] - low[1]) / h))
+        right = max(0, math.ceil((high[0] - self.origin[0]) / h) - cols)
+        top = max(0, math.ceil((high[1] - self.origin[1]) / h) - rows)
+        if left == bottom == right == top == 0:
+            return self._grid
+        key = (left, bottom, right, top)
+        if key not in self._padded:
+            padded = np.pad(self.values, ((bottom, top), (left, right)),
+                            constant_values=self.fill_value)
+            origin = self.origin - h * np.array([left, bottom], dtype=float)
+            self._padded = {key: _Grid.build(padded, origin, h)}  # keep one: regions are fixed
+        return self._padded[key]
+
+    def moments(self, polygons: Sequence[np.ndarray], about: np.ndarray) -> CellMoments:
+        about = _as_about(about, len(polygons))
+        count = len(polygons)
+        mass = np.zeros(count)
+        first = np.zeros((count, 2))
+        polar = np.zeros(count)
+        used = [i for i, p in enumerate(polygons) if len(p) >= 3]
+        if not used:
+            return CellMoments(mass, first, polar)
+        stacked = np.concatenate([polygons[i] for i in used])
+        grid = self._grid_for(stacked.min(axis=0), stacked.max(axis=0))
+        h = grid.resolution
+        rows, cols = grid.values.shape
+
+        # Polygons in grid units (cells). Strips: each polygon's y-range cut at every grid
+        # row boundary and at every vertex height, so inside a strip phi does not change
+        # row and both chord ends move linearly.
+        local = [(polygons[i] - grid.origin) / h for i in used]
+        who = np.asarray(used, dtype=np.int64)
+        v_low = np.array([p[:, 1].min() for p in local])
+        v_high = np.array([p[:, 1].max() for p in local])
+        first_cut = np.clip(np.floor(v_low) + 1, 0, rows).astype(np.int64)
+        stop_cut = np.clip(np.ceil(v_high), 0, rows + 1).astype(np.int64)
+        span = np.maximum(stop_cut - first_cut, 0)
+        cut_poly = np.repeat(np.arange(len(used)), span)
+        cuts = (first_cut[cut_poly] + np.arange(span.sum())
+                - np.repeat(np.cumsum(span) - span, span)).astype(float)
+        inner = (cuts > v_low[cut_poly]) & (cuts < v_high[cut_poly])
+        vertex_poly = np.concatenate([np.full(len(p), k) for k, p in enumerate(local)])
+        level = np.concatenate([cuts[inner], np.concatenate(local)[:, 1]])
+        level_poly = np.concatenate([cut_poly[inner], vertex_poly])
+        order = np.lexsort((level, level_poly))
+        level, level_poly = level[order], level_poly[order]
+        same = level_poly[1:] == level_poly[:-1]
+        bottom, top = level[:-1][same], level[1:][same]
+        strip_poly = level_poly[:-1][same]
+        thick = top - bottom
+        middle = 0.5 * (bottom + top)
+        row = np.floor(middle).astype(np.int64)
+        keep = (thick > 0.0) & (row >= 0) & (row < rows)
+        bottom, top, middle, thick = bottom[keep], top[keep], middle[keep], thick[keep]
+        strip_poly, row = strip_poly[keep], row[keep]
+
+        # Chord ends at a height: the edge of the right chain (edges going up, CCW) or the
+        # left chain (going down) spanning it, by a sorted search on (polygon, edge start).
+        starts = np.concatenate(local)
+        ends = np.concatenate([np.roll(p, -1, axis=0) for p in local])
+        floor_v = min(float(v_low.min()), 0.0)
+        stride = max(float(v_high.max()), float(rows)) - floor_v + 2.0
+
+        def chain(upward: bool) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+            dy = ends[:, 1] - starts[:, 1]
+            pick = dy > 0 if upward else dy < 0
+            s, e, owner = starts[pick], ends[pick], vertex_poly[pick]
+            key = owner * stride + (np.minimum(s[:, 1], e[:, 1]) - floor_v)
+            order = np.argsort(key, kind="stable")
+            at = np.searchsorted(key[order], strip_poly * stride + (middle - floor_v),
+                                 side="right") - 1
+            edge = order[np.clip(at, 0, len(order) - 1)]
+            return s[edge], e[edge], owner[edge] == strip_poly
+
+        right_s, right_e, ok_right = chain(upward=True)
+        left_s, left_e, ok_left = chain(upward=False)
+        good = ok_right & ok_left
+        if not good.all():  # only a strip of rounding-level thickness can miss its edge
+            right_s, right_e, left_s, left_e = (a[good] for a in (right_s, right_e, left_s,
+                                                                   left_e))
+            bottom, top, middle, thick, strip_poly, row = (
+                a[good] for a in (bottom, top, middle, thick, strip_poly, row))
+
+        def at_height(s: np.ndarray, e: np.ndarray, v: np.ndarray) -> np.ndarray:
+            x = s[:, 0] + (v - s[:, 1]) * (e[:, 0] - s[:, 0]) / (e[:, 1] - s[:, 1])
+            return np.clip(x, 0.0, cols)
+
+        def antiderivatives(u: np.ndarray) -> np.ndarray:
+            """Integrals of phi, x phi, x^2 phi along the row from the grid's west edge to
+            u (in cells), exact for piecewise-constant phi."""
+            c = np.minimum(np.floor(u).astype(np.int64), cols - 1)
+            phi = grid.values[row, c]
+            cf = c.astype(float)
+            return np.stack([
+                grid.prefix_mass[row, c] + phi * (u - cf),
+                grid.prefix_x[row, c] + phi * (u * u - cf * cf) / 2.0,
+                grid.prefix_xx[row, c] + phi * (u**3 - cf**3) / 3.0,
+            ])
+
+        # Simpson's rule across each strip: exact while the chord ends stay in one raster
+        # column (the integrands are then polynomials of degree <= 3 in y).
+        totals = np.zeros((5, len(row)))
+        for v, weight in ((bottom, 1.0), (middle, 4.0), (top, 1.0)):
+            across = (antiderivatives(at_height(right_s, right_e, v))
+                      - antiderivatives(at_height(left_s, left_e, v)))
+            scaled = weight * thick / 6.0
+            totals[0] += scaled * across[0]
+            totals[1] += scaled * across[1]
+            totals[2] += scaled * across[2]
+            totals[3] += scaled * v * across[0]
+            totals[4] += scaled * v * v * across[0]
+        cell_owner = who[strip_poly]
+        row_mass = h**2 * totals[0]
+        row_sx = h**3 * totals[1]
+        row_sxx = h**4 * totals[2]
+        row_sy = h**3 * totals[3]
+        row_syy = h**4 * totals[4]
+
+        def per_cell(values: np.ndarray) -> np.ndarray:
+            return np.bincount(cell_owner, weights=values, minlength=count)
+
+        mass = per_cell(row_mass)
+        sx, sy = per_cell(row_sx), per_cell(row_sy)
+        second = per_cell(row_sxx) + per_cell(row_syy)
+        a = about - grid.origin  # about, in the grid's local metres
+        first = np.column_stack([sx - a[:, 0] * mass, sy - a[:, 1] * mass])
+        polar = second - 2.0 * (a[:, 0] * sx + a[:, 1] * sy) + (a * a).sum(axis=1) * mass
+        return CellMoments(mass, first, polar)
+
+    def check_region(self, region: ConvexRegion, source: str, key: str) -> list[Problem]:
+        if self.fill_value is None:
+            gx0, gy0, gx1, gy1 = self.extent
+            x0, y0, x1, y1 = region.bounds
+            slack = 1e-9 * region.extent
+            if x0 < gx0 - slack or y0 < gy0 - slack or x1 > gx1 + slack or y1 > gy1 + slack:
+                return [Problem(
+                    source, key,
+                    f"the raster covers x {gx0:g}..{gx1:g}, y {gy0:g}..{gy1:g} m but the region "
+                    f"spans x {x0:g}..{x1:g}, y {y0:g}..{y1:g} m; enlarge the raster, move its "
+                    "origin, or set fill_value for the uncovered part",
+                )]
+        return super().check_region(region, source, key)
+
+
+# ---------------------------------------------------------------------------------------
+# Raster files
+
+
+def read_pgm(path: Path) -> tuple[np.ndarray, int]:
+    """Read a PGM image (binary P5 or plain P2, 8 or 16 bit) as written, first row = top.
+
+    Format: Netpbm PGM specification (netpbm.sourceforge.net/doc/pgm.html): magic, width,
+    height, maxval as ASCII decimals separated by whitespace, '#' comments to end of line
+    in the header; P5 then one whitespace byte and the samples (1 byte each if maxval < 256,
+    else 2 bytes, most significant first); P2 samples are ASCII decimals.
+    Raises ValueError with a plain description on malformed files.
+    """
+    data = Path(path).read_bytes()
+    magic = data[:2]
+    if magic not in (b"P5", b"P2"):
+        raise ValueError("not a PGM image (expected magic P5 or P2)")
+    pos = 2
+
+    def token() -> bytes:
+        nonlocal pos
+        while pos < len(data):
+            if data[pos : pos + 1].isspace():
+                pos += 1
+            elif data[pos : pos + 1] == b"#":
+                while pos < len(data) and data[pos : pos + 1] not in (b"\n", b"\r"):
+                    pos += 1
+            else:
+                break
+        start = pos
+        while pos < len(data) and not data[pos : pos + 1].isspace() and data[pos:pos + 1] != b"#":
+            pos += 1
+        if start == pos:
+            raise ValueError("the PGM header ends early")
+        return data[start:pos]
+
+    try:
+        width, height, maxval = (int(token()) for _ in range(3))
+    except ValueError as exc:
+        raise ValueError(f"bad PGM header: {exc}") from None
+    if width <= 0 or height <= 0:
+        raise ValueError(f"PGM size must be positive, got {width} x {height}")
+    if not 0 < maxval < 65536:
+        raise ValueError(f"PGM maxval must be 1..65535, got {maxval}")
+    count = width * height
+    if magic == b"P5":
+        pos += 1  # exactly one whitespace byte ends the header
+        dtype = np.dtype(">u1") if maxval < 256 else np.dtype(">u2")
+        needed = count * dtype.itemsize
+        if len(data) - pos < needed:
+            raise ValueError(f"PGM data is short: {len(data) - pos} of {needed} bytes")
+        samples = np.frombuffer(data, dtype=dtype, count=count, offset=pos).astype(np.int64)
+    else:
+        text = b"\n".join(line.split(b"#", 1)[0] for line in data[pos:].splitlines())
+        parts = text.split()
+        if len(parts) < count:
+            raise ValueError(f"PGM data is short: {len(parts)} of {count} samples")
+        try:
+            samples = np.array([int(p) for p in parts[:count]], dtype=np.int64)
+        except ValueError:
+            raise ValueError("PGM samples must be integers") from None
+    if samples.max(initial=0) > maxval or samples.min(initial=0) < 0:
+        raise ValueError(f"PGM samples must lie in 0..{maxval}")
+    return samples.reshape(height, width), maxval
+
+
+def load_raster_values(path: Path) -> np.ndarray:
+    """Values of a raster file as written (first row = north): .npy (2-D numeric array),
+    .csv (comma-separated rows, '#' comments) or .pgm (pixels / maxval, so 0..1).
+    Raises ValueError with a plain description on unreadable or malformed files."""
+    path = Path(path)
+    suffix = path.suffix.lower()
+    if not path.is_file():
+        raise ValueError(f"file not found: {path}")
+    if suffix == ".npy":
+        try:
+            values = np.load(path, allow_pickle=False)
+        except (ValueError, OSError) as exc:
+            raise ValueError(f"cannot read {path} as .npy: {exc}") from None
+        if values.dtype.kind not in "biuf":
+            raise ValueError(f"{path}: the array must be numeric, got dtype {values.dtype}")
+    elif suffix == ".csv":
+        try:
+            values = np.loadtxt(path, delimiter=",", comments="#", ndmin=2, dtype=float)
+        except ValueError as exc:
+            raise ValueError(f"cannot read {path} as CSV numbers: {exc}") from None
+    elif suffix == ".pgm":
+        try:
+            samples, maxval = read_pgm(path)
+        except ValueError as exc:
+            raise ValueError(f"{path}: {exc}") from None
+        values = samples / float(maxval)
+    else:
+        raise ValueError(f"{path}: unknown raster file type {suffix!r} (use .npy, .csv, .pgm)")
+    values = np.asarray(values, dtype=float)
+    if values.ndim != 2 or values.size == 0:
+        raise ValueError(f"{path}: the raster must be a non-empty 2-D array, got "
+                         f"shape {values.shape}")
+    return values
+
+
+# ---------------------------------------------------------------------------------------
+# Construction from a mission file's mapping
+
+
+def _number(
+    mapping: Mapping[str, Any], name: str, source: str, key: str, problems: list[Problem],
+    *, minimum: float | None = None, strictly: bool = False, default: float | None = None,
+) -> float | None:
+    if name not in mapping:
+        if default is None:
+            problems.append(Problem(source, f"{key}.{name}", "is required"))
+        return default
+    value = mapping[name]
+    if isinstance(value, bool) or not isinstance(value, int | float) or not math.isfinite(value):
+        problems.append(Problem(source, f"{key}.{name}", f"must be a finite number, got "
+                                f"{value!r}"))
+        return None
+    if minimum is not None and (value <= minimum if strictly else value < minimum):
+        relation = "greater than" if strictly else "at least"
+        problems.append(Problem(source, f"{key}.{name}", f"must be {relation} {minimum:g}, got "
+                                f"{value!r}"))
+        return None
+    return float(value)
+
+
+def _array(
+    value: Any, shape: tuple[int, ...], source: str, key: str, problems: list[Problem]
+) -> np.ndarray | None:
+    try:
+        array = np.asarray(value, dtype=float)
+    except (TypeError, ValueError):
+        problems.append(Problem(source, key, f"must be numbers of shape {list(shape)}"))
+        return None
+    if array.shape != shape:
+        problems.append(Problem(source, key, f"must have shape {list(shape)}, got "
+                                f"{list(array.shape)}"))
+        return None
+    if not np.all(np.isfinite(array)):
+        problems.append(Problem(source, key, "values must be finite"))
+        return None
+    return array
+
+
+def _unknown_keys(mapping: Mapping[str, Any], allowed: set[str], source: str, key: str,
+                  problems: list[Problem]) -> None:
+    for name in sorted(set(mapping) - allowed, key=str):
+        problems.append(Problem(source, f"{key}.{name}", "unknown key (allowed: "
+                                f"{', '.join(sorted(allowed))})"))
+
+
+def _gaussian_bumps(mapping: Mapping[str, Any], source: str, key: str,
+                    problems: list[Problem]) -> GaussianBumpsDensity | None:
+    background = _number(mapping, "background", source, key, problems, minimum=0.0,
+                         default=0.0)
+    bumps_value = mapping.get("bumps")
+    if not isinstance(bumps_value, list) or not bumps_value:
+        problems.append(Problem(source, f"{key}.bumps", "must be a non-empty list of "
+                                "{weight, mean, covariance}"))
+        return None
+    bumps = []
+    for index, item in enumerate(bumps_value):
+        where = f"{key}.bumps[{index}]"
+        if not isinstance(item, Mapping):
+            problems.append(Problem(source, where, "must be a mapping with weight, mean, "
+                                    "covariance"))
+            continue
+        _unknown_keys(item, {"weight", "mean", "covariance"}, source, where, problems)
+        weight = _number(item, "weight", source, where, problems, minimum=0.0, strictly=True)
+        mean = cov = None
+        if "mean" not in item:
+            problems.append(Problem(source, f"{where}.mean", "is required"))
+        else:
+            mean = _array(item["mean"], (2,), source, f"{where}.mean", problems)
+        if "covariance" not in item:
+            problems.append(Problem(source, f"{where}.covariance", "is required"))
+        else:
+            cov = _array(item["covariance"], (2, 2), source, f"{where}.covariance", problems)
+            if cov is not None:
+                if abs(cov[0, 1] - cov[1, 0]) > 1e-12 * max(1.0, float(np.abs(cov).max())):
+                    problems.append(Problem(source, f"{where}.covariance", "must be symmetric"))
+                    cov = None
+                elif np.linalg.eigvalsh(cov).min() <= 0.0:
+                    problems.append(Problem(source, f"{where}.covariance", "must be positive "
+                                            "definite (variances in m^2, |rho| < 1)"))
+                    cov = None
+        if weight is not None and mean is not None and cov is not None:
+            bumps.append(GaussianBump(weight, mean, cov))
+    if problems or background is None:
+        return None
+    return GaussianBumpsDensity(bumps, background)
+
+
+def _raster(mapping: Mapping[str, Any], source: str, key: str, base_dir: Path | None,
+            problems: list[Problem]) -> RasterDensity | None:
+    resolution = _number(mapping, "resolution", source, key, problems, minimum=0.0,
+                         strictly=True)
+    scale = _number(mapping, "scale", source, key, problems, minimum=0.0, strictly=True,
+                    default=1.0)
+    fill_value = None
+    if "fill_value" in mapping:
+        fill_value = _number(mapping, "fill_value", source, key, problems, minimum=0.0)
+    origin = None
+    if "origin" not in mapping:
+        problems.append(Problem(source, f"{key}.origin", "is required ([x, y] of the "
+                                "south-west corner, metres)"))
+    else:
+        origin = _array(mapping["origin"], (2,), source, f"{key}.origin", problems)
+    values = None
+    if ("file" in mapping) == ("values" in mapping):
+        problems.append(Problem(source, key, "give exactly one of 'file' (a .npy, .csv or .pgm "
+                                "path) or 'values' (rows of numbers, north first)"))
+    elif "file" in mapping:
+        name = mapping["file"]
+        if not isinstance(name, str) or not name:
+            problems.append(Problem(source, f"{key}.file", "must be a file path"))
+        else:
+            path = Path(name)
+            if not path.is_absolute() and base_dir is not None:
+                path = Path(base_dir) / path
+            try:
+                values = load_raster_values(path)
+            except ValueError as exc:
+                problems.append(Problem(source, f"{key}.file", str(exc)))
+    else:
+        try:
+            values = np.asarray(mapping["values"], dtype=float)
+        except (TypeError, ValueError):
+            problems.append(Problem(source, f"{key}.values", "must be rows of numbers"))
+        else:
+            if values.ndim != 2 or values.size == 0:
+                problems.append(Problem(source, f"{key}.values", "must be a non-empty list of "
+                                        "equal-length rows"))
+                values = None
+    if values is not None:
+        where = f"{key}.file" if "file" in mapping else f"{key}.values"
+        if not np.all(np.isfinite(values)):
+            problems.append(Problem(source, where, "raster values must be finite"))
+        elif values.min() < 0.0:
+            problems.append(Problem(source, where, "raster values must be non-negative"))
+    if problems:
+        return None
+    assert values is not None and origin is not None and resolution is not None
+    return RasterDensity(values[::-1] * scale, origin, resolution, fill_value)
+
+
+DENSITY_KEYS = {
+    "uniform": {"kind", "value"},
+    "gaussian_bumps": {"kind", "background", "bumps"},
+    "raster": {"kind", "file", "values", "origin", "resolution", "scale", "fill_value"},
+}
+
+
+def density_from_config(
+    mapping: Any,
+    source: str,
+    base_dir: Path | str | None = None,
+    region: ConvexRegion | None = None,
+    key: str = "density",
+) -> Density:
+    """Build a density from a mission file's `density` mapping; with `region`, also check it
+    against the region (mass inside, raster coverage). Every problem found is raised at once
+    as ConfigError naming `source` and the dotted key.
+
+    Keys (all units SI; unknown keys are errors):
+      kind: uniform | gaussian_bumps | raster                          (required)
+      uniform:         value: > 0, default 1.0
+      gaussian_bumps:  background: >= 0, default 0.0 (added everywhere)
+                       bumps: list of {weight: > 0 (the bump's mass over the plane),
+                                       mean: [x, y] m, covariance: [[sxx, sxy], [sxy, syy]] m^2,
+                                       symmetric positive definite}
+      raster:          file: .npy | .csv | .pgm path, relative to base_dir   (or)
+                       values: rows of numbers, north row first
+                       origin: [x, y] m, south-west corner of the grid       (required)
+                       resolution: > 0, metres per cell (square cells)       (required)
+                       scale: > 0, default 1.0 (multiplies the values; PGM pixels are
+                              first divided by maxval, so they run 0..1)
+                       fill_value: >= 0, phi outside the grid; without it the grid must
+                              cover the region
+    """
+    base = None if base_dir is None else Path(base_dir)
+    if not isinstance(mapping, Mapping):
+        raise ConfigError.single(source, key, "must be a mapping with a 'kind' "
+                                 "(uniform, gaussian_bumps or raster)")
+    kind = mapping.get("kind")
+    if kind not in DENSITY_KEYS:
+        raise ConfigError.single(source, f"{key}.kind", f"must be one of "
+                                 f"{', '.join(DENSITY_KEYS)}, got {kind!r}")
+    problems: list[Problem] = []
+    _unknown_keys(mapping, DENSITY_KEYS[kind], source, key, problems)
+    density: Density | None
+    if kind == "uniform":
+        value = _number(mapping, "value", source, key, problems, minimum=0.0, strictly=True,
+                        default=1.0)
+        density = None if value is None else UniformDensity(value)
+    elif kind == "gaussian_bumps":
+        density = _gaussian_bumps(mapping, source, key, problems)
+    else:
+        density = _raster(mapping, source, key, base, problems)
+    if problems or density is None:
+        raise ConfigError(problems or [Problem(source, key, "invalid density")])
+    if region is not None:
+        problems = density.check_region(region, source, key)
+        if problems:
+            raise ConfigError(problems)
+    return density
