@@ -295,6 +295,29 @@ class PositionDependentCurrentModel(VehicleModel):
         return np.clip(np.array(command.linear[:2]), -1.0, 1.0)
 
 
+def test_cache_key_follows_the_model_code_not_only_the_file(tmp_path: Path) -> None:
+    """Editing the user model's module changes the cache key while the vehicle file (and so
+    its content hash) stays the same; loading twice unchanged gives the same key."""
+    module_dir = tmp_path / "models"
+    module_dir.mkdir()
+    module = module_dir / "user_current.py"
+    code = (
+        f"from {__name__} import PositionDependentCurrentModel\n"
+        "class Model(PositionDependentCurrentModel):\n"
+        "    pass\n"
+    )
+    module.write_text(code)
+    path = write_vehicle(tmp_path, {"model": "user_current:Model", "current_gradient": 0.0})
+    with pytest.MonkeyPatch.context() as patch:
+        patch.syspath_prepend(str(module_dir))
+        first, again = load_vehicle_file(path), load_vehicle_file(path)
+        module.write_text(code + "# tuned\n")
+        edited = load_vehicle_file(path)
+    assert first.cache_key == again.cache_key != first.content_hash
+    assert edited.content_hash == first.content_hash
+    assert edited.cache_key != first.cache_key
+
+
 def test_non_invariant_user_model_is_refused(tmp_path: Path) -> None:
     path = write_vehicle(tmp_path, {"model": f"{__name__}:PositionDependentCurrentModel"})
     [(key, message)] = problems_of(path)

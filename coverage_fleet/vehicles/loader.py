@@ -21,6 +21,7 @@ import dataclasses
 import hashlib
 import importlib
 import math
+import sys
 import typing
 from dataclasses import dataclass
 from pathlib import Path
@@ -54,6 +55,10 @@ class VehicleSpec:
     command_kind: CommandKind
     #: The `vehicle.model` value as written (built-in name or import path).
     model_name: str
+    #: sha256 over the file's bytes and the source of the module defining the model class:
+    #: what caches of derived data (terminal ingredients) should key on, so editing a user
+    #: model's code, not only its vehicle file, invalidates them.
+    cache_key: str
 
 
 def load_vehicle_file(path: str | Path) -> VehicleSpec:
@@ -116,7 +121,21 @@ def load_vehicle_bytes(data: bytes, source: str) -> VehicleSpec:
         content_hash=hashlib.sha256(data).hexdigest(),
         command_kind=model.command_kind,
         model_name=str(model_name),
+        cache_key=_cache_key(data, type(model)),
     )
+
+
+def _cache_key(data: bytes, model_class: type[VehicleModel]) -> str:
+    """File bytes plus the source of every module the model class inherits code from."""
+    digest = hashlib.sha256(data)
+    modules = dict.fromkeys(cls.__module__ for cls in model_class.__mro__)
+    for name in modules:
+        module_file = getattr(sys.modules.get(name), "__file__", None)
+        try:
+            digest.update(Path(module_file).read_bytes() if module_file else name.encode())
+        except OSError:
+            digest.update(name.encode())
+    return digest.hexdigest()
 
 
 def _ros_parameters(data: bytes, source: str) -> dict[str, Any]:
