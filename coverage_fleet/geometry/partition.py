@@ -103,20 +103,19 @@ def _neighbour_table(points: np.ndarray) -> np.ndarray:
     return np.take_along_axis(table, np.argsort(distance, axis=1, kind="stable"), axis=1)
 
 
-def _clip_all(polygons: np.ndarray, counts: np.ndarray, normals: np.ndarray,
-              offsets: np.ndarray, active: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Clip polygon i (first counts[i] rows of polygons[i], CCW) to normals[i] . q <=
-    offsets[i] where active[i]: Sutherland-Hodgman for every cell at once, so the cost is a
-    fixed number of array operations per neighbour rank rather than per cell."""
+def _clip_batch(polygons: np.ndarray, counts: np.ndarray, side: np.ndarray
+                ) -> tuple[np.ndarray, np.ndarray]:
+    """Clip polygon i (first counts[i] rows of polygons[i], CCW) to where its signed
+    distance `side` is <= 0: Sutherland-Hodgman for a batch of cells at once, so the cost is
+    a fixed number of array operations per neighbour rank rather than per cell. The width
+    must leave room for one more vertex (a convex polygon cut by a line gains at most one)."""
     n, width, _ = polygons.shape
     slot = np.arange(width)
     valid = slot[None, :] < counts[:, None]
-    side = np.einsum("ivk,ik->iv", polygons, normals) - offsets[:, None]
-    inside = (side <= 0.0) | ~active[:, None]
+    inside = side <= 0.0
     following = np.where(slot[None, :] + 1 < counts[:, None], slot[None, :] + 1, 0)
     rows = np.arange(n)[:, None]
-    inside_next = inside[rows, following]
-    crossing = valid & (inside != inside_next)
+    crossing = valid & (inside != inside[rows, following])
     side_next = side[rows, following]
     with np.errstate(divide="ignore", invalid="ignore"):
         t = np.where(crossing, side / (side - side_next), 0.0)
@@ -125,10 +124,29 @@ def _clip_all(polygons: np.ndarray, counts: np.ndarray, normals: np.ndarray,
     candidates = np.stack([polygons, cut], axis=2).reshape(n, 2 * width, 2)
     keep = np.stack([inside & valid, crossing], axis=2).reshape(n, 2 * width)
     new_counts = keep.sum(axis=1)
-    order = np.argsort(~keep, axis=1, kind="stable")[:, : max(int(new_counts.max()), 1)]
+    order = np.argsort(~keep, axis=1, kind="stable")[:, :width]
     clipped = np.take_along_axis(candidates, order[..., None], axis=1)
-    new_counts = np.where(new_counts >= 3, new_counts, 0)
-    return clipped, new_counts
+    return clipped, np.where(new_counts >= 3, new_counts, 0)
+
+
+def _drop_repeated_vertices(polygons: np.ndarray, counts: np.ndarray, tol: float
+                            ) -> tuple[np.ndarray, np.ndarray]:
+    """Remove vertices within `tol` of their predecessor. A bisector through an existing
+    vertex leaves a copy of it a rounding error away; harmless for moments, but consumers
+    (markers, other geometry libraries) want simple polygons."""
+    n, width, _ = polygons.shape
+    slot = np.arange(width)
+    valid = slot[None, :] < counts[:, None]
+    previous = np.where(slot[None, :] == 0, np.maximum(counts[:, None] - 1, 0),
+                        slot[None, :] - 1)
+    gap = np.linalg.norm(polygons - polygons[np.arange(n)[:, None], previous], axis=2)
+    keep = valid & (gap > tol)
+    if np.array_equal(keep, valid):
+        return polygons, counts
+    order = np.argsort(~keep, axis=1, kind="stable")
+    new_counts = keep.sum(axis=1)
+    return (np.take_along_axis(polygons, order[..., None], axis=1),
+            np.where(new_counts >= 3, new_counts, 0))
 
 
 def voronoi_cells(positions: np.ndarray, region: ConvexRegion) -> list[np.ndarray]:
@@ -139,19 +157,26 @@ def voronoi_cells(positions: np.ndarray, region: ConvexRegion) -> list[np.ndarra
     index = np.flatnonzero(leader)
     kept = pts[index]
     table = _neighbour_table(kept)
-    m = len(kept)
+    m, k = len(kept), len(region.vertices)
     # Work about each agent's own position, for precision far from the map origin.
-    polygons = region.vertices[None, :, :] - kept[:, None, :]
-    counts = np.full(m, len(region.vertices))
+    polygons = np.zeros((m, k + table.shape[1] + 1, 2))
+    polygons[:, :k] = region.vertices[None, :, :] - kept[:, None, :]
+    counts = np.full(m, k)
+    slot = np.arange(polygons.shape[1])
     for rank in range(table.shape[1]):
         other = table[:, rank]
-        active = (other >= 0) & (counts > 0)
-        if not active.any():
+        rows = np.flatnonzero((other >= 0) & (counts > 0))
+        if len(rows) == 0:
             break
-        normals = kept[np.where(other >= 0, other, 0)] - kept
+        normals = kept[other[rows]] - kept[rows]
         # Bisector of p and p_j about p: normal . q <= |normal|^2 / 2.
         offsets = 0.5 * np.einsum("ij,ij->i", normals, normals)
-        polygons, counts = _clip_all(polygons, counts, normals, offsets, active)
+        side = np.einsum("ivk,ik->iv", polygons[rows], normals) - offsets[:, None]
+        cuts = np.any((side > 0.0) & (slot[None, :] < counts[rows, None]), axis=1)
+        rows, side = rows[cuts], side[cuts]
+        if len(rows):
+            polygons[rows], counts[rows] = _clip_batch(polygons[rows], counts[rows], side)
+    polygons, counts = _drop_repeated_vertices(polygons, counts, 1e-12 * region.extent)
     cells = [EMPTY_POLYGON] * len(pts)
     for local in range(m):
         if counts[local] >= 3:
@@ -175,13 +200,14 @@ def compute_partition(
     moments = density.moments(cells, pts)
     masses = np.maximum(moments.mass, 0.0)
     total = float(masses.sum())
+    has_mass = masses > ZERO_MASS_FRACTION * total
     centroids = pts.copy()
-    for i, cell in enumerate(cells):
-        if masses[i] > ZERO_MASS_FRACTION * total:
-            centroids[i] = pts[i] + moments.first[i] / masses[i]
-        elif len(cell) >= 3 and polygon_area(cell) > 0.0:
-            area, first, _ = uniform_moments(cell, pts[i])
+    centroids[has_mass] += moments.first[has_mass] / masses[has_mass, None]
+    for i in np.flatnonzero(~has_mass):
+        if len(cells[i]) >= 3 and polygon_area(cells[i]) > 0.0:
+            area, first, _ = uniform_moments(cells[i], pts[i])
             centroids[i] = pts[i] + first / area
+    masses = np.where(has_mass, masses, 0.0)
     polar = np.maximum(moments.polar, 0.0)
     return Partition(
         positions=pts,

@@ -1,0 +1,139 @@
+"""Time the partition on a raster density against a plain labelling baseline, same run.
+
+Scenario (invented): an orchard frost-watch block of 256 m x 256 m, a 512 x 512 raster of
+frost risk (0.5 m cells: a cold-air drainage ridge plus a few frost pockets), a convex
+block boundary inside the raster, 100 robots at random positions.
+
+- method:   coverage_fleet.geometry.partition.compute_partition (bounded Voronoi cells by
+            half-plane clipping, raster moments by scanlines over per-row prefix sums:
+            masses, centroids and polar moments).
+- baseline: label every raster cell centre inside the block with its nearest robot
+            (scipy.spatial.cKDTree query), then np.bincount for masses and centroids.
+            The in-block cell centres and weights are prepared once, outside the timing.
+- accuracy: both against a reference that labels a 4 x 4 sub-grid of every raster cell
+            (16x finer sampling of the same piecewise-constant field).
+
+Prints medians, their ratio (target: method at least 10x faster) and the largest centroid
+differences. Single-threaded on both sides. Run: .venv/bin/python benchmarks/partition_benchmark.py
+"""
+
+from __future__ import annotations
+
+import statistics
+import time
+
+import numpy as np
+from scipy.spatial import cKDTree
+
+from coverage_fleet.geometry.density import RasterDensity
+from coverage_fleet.geometry.partition import compute_partition
+from coverage_fleet.geometry.region import ConvexRegion
+
+SIZE = 512
+RESOLUTION = 0.5  # metres per cell
+AGENTS = 100
+REPEATS = 15
+SUPERSAMPLE = 4
+
+
+def frost_risk_raster() -> np.ndarray:
+    """Invented frost risk: a diagonal cold-air drainage band, three frost pockets, and
+    cell-to-cell noise (so the raster is not smooth at the cell scale). Row 0 = south."""
+    rng = np.random.default_rng(7)
+    centres = (np.arange(SIZE) + 0.5) * RESOLUTION
+    x, y = np.meshgrid(centres, centres)
+    field = 0.2 + np.exp(-(((x - y) / 40.0) ** 2))
+    for cx, cy, s, w in ((60, 180, 12, 2.0), (190, 70, 20, 1.5), (150, 200, 8, 3.0)):
+        field += w * np.exp(-((x - cx) ** 2 + (y - cy) ** 2) / (2 * s * s))
+    return field * rng.uniform(0.8, 1.2, size=field.shape)
+
+
+def labelling(points: np.ndarray, weights: np.ndarray, agents: np.ndarray
+              ) -> tuple[np.ndarray, np.ndarray]:
+    """Baseline: nearest agent of every sample point, then sums by label."""
+    _, label = cKDTree(agents).query(points)
+    n = len(agents)
+    mass = np.bincount(label, weights=weights, minlength=n)
+    cx = np.bincount(label, weights=weights * points[:, 0], minlength=n)
+    cy = np.bincount(label, weights=weights * points[:, 1], minlength=n)
+    return mass, np.column_stack([cx, cy]) / mass[:, None]
+
+
+def median_seconds(action, repeats: int) -> float:
+    times = []
+    for _ in range(repeats):
+        start = time.perf_counter()
+        action()
+        times.append(time.perf_counter() - start)
+    return statistics.median(times)
+
+
+def main() -> None:
+    values = frost_risk_raster()
+    density = RasterDensity(values, origin=[0.0, 0.0], resolution=RESOLUTION)
+    region = ConvexRegion.from_vertices(
+        [[8, 4], [240, 12], [252, 150], [200, 250], [30, 244], [4, 120]], source="benchmark"
+    )
+    rng = np.random.default_rng(11)
+    low, high = np.array(region.bounds[:2]), np.array(region.bounds[2:])
+    candidates = rng.uniform(low, high, size=(10 * AGENTS, 2))
+    agents = candidates[region.contains(candidates)][:AGENTS]
+
+    centres = (np.arange(SIZE) + 0.5) * RESOLUTION
+    cx, cy = np.meshgrid(centres, centres)
+    all_points = np.column_stack([cx.ravel(), cy.ravel()])
+    inside = region.contains(all_points)
+    points = all_points[inside]
+    weights = values.ravel()[inside] * RESOLUTION**2
+
+    compute_partition(agents, region, density)  # warm-up (first-call imports, caches)
+    labelling(points, weights, agents)
+    method_s = median_seconds(lambda: compute_partition(agents, region, density), REPEATS)
+    baseline_s = median_seconds(lambda: labelling(points, weights, agents), REPEATS)
+
+    result = compute_partition(agents, region, density)
+    base_mass, base_centroids = labelling(points, weights, agents)
+
+    # Reference: 4 x 4 sub-samples per raster cell, each carrying 1/16 of the cell's mass.
+    offsets = (np.arange(SUPERSAMPLE) + 0.5) / SUPERSAMPLE - 0.5
+    ox, oy = np.meshgrid(offsets * RESOLUTION, offsets * RESOLUTION)
+    fine = (all_points[:, None, :] + np.column_stack([ox.ravel(), oy.ravel()])[None]
+            ).reshape(-1, 2)
+    fine_weights = np.repeat(values.ravel() * RESOLUTION**2 / SUPERSAMPLE**2,
+                             SUPERSAMPLE**2)
+    fine_inside = region.contains(fine)
+    ref_mass, ref_centroids = labelling(fine[fine_inside], fine_weights[fine_inside], agents)
+
+    def largest(a: np.ndarray, b: np.ndarray) -> float:
+        return float(np.max(np.linalg.norm(a - b, axis=1)))
+
+    def largest_relative(a: np.ndarray, b: np.ndarray) -> float:
+        return float(np.max(np.abs(a - b) / b))
+
+    rows = [
+        ("scanline partition (cells, masses, centroids, polar moments)", method_s),
+        ("labelling baseline (cKDTree query + bincount)", baseline_s),
+    ]
+    print(f"partition benchmark: {len(agents)} agents, {SIZE}x{SIZE} raster "
+          f"({RESOLUTION} m cells), {REPEATS} repeats, median wall time")
+    print(f"{'method':<64}{'median ms':>12}")
+    for name, seconds in rows:
+        print(f"{name:<64}{seconds * 1e3:>12.2f}")
+    print(f"{'speed-up (baseline / method)':<64}{baseline_s / method_s:>12.1f}x")
+    print()
+    print(f"{'accuracy (metres; one raster cell = ' + str(RESOLUTION) + ' m)':<64}"
+          f"{'largest':>12}")
+    print(f"{'centroid difference, method vs baseline':<64}"
+          f"{largest(result.centroids, base_centroids):>12.4f}")
+    print(f"{'centroid error vs 4x4 sub-sampled reference, method':<64}"
+          f"{largest(result.centroids, ref_centroids):>12.4f}")
+    print(f"{'centroid error vs 4x4 sub-sampled reference, baseline':<64}"
+          f"{largest(base_centroids, ref_centroids):>12.4f}")
+    print(f"{'relative mass error vs reference, method':<64}"
+          f"{largest_relative(result.masses, ref_mass):>12.2e}")
+    print(f"{'relative mass error vs reference, baseline':<64}"
+          f"{largest_relative(base_mass, ref_mass):>12.2e}")
+
+
+if __name__ == "__main__":
+    main()
