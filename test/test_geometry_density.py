@@ -165,10 +165,9 @@ def test_constant_raster_reproduces_closed_form_polygon_moments() -> None:
 
 
 def test_random_raster_against_exact_clipping() -> None:
-    """Noisy 30 x 40 raster (values 0.5..1.5 cell to cell, the hardest case: the scanline
-    error comes only from chord ends crossing column boundaries, scaled by the jumps).
-    Bounds stated here: mass within 1e-3 relative, centroid within 0.01 cells, polar
-    moment within 2e-3 relative of exact cell-by-cell clipping."""
+    """Noisy 30 x 40 raster (values 0.5..1.5 cell to cell): the scanline moments are the
+    exact integrals of the piecewise-constant field, so they match cell-by-cell clipping
+    to rounding (bounds 1e-10 relative, 1e-10 cells for centroids)."""
     rng = np.random.default_rng(8)
     h = 0.1
     values = rng.uniform(0.5, 1.5, size=(30, 40))
@@ -179,13 +178,29 @@ def test_random_raster_against_exact_clipping() -> None:
     got = raster.moments(cells, agents)
     for i, cell in enumerate(cells):
         mass, first, polar = exact_raster_moments(values, origin, h, cell, agents[i])
-        assert got.mass[i] == pytest.approx(mass, rel=1e-3)
+        assert got.mass[i] == pytest.approx(mass, rel=1e-10)
         centroid_gap = np.linalg.norm(got.first[i] / got.mass[i] - first / mass)
-        assert centroid_gap < 0.01 * h
-        assert got.polar[i] == pytest.approx(polar, rel=2e-3)
-    # Cells tile the square, so the masses add up to the whole raster's mass (neighbours
-    # cut their strips at different heights, so the errors nearly, not exactly, cancel).
-    assert got.mass.sum() == pytest.approx(values.sum() * h * h, rel=1e-4)
+        assert centroid_gap < 1e-10 * h
+        assert got.polar[i] == pytest.approx(polar, rel=1e-10)
+    # Cells tile the square, so the masses add up to the whole raster's mass.
+    assert got.mass.sum() == pytest.approx(values.sum() * h * h, rel=1e-12)
+
+
+def test_raster_far_from_the_map_origin_with_vertical_and_horizontal_edges() -> None:
+    """A UTM-like origin (500 km east, 4000 km north) and a polygon with axis-parallel and
+    oblique edges, partly outside the grid (zero there): still the exact integral."""
+    rng = np.random.default_rng(9)
+    h = 0.5
+    origin = np.array([500_000.0, 4_000_000.0])
+    values = rng.uniform(0.0, 2.0, size=(12, 16))
+    raster = RasterDensity(values, origin=origin, resolution=h)
+    polygon = origin + np.array([[1.0, -1.0], [9.0, -1.0], [9.0, 4.0], [6.3, 7.7], [1.0, 5.0]])
+    about = origin + np.array([4.0, 2.0])
+    got = raster.moments([polygon], about[None])
+    mass, first, polar = exact_raster_moments(values, origin, h, polygon, about)
+    assert got.mass[0] == pytest.approx(mass, rel=1e-9)
+    np.testing.assert_allclose(got.first[0], first, rtol=1e-8, atol=1e-9 * mass)
+    assert got.polar[0] == pytest.approx(polar, rel=1e-8)
 
 
 def test_raster_beyond_its_grid_uses_fill_value() -> None:
