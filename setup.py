@@ -9,6 +9,12 @@ PACKAGE = "coverage_fleet"
 # One line per executable; `ros2 run coverage_fleet <name>` finds them in lib/coverage_fleet.
 CONSOLE_SCRIPTS = [
     "coverage-fleet = coverage_fleet.cli.main:main",
+    "coverage_fleet_simulator = coverage_fleet.ros.simulator_node:main",
+    "coverage_fleet_controller = coverage_fleet.ros.controller_node:main",
+    "coverage_fleet_partition = coverage_fleet.ros.partition_node:main",
+    "coverage_fleet_gate = coverage_fleet.ros.gate_node:main",
+    "coverage_fleet_base_station = coverage_fleet.ros.base_station:main",
+    "coverage_fleet_recorder = coverage_fleet.ros.recorder_node:main",
 ]
 
 

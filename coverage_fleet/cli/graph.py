@@ -1,0 +1,205 @@
+"""The node list of the ROS graph, built in ONE place for both ways of starting it: the
+launch files in launch/ (ROS 2 installs) and the package's own launcher (`coverage-fleet
+launch`). Pure Python: no launch or rclpy import, so it is testable anywhere.
+
+A NodeSpec names the console script (`ros2 run coverage_fleet <executable>`), the module
+that script runs (the launcher starts `python -m <module>` so that it works without an
+install), the node's name, namespace and parameters.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import TYPE_CHECKING, Literal
+
+from coverage_fleet.errors import ConfigError
+
+if TYPE_CHECKING:
+    from coverage_fleet.fleet.mission import Mission
+
+SimulationMode = Literal["lockstep", "realtime"]
+SIMULATION_MODES = ("lockstep", "realtime")
+
+ParameterValue = bool | int | float | str
+
+
+@dataclass(frozen=True)
+class NodeSpec:
+    """One process of the graph."""
+
+    role: str
+    executable: str
+    module: str
+    #: Node name; None for processes that host several nodes (the base station).
+    name: str | None
+    namespace: str = ""
+    parameters: dict[str, ParameterValue] = field(default_factory=dict)
+
+    @property
+    def label(self) -> str:
+        return f"{self.namespace.strip('/')}/{self.name}" if self.namespace else self.role
+
+
+#: console script name -> module with main(); setup.py CONSOLE_SCRIPTS lists the same.
+EXECUTABLES = {
+    "coverage_fleet_simulator": "coverage_fleet.ros.simulator_node",
+    "coverage_fleet_controller": "coverage_fleet.ros.controller_node",
+    "coverage_fleet_partition": "coverage_fleet.ros.partition_node",
+    "coverage_fleet_gate": "coverage_fleet.ros.gate_node",
+    "coverage_fleet_base_station": "coverage_fleet.ros.base_station",
+    "coverage_fleet_recorder": "coverage_fleet.ros.recorder_node",
+}
+
+
+def _spec(role: str, executable: str, name: str | None, namespace: str = "", **params) -> NodeSpec:
+    return NodeSpec(role, executable, EXECUTABLES[executable], name, namespace, dict(params))
+
+
+def base_station_nodes(mission_file: str | Path, use_sim_time: bool = False) -> list[NodeSpec]:
+    """The base-station part: partition node and reference gate in one process."""
+    mission_file = str(Path(mission_file).resolve())
+    return [
+        _spec(
+            "base_station", "coverage_fleet_base_station", None,
+            mission_file=mission_file, use_sim_time=use_sim_time,
+        )
+    ]
+
+
+def controller_node_spec(
+    mission_file: str | Path,
+    robot: str,
+    vehicle_file: str | Path | None = None,
+    lockstep: bool = False,
+    use_sim_time: bool = False,
+) -> NodeSpec:
+    """One robot's controller in the robot's namespace (vehicle file: the roster's unless
+    given)."""
+    return _spec(
+        f"controller {robot}", "coverage_fleet_controller", "controller", f"/{robot}",
+        mission_file=str(Path(mission_file).resolve()),
+        vehicle_file=str(Path(vehicle_file).resolve()) if vehicle_file else "",
+        robot_name=robot,
+        lockstep=lockstep,
+        use_sim_time=use_sim_time,
+    )
+
+
+def simulator_node_spec(
+    mission_file: str | Path, mode: SimulationMode, stop_when_converged: bool = True,
+    duration: float = 0.0, recorded: bool = False,
+) -> NodeSpec:
+    """The headless simulator (the clock source: it never uses sim time itself). In
+    lockstep it starts once each robot's odom has its controller and the partition node
+    (and the recorder, when `recorded`) as subscribers, so nobody misses the first steps."""
+    return _spec(
+        "simulator", "coverage_fleet_simulator", "simulator",
+        mission_file=str(Path(mission_file).resolve()),
+        mode=mode,
+        stop_when_converged=stop_when_converged,
+        duration=float(duration),
+        odom_subscribers=3 if recorded else 2,
+        use_sim_time=False,
+    )
+
+
+def fleet_nodes(
+    mission_file: str | Path,
+    simulation: SimulationMode | None = "lockstep",
+    vehicle_overrides: dict[str, str | Path] | None = None,
+    duration: float = 0.0,
+    stop_when_converged: bool = True,
+    recorded: bool = False,
+) -> list[NodeSpec]:
+    """The whole graph of a mission: base station, one controller per roster robot, and
+    (when `simulation` is given) the headless simulator for the simulated robots.
+
+    Lockstep needs every robot simulated (a real robot cannot wait for the simulator); with
+    real robots in the roster the clock is the wall clock, so nodes do not use sim time.
+    """
+    from coverage_fleet.fleet.mission import load_mission
+
+    mission = load_mission(mission_file)
+    check_simulation(mission, simulation)
+    overrides = vehicle_overrides or {}
+    unknown = sorted(set(overrides) - set(mission.robot_names))
+    if unknown:
+        raise ConfigError.single(
+            str(mission.source), "roster",
+            f"--vehicle names robots not in the roster: {', '.join(unknown)}",
+        )
+    any_real = any(not e.simulated for e in mission.roster)
+    use_sim_time = simulation is not None and not any_real
+    lockstep = simulation == "lockstep"
+    nodes = base_station_nodes(mission.source, use_sim_time)
+    for entry in mission.roster:
+        nodes.append(
+            controller_node_spec(
+                mission.source, entry.name, overrides.get(entry.name), lockstep, use_sim_time
+            )
+        )
+    if simulation is not None and any(e.simulated for e in mission.roster):
+        nodes.append(
+            simulator_node_spec(
+                mission.source, simulation, stop_when_converged, duration, recorded
+            )
+        )
+    return nodes
+
+
+def check_simulation(mission: Mission, simulation: SimulationMode | None) -> None:
+    if simulation is not None and simulation not in SIMULATION_MODES:
+        raise ConfigError.single(
+            str(mission.source), "simulation",
+            f"mode must be one of {', '.join(SIMULATION_MODES)}, got {simulation!r}",
+        )
+    real = [e.name for e in mission.roster if not e.simulated]
+    if simulation == "lockstep" and real:
+        raise ConfigError.single(
+            str(mission.source), "roster",
+            f"lockstep simulation cannot wait for real robots ({', '.join(real)}); use "
+            "realtime mode or mark them simulated",
+        )
+
+
+def _ros_value(value: ParameterValue) -> str:
+    if isinstance(value, bool):
+        return "true" if value else "false"
+    if isinstance(value, float):
+        return repr(value)
+    if isinstance(value, str):
+        # Quoted so that ROS's YAML parsing keeps the value a string ("" stays empty).
+        return "'" + value.replace("'", "''") + "'"
+    return str(value)
+
+
+def ros_arguments(spec: NodeSpec) -> list[str]:
+    """The --ros-args part of a command line for spec (names, namespace, parameters)."""
+    args = ["--ros-args"]
+    if spec.name:
+        args += ["-r", f"__node:={spec.name}"]
+    if spec.namespace:
+        args += ["-r", f"__ns:={spec.namespace}"]
+    for key, value in spec.parameters.items():
+        args += ["-p", f"{key}:={_ros_value(value)}"]
+    return args
+
+
+def launch_actions(specs: list[NodeSpec]) -> list:
+    """launch_ros Node actions for specs (for the launch files; imports launch_ros, which
+    only ROS 2 installs have, when called)."""
+    from launch_ros.actions import Node
+
+    return [
+        Node(
+            package="coverage_fleet",
+            executable=spec.executable,
+            name=spec.name,
+            namespace=spec.namespace or None,
+            parameters=[spec.parameters],
+            output="screen",
+            emulate_tty=True,
+        )
+        for spec in specs
+    ]

@@ -1,0 +1,188 @@
+"""`coverage-fleet launch MISSION`: start the mission's ROS graph as separate processes
+(base station, one controller per robot, optionally the headless simulator), record the run
+and end with the trial directory and its report. The same node list as launch/*.launch.py
+(coverage_fleet.cli.graph)."""
+
+from __future__ import annotations
+
+import argparse
+import os
+import sys
+import threading
+import time
+from datetime import UTC, datetime
+from pathlib import Path
+
+from coverage_fleet.errors import ConfigError, Problem
+
+from .graph import SIMULATION_MODES, fleet_nodes
+from .launcher import SAFETY_CAUTION, GraphProcesses, ros_environment
+
+EXIT_NODE_DIED = 1
+EXIT_INTERRUPTED = 130
+#: Simulator exit status 0 means its run is over (duration reached or fleet at rest).
+SIMULATOR_ROLE = "simulator"
+
+
+def register(subparsers: argparse._SubParsersAction) -> None:
+    parser = subparsers.add_parser(
+        "launch",
+        help="start a mission's ROS 2 graph (optionally with the headless simulator)",
+        description="Start the mission's ROS 2 graph as separate processes: the base station "
+        "(partition and reference gate), one controller per robot and, with --headless-sim, "
+        "the simulator. Records the run and writes a trial directory with a report at the "
+        "end (simulation over, or Ctrl-C).",
+    )
+    parser.add_argument("mission", type=Path, help="mission file (YAML)")
+    parser.add_argument(
+        "--headless-sim", action="store_true",
+        help="simulate the robots marked simulated (default: all robots are real)",
+    )
+    parser.add_argument(
+        "--sim-mode", choices=SIMULATION_MODES, default="lockstep",
+        help="lockstep: time advances when every controller has answered (fast, repeatable); "
+        "realtime: wall-clock pace (default: lockstep)",
+    )
+    parser.add_argument(
+        "--vehicle", action="append", default=[], metavar="ROBOT=FILE",
+        help="use another vehicle parameter file for one robot (repeatable)",
+    )
+    parser.add_argument(
+        "--duration", type=float, default=0.0,
+        help="simulated seconds before the run ends (default: the mission's)",
+    )
+    parser.add_argument("--out", type=Path, help="trial directory (default: trials/...)")
+    parser.add_argument(
+        "--no-record", action="store_true", help="do not record a trial (just run the graph)"
+    )
+    parser.set_defaults(handler=run)
+
+
+def _overrides(items: list[str]) -> dict[str, Path]:
+    found = {}
+    problems = []
+    for item in items:
+        robot, sep, path = item.partition("=")
+        if not sep or not robot or not path:
+            problems.append(f"--vehicle {item!r}: expected ROBOT=FILE")
+            continue
+        if not Path(path).is_file():
+            problems.append(f"--vehicle {item!r}: no such file {path}")
+            continue
+        found[robot] = Path(path)
+    if problems:
+        raise ConfigError([Problem("command line", "--vehicle", p) for p in problems])
+    return found
+
+
+def _start_recorder(mission_file: Path):
+    """The recorder node in this process, spun on a thread; returns (node, stop function)."""
+    import rclpy
+    from rclpy.executors import SingleThreadedExecutor
+    from rclpy.signals import SignalHandlerOptions
+
+    from coverage_fleet.ros.recorder_node import RecorderNode
+
+    # Ctrl-C must reach the launcher (which stops the graph in order), not rclpy.
+    rclpy.init(args=["coverage-fleet-launch"], signal_handler_options=SignalHandlerOptions.NO)
+    node = RecorderNode(str(mission_file))
+    executor = SingleThreadedExecutor()
+    executor.add_node(node)
+    def spin() -> None:
+        try:
+            executor.spin()
+        except Exception as error:  # report it; the graph itself goes on
+            print(f"launch: the recorder stopped: {error!r}", file=sys.stderr, flush=True)
+            raise
+
+    thread = threading.Thread(target=spin, daemon=True)
+    thread.start()
+
+    def stop() -> None:
+        executor.shutdown(timeout_sec=2.0)
+        thread.join(timeout=5.0)
+        node.destroy_node()
+        rclpy.try_shutdown()
+
+    return node, stop
+
+
+def run(args: argparse.Namespace) -> int:
+    from coverage_fleet.fleet.mission import load_mission
+
+    mission = load_mission(args.mission)
+    simulation = args.sim_mode if args.headless_sim else None
+    specs = fleet_nodes(
+        mission.source, simulation, _overrides(args.vehicle), duration=args.duration,
+        recorded=not args.no_record,
+    )
+    stamp = datetime.now(UTC).strftime("%Y%m%dT%H%M%SZ")
+    out = args.out or Path("trials") / f"{mission.name}-ros-{stamp}"
+    if out.exists():
+        raise ConfigError.single(str(out), "--out", "already exists; a trial is never overwritten")
+    log_dir = Path(f"{out}.logs")
+    env, notes = ros_environment(os.environ)
+    # This process hosts the recorder: it joins the same domain on loopback.
+    os.environ.update(
+        {k: env[k] for k in ("ROS_AUTOMATIC_DISCOVERY_RANGE", "ROS_DOMAIN_ID")}
+    )
+    print(SAFETY_CAUTION)
+    for note in notes:
+        print(f"launch: set {note}")
+    recorder, stop_recorder = (None, None) if args.no_record else _start_recorder(mission.source)
+    graph = GraphProcesses(log_dir, env)
+    started = time.monotonic()
+    status = 0
+    finished = False
+    try:
+        graph.start(specs)
+        print(
+            f"launch: mission {mission.name!r}, {len(mission.roster)} robots, "
+            f"{'headless simulation (' + simulation + ')' if simulation else 'real robots'}; "
+            f"started {len(specs)} processes (ROS_DOMAIN_ID={env['ROS_DOMAIN_ID']}):"
+        )
+        graph.describe(sys.stdout)
+        print(
+            "launch: watch /coverage/cells (RViz, frame map), /coverage/cost, "
+            "/coverage/generation, /<robot>/coverage/target and /diagnostics; node logs in "
+            f"{log_dir}; Ctrl-C stops everything",
+            flush=True,
+        )
+        while not finished:
+            for node in graph.exited():
+                code = node.returncode
+                if node.spec.role == SIMULATOR_ROLE and code == 0:
+                    print("launch: the simulation is over", flush=True)
+                    finished = True
+                elif node.spec.role.startswith("controller"):
+                    # A fault in one robot never takes the fleet down: the others go on.
+                    print(
+                        f"launch: {node.spec.label} exited with status {code} "
+                        f"(see {node.log_path}); the rest of the fleet goes on",
+                        file=sys.stderr, flush=True,
+                    )
+                    status = EXIT_NODE_DIED
+                else:
+                    print(
+                        f"launch: {node.spec.label} exited with status {code} "
+                        f"(see {node.log_path}); stopping the graph",
+                        file=sys.stderr, flush=True,
+                    )
+                    status = EXIT_NODE_DIED
+                    finished = True
+            time.sleep(0.1)
+    except KeyboardInterrupt:
+        print("launch: interrupted, stopping the graph", file=sys.stderr, flush=True)
+        status = EXIT_INTERRUPTED
+    finally:
+        graph.stop()
+        if stop_recorder is not None:
+            stop_recorder()
+    print(f"launch: all processes stopped after {time.monotonic() - started:.1f} s")
+    if recorder is not None:
+        path, metrics = recorder.write(out, wall_time=time.monotonic() - started)
+        print(f"launch: trial written to {path} (report in {path / 'report'})")
+        for key in ("generations", "final_cost", "settled"):
+            if key in metrics:
+                print(f"  {key}: {metrics[key]}")
+    return status

@@ -1,0 +1,19 @@
+"""The base-station process: the partition node and the reference gate in one executor.
+Candidates still travel between them as a topic, so the two nodes can equally run as
+separate processes (coverage_fleet_partition, coverage_fleet_gate)."""
+
+from __future__ import annotations
+
+import sys
+
+from .gate_node import GateNode
+from .partition_node import PartitionNode
+from .runtime import run_nodes
+
+
+def main() -> None:
+    sys.exit(run_nodes([PartitionNode, GateNode], "coverage_fleet_base_station"))
+
+
+if __name__ == "__main__":
+    main()

@@ -1,0 +1,223 @@
+"""Controller node, one per robot in the robot's namespace: the tracking MPC as a ROS node.
+
+Subscribes to its `odom` and its committed `coverage/target`; at every sample time it runs
+RobotController.step on the newest state and target and publishes the first input as
+`cmd_vel` (Twist, Accel or Wrench, as the vehicle file's command kind names), a progress
+report (`coverage/progress`, layout in conversions.py), the predicted plan (`coverage/plan`)
+and its health on /diagnostics.
+
+Timing: with `lockstep` false a timer fires every sample time (ROS clock, so use_sim_time
+is honoured) and the newest state is used; a state older than `state_timeout` is stale and
+the robot is sent its braking input. With `lockstep` true the node answers every state it
+receives (the simulator waits for the answer); it solves when a sample time has passed since
+its last solve and re-sends the held command otherwise (zero-order hold).
+"""
+
+from __future__ import annotations
+
+import time as wallclock
+
+import numpy as np
+from diagnostic_msgs.msg import DiagnosticArray, DiagnosticStatus
+from geometry_msgs.msg import PointStamped, Vector3Stamped
+from nav_msgs.msg import Odometry, Path
+from rclpy.node import Node
+
+from coverage_fleet.control.controller import RobotController
+from coverage_fleet.control.terminal import compute_terminal_ingredients
+from coverage_fleet.errors import ConfigError
+from coverage_fleet.fleet.mission import load_mission
+from coverage_fleet.vehicles.loader import load_vehicle_file
+
+from . import qos, topics
+from .conversions import (
+    ProgressValues,
+    command_message_type,
+    command_to_msg,
+    diagnostic_status,
+    odometry_from_msg,
+    plan_to_msg,
+    progress_to_msg,
+    stamp_to_seconds,
+    target_from_msg,
+)
+from .parameters import declare
+from .runtime import main_for
+
+SAME_TIME = 1e-6
+
+
+class ControllerNode(Node):
+    def __init__(self) -> None:
+        super().__init__("controller")
+        mission_file = declare(
+            self, "mission_file", "", "Mission file (YAML): region (geofence) and roster."
+        )
+        vehicle_file = declare(
+            self, "vehicle_file", "",
+            "Vehicle parameter file; empty = the one the mission's roster names for this robot.",
+        )
+        robot_name = declare(
+            self, "robot_name", "", "Robot name in the roster; empty = the node's namespace."
+        )
+        self.lockstep = declare(
+            self, "lockstep", False, "Answer every received state (lockstep simulation)."
+        )
+        self.state_timeout = declare(
+            self, "state_timeout", 1.0,
+            "Seconds (ROS clock) after which the newest odometry is stale and the robot brakes.",
+            (0.01, 600.0),
+        )
+        self.diagnostics_period = declare(
+            self, "diagnostics_period", 1.0, "Seconds between /diagnostics messages.",
+            (0.05, 600.0),
+        )
+        self.robot = robot_name or self.get_namespace().strip("/").split("/")[-1]
+        mission = load_mission(mission_file)
+        entry = next((e for e in mission.roster if e.name == self.robot), None)
+        if entry is None:
+            raise ConfigError.single(
+                str(mission.source), "roster",
+                f"no robot named {self.robot!r} (the controller's robot_name or namespace); "
+                f"the roster has {', '.join(mission.robot_names)}",
+            )
+        spec = load_vehicle_file(vehicle_file) if vehicle_file else entry.vehicle
+        self.spec = spec
+        self.model = spec.model
+        self.sample_time = float(spec.mpc.sample_time)
+        started = wallclock.perf_counter()
+        terminal = compute_terminal_ingredients(self.model, spec.mpc, spec.cache_key)
+        self.controller = RobotController(
+            self.model, spec.mpc, mission.region.halfspaces(), terminal
+        )
+        self.get_logger().info(
+            f"{self.robot}: {self.model.kind} from {spec.source}, sample time "
+            f"{self.sample_time:g} s, command {spec.command_kind}; MPC ready in "
+            f"{wallclock.perf_counter() - started:.1f} s"
+        )
+        self.state: np.ndarray | None = None
+        self.state_time = -np.inf
+        self.target: np.ndarray | None = None
+        self.generation_stamp_ns = 0
+        self.distance_at_commit: float | None = None
+        self.held_input: np.ndarray | None = None
+        self.last_solve_time = -np.inf
+        self.last_step = None
+        self.solver_failures = 0
+        self.steps = 0
+
+        self.cmd_pub = self.create_publisher(
+            command_message_type(spec.command_kind), topics.CMD_VEL, qos.COMMAND
+        )
+        self.progress_pub = self.create_publisher(Vector3Stamped, topics.PROGRESS, qos.REPORTS)
+        self.plan_pub = self.create_publisher(Path, topics.PLAN, qos.DISPLAY)
+        self.diag_pub = self.create_publisher(DiagnosticArray, topics.DIAGNOSTICS, qos.DISPLAY)
+        self.create_subscription(Odometry, topics.ODOM, self._on_odom, qos.STATE)
+        self.create_subscription(PointStamped, topics.TARGET, self._on_target, qos.LATCHED)
+        if not self.lockstep:
+            self.create_timer(self.sample_time, self._on_timer)
+        self.create_timer(self.diagnostics_period, self._publish_diagnostics)
+
+    # --- inputs -------------------------------------------------------------------------
+
+    def _on_odom(self, msg: Odometry) -> None:
+        self.state = np.asarray(self.model.state_from_odometry(odometry_from_msg(msg)), float)
+        self.state_time = stamp_to_seconds(msg.header.stamp)
+        if self.lockstep:
+            self._control(self.state_time)
+
+    def _on_target(self, msg: PointStamped) -> None:
+        target, stamp_ns = target_from_msg(msg)
+        if stamp_ns != self.generation_stamp_ns:
+            self.generation_stamp_ns = stamp_ns
+            self.distance_at_commit = None
+        self.target = target
+
+    def _on_timer(self) -> None:
+        now = self.get_clock().now().nanoseconds * 1e-9
+        self._control(now)
+
+    # --- control ------------------------------------------------------------------------
+
+    def _control(self, now: float) -> None:
+        if self.state is None:
+            return
+        x = self.state
+        position = self.model.position(x)
+        stale = not self.lockstep and now - self.state_time > self.state_timeout
+        if stale:
+            u = np.asarray(self.model.braking_input(x), float)
+            self.held_input = u
+        elif self.held_input is None or self.state_time - self.last_solve_time >= (
+            self.sample_time - SAME_TIME
+        ):
+            # Before the first target the robot holds its position.
+            target = self.target if self.target is not None else position
+            step = self.controller.step(x, target)
+            self.last_step = step
+            self.last_solve_time = self.state_time
+            self.held_input = np.asarray(step.input, float)
+            self.steps += 1
+            if not step.success:
+                self.solver_failures += 1
+            self._publish_plan(step)
+        self.cmd_pub.publish(command_to_msg(self.model.command_from_input(self.held_input, x)))
+        self._publish_progress(position)
+
+    def _publish_progress(self, position: np.ndarray) -> None:
+        if self.target is None:
+            report = ProgressValues(0, np.nan, np.nan, self.state_time)
+        else:
+            distance = float(np.linalg.norm(position - self.target))
+            if self.distance_at_commit is None:
+                self.distance_at_commit = distance
+            report = ProgressValues(
+                self.generation_stamp_ns, self.distance_at_commit, distance, self.state_time
+            )
+        self.progress_pub.publish(progress_to_msg(report))
+
+    def _publish_plan(self, step) -> None:
+        positions = np.asarray(step.plan_positions, float).reshape(-1, 2)
+        # Poses face along the path (the plan carries positions only).
+        heading = np.arctan2(*np.diff(positions, axis=0).T[::-1]) if len(positions) > 1 else []
+        yaws = [*heading, heading[-1]] if len(heading) else [0.0] * len(positions)
+        self.plan_pub.publish(plan_to_msg(positions, yaws, self.state_time, self.sample_time))
+
+    def _publish_diagnostics(self) -> None:
+        now = self.get_clock().now().nanoseconds * 1e-9
+        step = self.last_step
+        age = now - self.state_time if self.state is not None else float("inf")
+        if self.state is None:
+            level, message = DiagnosticStatus.STALE, "no odometry yet"
+        elif not self.lockstep and age > self.state_timeout:
+            level, message = DiagnosticStatus.ERROR, "odometry stale: braking"
+        elif step is not None and step.used_fallback:
+            level, message = DiagnosticStatus.WARN, f"solver: {step.status} ({step.fallback})"
+        else:
+            level, message = DiagnosticStatus.OK, "tracking"
+        values = {
+            "solve_time": f"{step.solve_time:.4f}" if step else "nan",
+            "status": step.status if step else "",
+            "iterations": step.iterations if step else "",
+            "fallback": step.fallback if step else "",
+            "state_age": f"{age:.3f}",
+            "solver_failures": self.solver_failures,
+            "solves": self.steps,
+            "generation_stamp": self.generation_stamp_ns,
+        }
+        array = DiagnosticArray()
+        array.header.stamp = self.get_clock().now().to_msg()
+        array.status = [
+            diagnostic_status(
+                f"coverage_fleet/{self.robot}/controller", self.robot, level, message, values
+            )
+        ]
+        self.diag_pub.publish(array)
+
+
+def main() -> None:
+    main_for(ControllerNode, "coverage_fleet_controller")
+
+
+if __name__ == "__main__":
+    main()

@@ -1,0 +1,428 @@
+"""Conversions between ROS messages and the plain values of the core (OdometryValues,
+CommandValues, numpy arrays). Every node goes through these functions and nothing else, so
+the message layouts documented here are the whole wire contract (README, "The ROS 2 graph").
+
+Layouts that standard types do not name by field:
+
+- progress report (`<ns>/coverage/progress`, geometry_msgs/Vector3Stamped):
+  header.stamp = stamp of the committed target it refers to (the stamp identifies the
+  generation; a zero stamp means "no target yet"), vector.x = distance to the target when
+  the robot received it (m), vector.y = distance now (m), vector.z = time (s, the clock of
+  the graph) of the odometry the distance was measured at (the lockstep acknowledgement).
+- candidate centroids (`coverage/candidates`, std_msgs/Float64MultiArray): rows of
+  CANDIDATE_COLUMNS; row 0 is [time of the states (s), coverage cost H, robots, 0, 0, 0],
+  then one row per live robot: [index in the mission roster, px, py, cx, cy, cell mass].
+- gate openings (`coverage/openings`, std_msgs/Float64MultiArray): one opening per message,
+  rows of OPENING_COLUMNS; row 0 is [generation, time (s), coverage cost H at the positions
+  the targets came from, reason, robots, 0] with reason 0 = start, 1 = progress, 2 = roster
+  change; then per robot [roster index, px, py, target x, target y, distance at commit].
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass
+
+import numpy as np
+from builtin_interfaces.msg import Time
+from diagnostic_msgs.msg import DiagnosticStatus, KeyValue
+from geometry_msgs.msg import (
+    Accel,
+    Point,
+    PointStamped,
+    Pose,
+    PoseStamped,
+    Quaternion,
+    Twist,
+    Vector3,
+    Vector3Stamped,
+    Wrench,
+)
+from nav_msgs.msg import Odometry, Path
+from std_msgs.msg import ColorRGBA, Float64MultiArray, Header, MultiArrayDimension
+from visualization_msgs.msg import Marker, MarkerArray
+
+from coverage_fleet.vehicles.base import CommandKind, CommandValues, OdometryValues
+
+from .topics import MAP_FRAME
+
+CANDIDATE_COLUMNS = ("roster_index", "px", "py", "cx", "cy", "mass")
+OPENING_COLUMNS = ("roster_index", "px", "py", "tx", "ty", "distance")
+OPENING_REASONS = ("start", "progress", "roster")
+
+# --- time ---------------------------------------------------------------------------------
+
+
+def seconds_to_stamp(seconds: float) -> Time:
+    nanoseconds = round(seconds * 1e9)
+    return nanoseconds_to_stamp(nanoseconds)
+
+
+def nanoseconds_to_stamp(nanoseconds: int) -> Time:
+    sec, nanosec = divmod(int(nanoseconds), 1_000_000_000)
+    return Time(sec=sec, nanosec=nanosec)
+
+
+def stamp_to_nanoseconds(stamp: Time) -> int:
+    return int(stamp.sec) * 1_000_000_000 + int(stamp.nanosec)
+
+
+def stamp_to_seconds(stamp: Time) -> float:
+    return stamp_to_nanoseconds(stamp) * 1e-9
+
+
+# --- orientation --------------------------------------------------------------------------
+
+
+def yaw_to_quaternion(yaw: float) -> Quaternion:
+    """Rotation about z by yaw (REP 103: counter-clockwise positive)."""
+    return Quaternion(x=0.0, y=0.0, z=math.sin(yaw / 2.0), w=math.cos(yaw / 2.0))
+
+
+def quaternion_to_yaw(q: Quaternion) -> float:
+    """Yaw of a quaternion (the z-y-x Euler angle; roll and pitch are dropped)."""
+    return math.atan2(2.0 * (q.w * q.z + q.x * q.y), 1.0 - 2.0 * (q.y * q.y + q.z * q.z))
+
+
+# --- odometry -----------------------------------------------------------------------------
+
+
+def odometry_to_msg(
+    values: OdometryValues, stamp: Time, child_frame_id: str, frame_id: str = MAP_FRAME
+) -> Odometry:
+    """nav_msgs/Odometry: pose in `frame_id`, twist in the body frame (REP 105)."""
+    msg = Odometry()
+    msg.header = Header(stamp=stamp, frame_id=frame_id)
+    msg.child_frame_id = child_frame_id
+    msg.pose.pose.position = Point(x=float(values.x), y=float(values.y), z=0.0)
+    msg.pose.pose.orientation = yaw_to_quaternion(float(values.yaw))
+    msg.twist.twist.linear = Vector3(x=float(values.body_vx), y=float(values.body_vy), z=0.0)
+    msg.twist.twist.angular = Vector3(x=0.0, y=0.0, z=float(values.yaw_rate))
+    return msg
+
+
+def odometry_from_msg(msg: Odometry) -> OdometryValues:
+    pose = msg.pose.pose
+    twist = msg.twist.twist
+    return OdometryValues(
+        x=float(pose.position.x),
+        y=float(pose.position.y),
+        yaw=quaternion_to_yaw(pose.orientation),
+        body_vx=float(twist.linear.x),
+        body_vy=float(twist.linear.y),
+        yaw_rate=float(twist.angular.z),
+    )
+
+
+# --- commands -----------------------------------------------------------------------------
+
+_COMMAND_TYPES: dict[str, type] = {"twist": Twist, "accel": Accel, "wrench": Wrench}
+
+
+def command_message_type(kind: CommandKind) -> type:
+    """geometry_msgs type of a command kind (twist -> Twist, accel -> Accel, wrench ->
+    Wrench)."""
+    try:
+        return _COMMAND_TYPES[kind]
+    except KeyError:
+        raise ValueError(
+            f"unknown command kind {kind!r}; expected one of {sorted(_COMMAND_TYPES)}"
+        ) from None
+
+
+def _vector(values: Sequence[float]) -> Vector3:
+    return Vector3(x=float(values[0]), y=float(values[1]), z=float(values[2]))
+
+
+def _triple(v: Vector3) -> tuple[float, float, float]:
+    return (float(v.x), float(v.y), float(v.z))
+
+
+def command_to_msg(command: CommandValues) -> Twist | Accel | Wrench:
+    msg = command_message_type(command.kind)()
+    if command.kind == "wrench":
+        msg.force = _vector(command.linear)
+        msg.torque = _vector(command.angular)
+    else:
+        msg.linear = _vector(command.linear)
+        msg.angular = _vector(command.angular)
+    return msg
+
+
+def command_from_msg(msg: Twist | Accel | Wrench, kind: CommandKind) -> CommandValues:
+    if not isinstance(msg, command_message_type(kind)):
+        raise ValueError(f"a {kind} command needs a {command_message_type(kind).__name__}")
+    if kind == "wrench":
+        return CommandValues(kind=kind, linear=_triple(msg.force), angular=_triple(msg.torque))
+    return CommandValues(kind=kind, linear=_triple(msg.linear), angular=_triple(msg.angular))
+
+
+# --- targets and progress -----------------------------------------------------------------
+
+
+def target_to_msg(target_xy: Sequence[float], stamp: Time) -> PointStamped:
+    """Committed target: the stamp identifies the generation."""
+    msg = PointStamped()
+    msg.header = Header(stamp=stamp, frame_id=MAP_FRAME)
+    msg.point = Point(x=float(target_xy[0]), y=float(target_xy[1]), z=0.0)
+    return msg
+
+
+def target_from_msg(msg: PointStamped) -> tuple[np.ndarray, int]:
+    """(target xy, generation stamp in nanoseconds)."""
+    return np.array([msg.point.x, msg.point.y], dtype=float), stamp_to_nanoseconds(
+        msg.header.stamp
+    )
+
+
+@dataclass(frozen=True)
+class ProgressValues:
+    """A progress report as plain values (layout in the module docstring)."""
+
+    generation_stamp_ns: int
+    distance_at_commit: float
+    distance_now: float
+    state_time: float
+
+
+def progress_to_msg(values: ProgressValues) -> Vector3Stamped:
+    msg = Vector3Stamped()
+    msg.header = Header(
+        stamp=nanoseconds_to_stamp(values.generation_stamp_ns), frame_id=MAP_FRAME
+    )
+    msg.vector = Vector3(
+        x=float(values.distance_at_commit),
+        y=float(values.distance_now),
+        z=float(values.state_time),
+    )
+    return msg
+
+
+def progress_from_msg(msg: Vector3Stamped) -> ProgressValues:
+    return ProgressValues(
+        generation_stamp_ns=stamp_to_nanoseconds(msg.header.stamp),
+        distance_at_commit=float(msg.vector.x),
+        distance_now=float(msg.vector.y),
+        state_time=float(msg.vector.z),
+    )
+
+
+# --- candidate centroids ------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class CandidateValues:
+    """The partition at one instant: per live robot (by roster index) its position, its
+    cell's centroid and mass, and the coverage cost H of the whole configuration."""
+
+    time: float
+    cost: float
+    positions: dict[int, np.ndarray]
+    centroids: dict[int, np.ndarray]
+    masses: dict[int, float]
+
+
+def _table(rows: np.ndarray, columns: Sequence[str]) -> Float64MultiArray:
+    msg = Float64MultiArray()
+    n_rows, n_cols = rows.shape
+    msg.layout.dim = [
+        MultiArrayDimension(label="rows", size=n_rows, stride=n_rows * n_cols),
+        MultiArrayDimension(label=",".join(columns), size=n_cols, stride=n_cols),
+    ]
+    msg.layout.data_offset = 0
+    msg.data = [float(v) for v in rows.ravel()]
+    return msg
+
+
+def _rows(msg: Float64MultiArray, columns: Sequence[str]) -> np.ndarray:
+    dims = msg.layout.dim
+    if len(dims) != 2 or dims[1].size != len(columns) or dims[1].label != ",".join(columns):
+        raise ValueError(f"expected a table with columns {','.join(columns)}")
+    data = np.asarray(msg.data, dtype=float)[msg.layout.data_offset :]
+    if data.size != dims[0].size * dims[1].size:
+        raise ValueError("table data does not match its layout")
+    return data.reshape(dims[0].size, dims[1].size)
+
+
+def candidates_to_msg(values: CandidateValues) -> Float64MultiArray:
+    indices = sorted(values.positions)
+    rows = np.zeros((len(indices) + 1, len(CANDIDATE_COLUMNS)))
+    rows[0, :3] = (values.time, values.cost, len(indices))
+    for row, index in enumerate(indices, start=1):
+        rows[row] = (
+            index,
+            *values.positions[index],
+            *values.centroids[index],
+            values.masses[index],
+        )
+    return _table(rows, CANDIDATE_COLUMNS)
+
+
+def candidates_from_msg(msg: Float64MultiArray) -> CandidateValues:
+    rows = _rows(msg, CANDIDATE_COLUMNS)
+    if rows.shape[0] < 1 or int(rows[0, 2]) != rows.shape[0] - 1:
+        raise ValueError("candidate table: the robot count in row 0 does not match the rows")
+    body = rows[1:]
+    indices = [int(i) for i in body[:, 0]]
+    return CandidateValues(
+        time=float(rows[0, 0]),
+        cost=float(rows[0, 1]),
+        positions={i: body[k, 1:3].copy() for k, i in enumerate(indices)},
+        centroids={i: body[k, 3:5].copy() for k, i in enumerate(indices)},
+        masses={i: float(body[k, 5]) for k, i in enumerate(indices)},
+    )
+
+
+# --- gate openings ------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class OpeningValues:
+    """One gate opening: the generation it started, when, why, the cost H at the positions
+    the targets came from, and per robot (roster index) position, target and distance."""
+
+    generation: int
+    time: float
+    cost: float
+    reason: str
+    positions: dict[int, np.ndarray]
+    targets: dict[int, np.ndarray]
+    distances: dict[int, float]
+
+
+def opening_to_msg(values: OpeningValues) -> Float64MultiArray:
+    indices = sorted(values.targets)
+    rows = np.zeros((len(indices) + 1, len(OPENING_COLUMNS)))
+    rows[0, :5] = (
+        values.generation,
+        values.time,
+        values.cost,
+        OPENING_REASONS.index(values.reason),
+        len(indices),
+    )
+    for row, index in enumerate(indices, start=1):
+        rows[row] = (
+            index,
+            *values.positions[index],
+            *values.targets[index],
+            values.distances[index],
+        )
+    return _table(rows, OPENING_COLUMNS)
+
+
+def opening_from_msg(msg: Float64MultiArray) -> OpeningValues:
+    rows = _rows(msg, OPENING_COLUMNS)
+    if rows.shape[0] < 1 or int(rows[0, 4]) != rows.shape[0] - 1:
+        raise ValueError("opening table: the robot count in row 0 does not match the rows")
+    body = rows[1:]
+    indices = [int(i) for i in body[:, 0]]
+    return OpeningValues(
+        generation=int(rows[0, 0]),
+        time=float(rows[0, 1]),
+        cost=float(rows[0, 2]),
+        reason=OPENING_REASONS[int(rows[0, 3])],
+        positions={i: body[k, 1:3].copy() for k, i in enumerate(indices)},
+        targets={i: body[k, 3:5].copy() for k, i in enumerate(indices)},
+        distances={i: float(body[k, 5]) for k, i in enumerate(indices)},
+    )
+
+
+# --- plan, markers, diagnostics -----------------------------------------------------------
+
+
+def plan_to_msg(
+    positions: np.ndarray, yaws: Sequence[float], start: float, sample_time: float
+) -> Path:
+    """Predicted positions over the horizon; pose k is stamped start + k * sample_time."""
+    msg = Path()
+    msg.header = Header(stamp=seconds_to_stamp(start), frame_id=MAP_FRAME)
+    for k, (xy, yaw) in enumerate(zip(np.asarray(positions, float), yaws, strict=True)):
+        pose = PoseStamped()
+        pose.header = Header(stamp=seconds_to_stamp(start + k * sample_time), frame_id=MAP_FRAME)
+        pose.pose = Pose(
+            position=Point(x=float(xy[0]), y=float(xy[1]), z=0.0),
+            orientation=yaw_to_quaternion(float(yaw)),
+        )
+        msg.poses.append(pose)
+    return msg
+
+
+def plan_positions(msg: Path) -> np.ndarray:
+    return np.array([[p.pose.position.x, p.pose.position.y] for p in msg.poses], dtype=float)
+
+
+# Marker colours: our own palette, one hue per robot, cycling.
+_PALETTE = (
+    (0.18, 0.55, 0.34),
+    (0.85, 0.47, 0.10),
+    (0.26, 0.42, 0.78),
+    (0.70, 0.25, 0.55),
+    (0.55, 0.55, 0.12),
+    (0.15, 0.62, 0.68),
+)
+
+
+def _colour(index: int, alpha: float = 1.0) -> ColorRGBA:
+    r, g, b = _PALETTE[index % len(_PALETTE)]
+    return ColorRGBA(r=r, g=g, b=b, a=alpha)
+
+
+def partition_markers(
+    stamp: Time,
+    names: Mapping[int, str],
+    cells: Mapping[int, np.ndarray],
+    centroids: Mapping[int, np.ndarray],
+    targets: Mapping[int, np.ndarray],
+) -> MarkerArray:
+    """RViz markers: a closed outline per cell (namespace `cells`), a sphere per candidate
+    centroid (`centroids`), a cylinder per committed target (`targets`), a label per robot
+    (`labels`). A DELETEALL first clears robots that left."""
+    header = Header(stamp=stamp, frame_id=MAP_FRAME)
+    markers = [Marker(header=header, action=Marker.DELETEALL)]
+    for index, name in sorted(names.items()):
+        if index in cells:
+            outline = Marker(header=header, ns="cells", id=index, type=Marker.LINE_STRIP)
+            outline.scale.x = 0.05
+            outline.color = _colour(index)
+            outline.pose.orientation.w = 1.0
+            ring = np.vstack([cells[index], cells[index][:1]])
+            outline.points = [Point(x=float(x), y=float(y), z=0.0) for x, y in ring]
+            markers.append(outline)
+        if index in centroids:
+            dot = Marker(header=header, ns="centroids", id=index, type=Marker.SPHERE)
+            dot.pose.position = Point(x=float(centroids[index][0]), y=float(centroids[index][1]))
+            dot.pose.orientation.w = 1.0
+            dot.scale = Vector3(x=0.25, y=0.25, z=0.25)
+            dot.color = _colour(index, 0.6)
+            markers.append(dot)
+            label = Marker(header=header, ns="labels", id=index, type=Marker.TEXT_VIEW_FACING)
+            label.pose.position = Point(
+                x=float(centroids[index][0]), y=float(centroids[index][1]), z=0.5
+            )
+            label.pose.orientation.w = 1.0
+            label.scale.z = 0.4
+            label.color = _colour(index)
+            label.text = name
+            markers.append(label)
+        if index in targets:
+            post = Marker(header=header, ns="targets", id=index, type=Marker.CYLINDER)
+            post.pose.position = Point(x=float(targets[index][0]), y=float(targets[index][1]))
+            post.pose.orientation.w = 1.0
+            post.scale = Vector3(x=0.15, y=0.15, z=0.6)
+            post.color = _colour(index)
+            markers.append(post)
+    return MarkerArray(markers=markers)
+
+
+def diagnostic_status(
+    name: str, hardware_id: str, level: bytes, message: str, values: Mapping[str, object]
+) -> DiagnosticStatus:
+    """One diagnostic_msgs/DiagnosticStatus; level is DiagnosticStatus.OK/WARN/ERROR/STALE."""
+    return DiagnosticStatus(
+        level=level,
+        name=name,
+        message=message,
+        hardware_id=hardware_id,
+        values=[KeyValue(key=k, value=str(v)) for k, v in values.items()],
+    )

@@ -1,0 +1,160 @@
+"""Message conversions (coverage_fleet/ros/conversions.py): the wire layouts round-trip
+and orientation follows the standard quaternion convention (checked against scipy's
+Rotation, the general-purpose reference)."""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+
+pytest.importorskip("rclpy", reason="ROS 2 wheels not installed (scripts/setup_env.sh)")
+
+from geometry_msgs.msg import Accel, Twist, Wrench
+from scipy.spatial.transform import Rotation
+
+from coverage_fleet.ros import conversions as cv
+from coverage_fleet.vehicles.base import CommandValues, OdometryValues
+
+
+@pytest.mark.parametrize("yaw", [-3.0, -1.2, 0.0, 0.4, math.pi / 2, 3.1])
+def test_yaw_quaternion_matches_scipy(yaw: float) -> None:
+    q = cv.yaw_to_quaternion(yaw)
+    # scipy's as_quat is scalar-last (x, y, z, w), the ROS order.
+    expected = Rotation.from_euler("z", yaw).as_quat()
+    assert np.allclose([q.x, q.y, q.z, q.w], expected, atol=1e-12)
+    assert cv.quaternion_to_yaw(q) == pytest.approx(yaw, abs=1e-12)
+
+
+def test_yaw_of_a_tilted_quaternion_is_the_zyx_euler_angle() -> None:
+    rot = Rotation.from_euler("ZYX", [0.7, 0.2, -0.1])
+    x, y, z, w = rot.as_quat()
+    q = cv.Quaternion(x=x, y=y, z=z, w=w)
+    assert cv.quaternion_to_yaw(q) == pytest.approx(0.7, abs=1e-12)
+
+
+def test_stamp_round_trip_keeps_nanoseconds() -> None:
+    stamp = cv.seconds_to_stamp(12.3456789)
+    assert (stamp.sec, stamp.nanosec) == (12, 345678900)
+    assert cv.stamp_to_nanoseconds(stamp) == 12_345_678_900
+    assert cv.stamp_to_seconds(cv.nanoseconds_to_stamp(7)) == pytest.approx(7e-9)
+
+
+def test_odometry_round_trip_in_map_frame() -> None:
+    values = OdometryValues(x=1.5, y=-2.0, yaw=2.5, body_vx=0.8, body_vy=-0.1, yaw_rate=0.3)
+    msg = cv.odometry_to_msg(values, cv.seconds_to_stamp(4.0), child_frame_id="r1/base_link")
+    assert msg.header.frame_id == "map"
+    assert msg.child_frame_id == "r1/base_link"
+    back = cv.odometry_from_msg(msg)
+    for field in ("x", "y", "yaw", "body_vx", "body_vy", "yaw_rate"):
+        assert getattr(back, field) == pytest.approx(getattr(values, field), abs=1e-12)
+
+
+@pytest.mark.parametrize(
+    ("kind", "message_type"), [("twist", Twist), ("accel", Accel), ("wrench", Wrench)]
+)
+def test_command_kinds_map_to_their_geometry_msgs_type(kind, message_type) -> None:
+    command = CommandValues(kind=kind, linear=(1.0, -2.0, 0.0), angular=(0.0, 0.0, 0.5))
+    msg = cv.command_to_msg(command)
+    assert type(msg) is message_type
+    assert cv.command_from_msg(msg, kind) == command
+
+
+def test_wrench_uses_force_and_torque_fields() -> None:
+    msg = cv.command_to_msg(CommandValues("wrench", (3.0, 0.0, 0.0), (0.0, 0.0, -1.0)))
+    assert (msg.force.x, msg.torque.z) == (3.0, -1.0)
+
+
+def test_command_of_the_wrong_type_is_refused_with_a_clear_message() -> None:
+    with pytest.raises(ValueError, match="needs a Accel"):
+        cv.command_from_msg(Twist(), "accel")
+    with pytest.raises(ValueError, match="unknown command kind"):
+        cv.command_message_type("thrust")
+
+
+def test_target_stamp_identifies_the_generation() -> None:
+    msg = cv.target_to_msg([3.0, 4.0], cv.nanoseconds_to_stamp(5_000_000_123))
+    xy, stamp_ns = cv.target_from_msg(msg)
+    assert np.allclose(xy, [3.0, 4.0])
+    assert stamp_ns == 5_000_000_123
+    assert msg.header.frame_id == "map"
+
+
+def test_progress_layout() -> None:
+    values = cv.ProgressValues(42, 3.5, 1.25, 17.2)
+    msg = cv.progress_to_msg(values)
+    assert cv.stamp_to_nanoseconds(msg.header.stamp) == 42
+    assert (msg.vector.x, msg.vector.y, msg.vector.z) == (3.5, 1.25, 17.2)
+    assert cv.progress_from_msg(msg) == values
+
+
+def test_candidate_table_round_trip() -> None:
+    values = cv.CandidateValues(
+        time=2.5,
+        cost=11.0,
+        positions={0: np.array([1.0, 2.0]), 3: np.array([5.0, 6.0])},
+        centroids={0: np.array([1.5, 2.5]), 3: np.array([4.0, 6.5])},
+        masses={0: 10.0, 3: 20.0},
+    )
+    msg = cv.candidates_to_msg(values)
+    assert [d.label for d in msg.layout.dim] == ["rows", "roster_index,px,py,cx,cy,mass"]
+    assert len(msg.data) == 3 * 6
+    back = cv.candidates_from_msg(msg)
+    assert (back.time, back.cost) == (2.5, 11.0)
+    assert sorted(back.positions) == [0, 3]
+    assert np.allclose(back.centroids[3], [4.0, 6.5])
+    assert back.masses == {0: 10.0, 3: 20.0}
+
+
+def test_a_table_that_does_not_match_its_layout_is_refused() -> None:
+    msg = cv.candidates_to_msg(
+        cv.CandidateValues(0.0, 1.0, {0: np.zeros(2)}, {0: np.zeros(2)}, {0: 1.0})
+    )
+    msg.data = list(msg.data)[:-1]
+    with pytest.raises(ValueError, match="does not match"):
+        cv.candidates_from_msg(msg)
+
+
+def test_opening_table_round_trip() -> None:
+    values = cv.OpeningValues(
+        generation=4,
+        time=9.0,
+        cost=3.25,
+        reason="progress",
+        positions={1: np.array([0.0, 1.0])},
+        targets={1: np.array([2.0, 3.0])},
+        distances={1: 2.83},
+    )
+    back = cv.opening_from_msg(cv.opening_to_msg(values))
+    assert (back.generation, back.time, back.cost, back.reason) == (4, 9.0, 3.25, "progress")
+    assert np.allclose(back.targets[1], [2.0, 3.0])
+    assert back.distances == {1: 2.83}
+
+
+def test_plan_poses_are_stamped_per_sample() -> None:
+    positions = np.array([[0.0, 0.0], [0.1, 0.0], [0.2, 0.05]])
+    msg = cv.plan_to_msg(positions, [0.0, 0.1, 0.2], start=10.0, sample_time=0.1)
+    assert np.allclose(cv.plan_positions(msg), positions)
+    assert [cv.stamp_to_seconds(p.header.stamp) for p in msg.poses] == pytest.approx(
+        [10.0, 10.1, 10.2]
+    )
+
+
+def test_partition_markers_draw_closed_cells_and_label_robots() -> None:
+    square = np.array([[0.0, 0.0], [1.0, 0.0], [1.0, 1.0], [0.0, 1.0]])
+    markers = cv.partition_markers(
+        cv.seconds_to_stamp(1.0),
+        {0: "rover_a"},
+        {0: square},
+        {0: np.array([0.5, 0.5])},
+        {0: np.array([0.4, 0.4])},
+    ).markers
+    assert markers[0].action == markers[0].DELETEALL
+    outline = next(m for m in markers if m.ns == "cells")
+    assert len(outline.points) == 5
+    first, last = outline.points[0], outline.points[-1]
+    assert (first.x, first.y) == (last.x, last.y)
+    assert next(m for m in markers if m.ns == "labels").text == "rover_a"
+    assert {m.ns for m in markers[1:]} == {"cells", "centroids", "labels", "targets"}
+    assert all(m.header.frame_id == "map" for m in markers)
