@@ -12,7 +12,12 @@ from hypothesis import strategies as st
 from scipy.spatial import ConvexHull, Voronoi
 
 from coverage_fleet.geometry.cost import coverage_cost
-from coverage_fleet.geometry.density import GaussianBump, GaussianBumpsDensity, UniformDensity
+from coverage_fleet.geometry.density import (
+    GaussianBump,
+    GaussianBumpsDensity,
+    RasterDensity,
+    UniformDensity,
+)
 from coverage_fleet.geometry.partition import compute_partition, voronoi_cells
 from coverage_fleet.geometry.region import ConvexRegion
 
@@ -49,6 +54,14 @@ def test_cells_match_shapely_voronoi_polygons_clipped(seed) -> None:
         # Same set: the symmetric difference has (numerically) no area.
         assert ours.symmetric_difference(reference, grid_size=1e-12).area < 1e-9 * region.area
         assert ours.area == pytest.approx(reference.area, rel=1e-9, abs=1e-12)
+    # Masses and centroids (uniform density) match shapely's area and centroid per cell.
+    result = compute_partition(points, region, UNIFORM)
+    for cell, mass, centroid in zip(result.cells, result.masses, result.centroids,
+                                    strict=True):
+        reference = shapely.Polygon(cell)
+        assert mass == pytest.approx(reference.area, rel=1e-9)
+        np.testing.assert_allclose(centroid, [reference.centroid.x, reference.centroid.y],
+                                   atol=1e-9)
 
 
 @pytest.mark.parametrize("seed", range(4))
@@ -228,3 +241,37 @@ def test_cells_tile_the_region(point_list) -> None:
         assert square.covers(polygon)
         for other in polygons[i + 1:]:
             assert polygon.intersection(other, grid_size=1e-12).area < 1e-12
+
+
+def test_far_from_the_map_origin() -> None:
+    """UTM-like coordinates (500 km east, 4000 km north): the quarter-square cost 1/24 and
+    the centres survive, since clipping and moments work relative to each agent."""
+    shift = np.array([500_000.0, 4_000_000.0])
+    region = ConvexRegion.from_vertices(UNIT_SQUARE.vertices + shift)
+    centres = np.array([[0.25, 0.25], [0.75, 0.25], [0.25, 0.75], [0.75, 0.75]]) + shift
+    result = compute_partition(centres, region, UNIFORM)
+    assert result.cost == pytest.approx(1 / 24, rel=1e-9)
+    np.testing.assert_allclose(result.centroids - shift, centres - shift, atol=1e-9)
+
+
+RASTER = RasterDensity(np.random.default_rng(12).uniform(0, 2, size=(20, 25)),
+                       origin=[-0.1, -0.05], resolution=0.05)
+BUMPS = GaussianBumpsDensity(
+    [GaussianBump(1.0, np.array([0.3, 0.6]), np.array([[0.01, 0.004], [0.004, 0.02]])),
+     GaussianBump(0.4, np.array([0.9, 0.1]), np.eye(2) * 0.003)], background=0.02)
+
+
+@settings(max_examples=40, deadline=None)
+@given(points_strategy, st.sampled_from(["raster", "bumps"]))
+def test_masses_sum_to_the_density_mass_in_the_region(point_list, kind) -> None:
+    """Partition property for non-uniform densities: cell masses add up to the density's
+    mass in the region (exact raster integration; bump quadrature to 1e-9), and every
+    centroid lies inside its own cell (a convex cell contains its mass centroid)."""
+    density = RASTER if kind == "raster" else BUMPS
+    points = np.array(point_list, dtype=float)
+    result = compute_partition(points, UNIT_SQUARE, density)
+    assert result.masses.sum() == pytest.approx(density.mass_in(UNIT_SQUARE), rel=1e-9)
+    for cell, mass, centroid in zip(result.cells, result.masses, result.centroids,
+                                    strict=True):
+        if mass > 0:
+            assert shapely.Polygon(cell).buffer(1e-9).covers(shapely.Point(centroid))

@@ -91,13 +91,36 @@ class UniformDensity(Density):
         return np.full(len(np.atleast_2d(points)), self.value)
 
     def moments(self, polygons: Sequence[np.ndarray], about: np.ndarray) -> CellMoments:
+        """Closed-form polygon moments (polygon.uniform_moments), all polygons at once."""
         about = _as_about(about, len(polygons))
-        mass = np.zeros(len(polygons))
-        first = np.zeros((len(polygons), 2))
-        polar = np.zeros(len(polygons))
-        for i, polygon in enumerate(polygons):
-            mass[i], first[i], polar[i] = uniform_moments(polygon, about[i])
-        return CellMoments(self.value * mass, self.value * first, self.value * polar)
+        count = len(polygons)
+        mass = np.zeros(count)
+        first = np.zeros((count, 2))
+        polar = np.zeros(count)
+        used = np.array([i for i, p in enumerate(polygons) if len(p) >= 3], dtype=np.int64)
+        if len(used) == 0:
+            return CellMoments(mass, first, polar)
+        lengths = np.array([len(polygons[i]) for i in used])
+        stop = np.cumsum(lengths)
+        start = stop - lengths
+        following = np.arange(stop[-1]) + 1
+        following[stop - 1] = start
+        local = np.concatenate([polygons[i] for i in used]) - np.repeat(about[used], lengths,
+                                                                         axis=0)
+        x, y = local[:, 0], local[:, 1]
+        xn, yn = x[following], y[following]
+        cross = x * yn - xn * y
+        terms = np.stack([
+            0.5 * cross,
+            (x + xn) * cross / 6.0,
+            (y + yn) * cross / 6.0,
+            (x * x + x * xn + xn * xn + y * y + y * yn + yn * yn) * cross / 12.0,
+        ])
+        sums = np.add.reduceat(terms, start, axis=1) * self.value
+        mass[used] = sums[0]
+        first[used] = sums[1:3].T
+        polar[used] = sums[3]
+        return CellMoments(mass, first, polar)
 
 
 @dataclass(frozen=True)
@@ -330,46 +353,49 @@ class RasterDensity(Density):
         middle = a[edge_of, 1] + middle_f * delta[edge_of, 1]
         u_mid = a[edge_of, 0] + middle_f * delta[edge_of, 0]
         row = np.floor(middle).astype(np.int64)
-        keep = (thick != 0.0) & (row >= 0) & (row < rows) & (u_mid > 0.0)
-        thick, middle, u_mid, row, edge_of = (
-            x[keep] for x in (thick, middle, u_mid, row, edge_of))
-        slope = delta[edge_of, 0] / delta[edge_of, 1]  # du/dv along the piece
+        # Pieces outside the grid's rows add nothing; west of it F = 0, east of it F is the
+        # row's total and does not change along the piece (slope 0 there).
+        thick[(row < 0) | (row >= rows)] = 0.0
+        np.clip(row, 0, rows - 1, out=row)
+        clamped = (u_mid <= 0.0) | (u_mid >= cols)
+        k = np.where(clamped, 0.0, delta[edge_of, 0] / delta[edge_of, 1])  # du/dv
+        np.clip(u_mid, 0.0, cols, out=u_mid)
+        c = np.minimum(np.floor(u_mid), cols - 1)
+        at = row * cols + c.astype(np.int64)
 
         prefix_mass, prefix_x, prefix_xx, cell_value = grid.table
         spread = thick * thick / 12.0  # variance of v along the piece
         mean_vv = middle * middle + spread
-        east = u_mid > cols  # beyond the east edge F stays at the row total
-        u_mid = np.minimum(u_mid, cols)
-        k = np.where(east, 0.0, slope)
-        c = np.minimum(np.floor(u_mid), cols - 1)
-        at = row * cols + c.astype(np.int64)
-        phi = cell_value.take(at)
-        p_mass = prefix_mass.take(at)
-        # Means over the piece of u^2, u^3, u v, u v^2 (u linear in v, v uniform).
-        mean_uu = u_mid * u_mid + k * k * spread
-        mean_uuu = u_mid**3 + 3.0 * u_mid * k * k * spread
-        mean_uv = u_mid * middle + k * spread
-        mean_uvv = u_mid * mean_vv + 2.0 * k * middle * spread
-        totals = (
-            thick * (p_mass + phi * (u_mid - c)),
-            thick * (prefix_x.take(at) + 0.5 * phi * (mean_uu - c * c)),
-            thick * (prefix_xx.take(at) + phi * (mean_uuu - c**3) / 3.0),
-            thick * (p_mass * middle + phi * (mean_uv - c * middle)),
-            thick * (p_mass * mean_vv + phi * (mean_uvv - c * mean_vv)),
-        )
-        cell_owner = edge_owner[edge_of]
-        row_mass = h**2 * totals[0]
-        row_sx = h**3 * totals[1]
-        row_sxx = h**4 * totals[2]
-        row_sy = h**3 * totals[3]
-        row_syy = h**4 * totals[4]
+        k_spread = k * spread
+        kk_spread = k * k_spread
+        offset = u_mid - c
+        t_prefix = thick * prefix_mass.take(at)
+        t_phi = thick * cell_value.take(at)
+        # Means over the piece of u^2 - c^2, u^3 - c^3, (u - c) v, (u - c) v^2 with u
+        # linear in v and v uniform along the piece.
+        totals = np.stack([
+            t_prefix + t_phi * offset,
+            thick * prefix_x.take(at) + (0.5 * t_phi) * (offset * (u_mid + c) + kk_spread),
+            thick * prefix_xx.take(at) + (t_phi / 3.0) * (
+                offset * (u_mid * u_mid + u_mid * c + c * c) + 3.0 * u_mid * kk_spread),
+            t_prefix * middle + t_phi * (offset * middle + k_spread),
+            t_prefix * mean_vv + t_phi * (offset * mean_vv + 2.0 * middle * k_spread),
+        ]) * np.array([h**2, h**3, h**4, h**3, h**4])[:, None]
 
-        def per_cell(values: np.ndarray) -> np.ndarray:
-            return np.bincount(cell_owner, weights=values, minlength=count)
-
-        mass = per_cell(row_mass)
-        sx, sy = per_cell(row_sx), per_cell(row_sy)
-        second = per_cell(row_sxx) + per_cell(row_syy)
+        # Pieces come grouped by edge and edges by polygon: sum each polygon's run.
+        piece_owner = edge_owner[edge_of]
+        who = np.asarray(used)
+        first_piece = np.searchsorted(piece_owner, who)
+        has_pieces = np.zeros(len(used), dtype=bool)
+        has_pieces[:-1] = first_piece[1:] > first_piece[:-1]
+        has_pieces[-1] = first_piece[-1] < len(piece_owner)
+        sums = np.zeros((5, count))
+        if len(piece_owner):
+            runs = np.add.reduceat(totals, np.minimum(first_piece, len(piece_owner) - 1),
+                                   axis=1)
+            sums[:, who[has_pieces]] = runs[:, has_pieces]
+        mass, sx, sxx, sy, syy = sums
+        second = sxx + syy
         a = about - grid.origin  # about, in the grid's local metres
         first = np.column_stack([sx - a[:, 0] * mass, sy - a[:, 1] * mass])
         polar = second - 2.0 * (a[:, 0] * sx + a[:, 1] * sy) + (a * a).sum(axis=1) * mass

@@ -103,30 +103,31 @@ def _neighbour_table(points: np.ndarray) -> np.ndarray:
     return np.take_along_axis(table, np.argsort(distance, axis=1, kind="stable"), axis=1)
 
 
-def _clip_batch(polygons: np.ndarray, counts: np.ndarray, side: np.ndarray
-                ) -> tuple[np.ndarray, np.ndarray]:
-    """Clip polygon i (first counts[i] rows of polygons[i], CCW) to where its signed
-    distance `side` is <= 0: Sutherland-Hodgman for a batch of cells at once, so the cost is
-    a fixed number of array operations per neighbour rank rather than per cell. The width
-    must leave room for one more vertex (a convex polygon cut by a line gains at most one)."""
+def _clip_batch(polygons: np.ndarray, counts: np.ndarray, side: np.ndarray) -> None:
+    """In place: clip polygon i to where its signed distance `side` is <= 0, for a batch
+    of cells at once (Sutherland-Hodgman), so the cost is a fixed number of array
+    operations per neighbour rank rather than per cell.
+
+    Polygons are stored closed: polygons[i, counts[i]] repeats polygons[i, 0], so every
+    edge s -> s + 1 is a plain slice. The width must leave room for one more vertex plus
+    the closing copy (a convex polygon cut by a line gains at most one vertex)."""
     n, width, _ = polygons.shape
-    slot = np.arange(width)
-    valid = slot[None, :] < counts[:, None]
-    inside = side <= 0.0
-    following = np.where(slot[None, :] + 1 < counts[:, None], slot[None, :] + 1, 0)
-    rows = np.arange(n)[:, None]
-    crossing = valid & (inside != inside[rows, following])
-    side_next = side[rows, following]
-    with np.errstate(divide="ignore", invalid="ignore"):
-        t = np.where(crossing, side / (side - side_next), 0.0)
-    cut = polygons + t[..., None] * (polygons[rows, following] - polygons)
+    edge = np.arange(width - 1)[None, :] < counts[:, None]
+    start, finish = side[:, :-1], side[:, 1:]
+    start_in = start <= 0.0
+    crossing = edge & (start_in != (finish <= 0.0))
+    t = np.divide(start, start - finish, out=np.zeros_like(start), where=crossing)
+    head, tail = polygons[:, :-1], polygons[:, 1:]
+    cut = head + t[..., None] * (tail - head)
     # Walk each boundary once: a vertex if kept, then the crossing on its outgoing edge.
-    candidates = np.stack([polygons, cut], axis=2).reshape(n, 2 * width, 2)
-    keep = np.stack([inside & valid, crossing], axis=2).reshape(n, 2 * width)
+    candidates = np.stack([head, cut], axis=2).reshape(n, -1, 2)
+    keep = np.stack([start_in & edge, crossing], axis=2).reshape(n, -1)
+    slot = np.cumsum(keep, axis=1) - 1
+    row = np.broadcast_to(np.arange(n)[:, None], keep.shape)
+    polygons[row[keep], slot[keep]] = candidates[keep]
     new_counts = keep.sum(axis=1)
-    order = np.argsort(~keep, axis=1, kind="stable")[:, :width]
-    clipped = np.take_along_axis(candidates, order[..., None], axis=1)
-    return clipped, np.where(new_counts >= 3, new_counts, 0)
+    polygons[np.arange(n), new_counts] = polygons[:, 0]
+    counts[:] = np.where(new_counts >= 3, new_counts, 0)
 
 
 def _drop_repeated_vertices(polygons: np.ndarray, counts: np.ndarray, tol: float
@@ -159,23 +160,21 @@ def voronoi_cells(positions: np.ndarray, region: ConvexRegion) -> list[np.ndarra
     table = _neighbour_table(kept)
     m, k = len(kept), len(region.vertices)
     # Work about each agent's own position, for precision far from the map origin.
-    polygons = np.zeros((m, k + table.shape[1] + 1, 2))
+    polygons = np.zeros((m, k + table.shape[1] + 2, 2))
     polygons[:, :k] = region.vertices[None, :, :] - kept[:, None, :]
+    polygons[:, k] = polygons[:, 0]
     counts = np.full(m, k)
-    slot = np.arange(polygons.shape[1])
+    # Bisector of p and p_j about p: normal . q <= |normal|^2 / 2.
+    normals = kept[np.maximum(table, 0)] - kept[:, None, :]
+    offsets = 0.5 * np.einsum("ijk,ijk->ij", normals, normals)
     for rank in range(table.shape[1]):
-        other = table[:, rank]
-        rows = np.flatnonzero((other >= 0) & (counts > 0))
+        rows = np.flatnonzero(table[:, rank] >= 0)
         if len(rows) == 0:
             break
-        normals = kept[other[rows]] - kept[rows]
-        # Bisector of p and p_j about p: normal . q <= |normal|^2 / 2.
-        offsets = 0.5 * np.einsum("ij,ij->i", normals, normals)
-        side = np.einsum("ivk,ik->iv", polygons[rows], normals) - offsets[:, None]
-        cuts = np.any((side > 0.0) & (slot[None, :] < counts[rows, None]), axis=1)
-        rows, side = rows[cuts], side[cuts]
-        if len(rows):
-            polygons[rows], counts[rows] = _clip_batch(polygons[rows], counts[rows], side)
+        cell, batch_counts = polygons[rows], counts[rows]
+        side = np.einsum("ivk,ik->iv", cell, normals[rows, rank]) - offsets[rows, rank, None]
+        _clip_batch(cell, batch_counts, side)
+        polygons[rows], counts[rows] = cell, batch_counts
     polygons, counts = _drop_repeated_vertices(polygons, counts, 1e-12 * region.extent)
     cells = [EMPTY_POLYGON] * len(pts)
     for local in range(m):
