@@ -25,7 +25,7 @@ from coverage_fleet.geometry.density import (
 )
 from coverage_fleet.geometry.partition import voronoi_cells
 from coverage_fleet.geometry.polygon import uniform_moments
-from coverage_fleet.geometry.quadrature import RULE_WEIGHTS, subdivided_rule
+from coverage_fleet.geometry.quadrature import RULE_WEIGHTS, fan_quadrature, subdivided_rule
 from coverage_fleet.geometry.region import ConvexRegion
 
 SQUARE = ConvexRegion.from_vertices([[0, 0], [4, 0], [4, 3], [0, 3]])
@@ -52,6 +52,26 @@ def test_triangle_rule_is_exact_to_degree_six(pieces) -> None:
     if pieces == 1:
         rule = 0.5 * np.sum(weights * points[:, 0] ** 8)
         assert abs(rule - math.factorial(8) / math.factorial(10)) > 1e-8
+
+
+def test_fan_quadrature_integrates_low_degree_polynomials_over_polygons_exactly() -> None:
+    """Over several convex polygons at once: area, first and polar moments from the
+    quadrature equal shapely's area and centroid and the rectangle handbook formula."""
+    pentagon = np.array([[0, 0], [4, -1], [6, 2], [3, 5], [-1, 3]], dtype=float)
+    rectangle = np.array([[1, 1], [4, 1], [4, 3], [1, 3]], dtype=float)
+    points, weights, owner = fan_quadrature([pentagon, np.zeros((0, 2)), rectangle], 0.7)
+    assert set(owner.tolist()) == {0, 2}
+    for index, polygon in ((0, pentagon), (2, rectangle)):
+        pick = owner == index
+        reference = shapely.Polygon(polygon)
+        assert weights[pick].sum() == pytest.approx(reference.area, rel=1e-12)
+        centroid = weights[pick] @ points[pick] / weights[pick].sum()
+        np.testing.assert_allclose(centroid, [reference.centroid.x, reference.centroid.y],
+                                   rtol=1e-12)
+    pick = owner == 2
+    polar = weights[pick] @ np.sum((points[pick] - [2.5, 2.0]) ** 2, axis=1)
+    # b*h*(b^2 + h^2)/12 with b = 3, h = 2 (rectangle polar moment, handbook formula).
+    assert polar == pytest.approx(3 * 2 * (9 + 4) / 12, rel=1e-12)
 
 
 # --- Gaussian bumps ---------------------------------------------------------------------
