@@ -23,7 +23,7 @@ from coverage_fleet.geometry.density import (
     load_raster_values,
     read_pgm,
 )
-from coverage_fleet.geometry.partition import voronoi_cells
+from coverage_fleet.geometry.partition import compute_partition, voronoi_cells
 from coverage_fleet.geometry.polygon import uniform_moments
 from coverage_fleet.geometry.quadrature import RULE_WEIGHTS, fan_quadrature, subdivided_rule
 from coverage_fleet.geometry.region import ConvexRegion
@@ -231,6 +231,19 @@ def test_raster_beyond_its_grid_uses_fill_value() -> None:
     np.testing.assert_allclose(raster.evaluate(np.array([[0.5, 0.5], [-0.5, 0.5]])), [1, 3])
     plain = RasterDensity(np.ones((10, 10)), origin=[0.0, 0.0], resolution=0.2)
     assert plain.mass_in(region) == pytest.approx(4.0, rel=1e-12)
+    # The partition sees the same field: cells straddling the grid's west edge add up.
+    agents = np.array([[-0.5, 1.0], [0.3, 0.4], [1.5, 1.5], [0.1, 1.9]])
+    result = compute_partition(agents, region, raster)
+    assert result.masses.sum() == pytest.approx(10.0, rel=1e-12)
+
+
+def test_raster_constructor_rejects_nonsense() -> None:
+    with pytest.raises(ValueError, match="2-D"):
+        RasterDensity(np.ones(4), origin=[0, 0], resolution=1.0)
+    with pytest.raises(ValueError, match="non-negative"):
+        RasterDensity(-np.ones((2, 2)), origin=[0, 0], resolution=1.0)
+    with pytest.raises(ValueError, match="resolution"):
+        RasterDensity(np.ones((2, 2)), origin=[0, 0], resolution=0.0)
 
 
 def test_raster_cell_layout_rows_south_first_in_memory() -> None:

@@ -54,6 +54,7 @@ def test_collinear_vertex_on_an_edge_is_dropped() -> None:
         ([[0, 0], [2, 0], [1, 0.5], [2, 2], [0, 2]],
          "region.vertices[2]: the polygon is not convex"),
         ([[0, 0], [1, 0], [1, 0], [0, 1]], "region.vertices[2]: repeats vertex 1"),
+        ([[0, 0], [1, 0], [0, 1], [0, 0]], "region.vertices[3]: repeats vertex 0: list each"),
         ("square", "list of [x, y] pairs"),
         ([[0, 0, 0], [1, 0, 0], [0, 1, 0]], "shape"),
         ([[1, 1], [1, 1], [1, 1]], "coincide"),

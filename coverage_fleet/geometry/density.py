@@ -270,6 +270,15 @@ class RasterDensity(Density):
         self.origin = np.asarray(origin, dtype=float).reshape(2)
         self.resolution = float(resolution)
         self.fill_value = None if fill_value is None else float(fill_value)
+        # Programmer checks; files and mission mappings go through density_from_config,
+        # which reports these as ConfigError problems with their keys.
+        if self.values.ndim != 2 or self.values.size == 0:
+            raise ValueError(f"raster values must be a non-empty 2-D array, got shape "
+                             f"{self.values.shape}")
+        if not (np.all(np.isfinite(self.values)) and self.values.min() >= 0.0):
+            raise ValueError("raster values must be finite and non-negative")
+        if not (math.isfinite(self.resolution) and self.resolution > 0.0):
+            raise ValueError(f"raster resolution must be positive, got {resolution!r}")
         self._grid = _Grid.build(self.values, self.origin, self.resolution)
         self._padded: dict[tuple[int, int, int, int], _Grid] = {}
 

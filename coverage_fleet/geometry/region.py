@@ -111,12 +111,15 @@ class ConvexRegion:
             raise ConfigError.single(source, key, "all vertices coincide: the area is zero")
         tol = RELATIVE_TOLERANCE * extent
         n = len(array)
-        for i in range(n):
-            j = (i + 1) % n
-            if np.linalg.norm(array[i] - array[j]) <= tol:
+        for i in range(n - 1):
+            if np.linalg.norm(array[i] - array[i + 1]) <= tol:
                 problems.append(
-                    Problem(source, f"{key}[{j}]", f"repeats vertex {i} (zero-length edge)")
+                    Problem(source, f"{key}[{i + 1}]", f"repeats vertex {i} (zero-length edge)")
                 )
+        if np.linalg.norm(array[-1] - array[0]) <= tol:
+            problems.append(Problem(
+                source, f"{key}[{n - 1}]", "repeats vertex 0: list each corner once, the "
+                "boundary closes by itself"))
         if problems:
             raise ConfigError(problems)
         crossings = _self_intersections(array)
