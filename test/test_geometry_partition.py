@@ -275,3 +275,20 @@ def test_masses_sum_to_the_density_mass_in_the_region(point_list, kind) -> None:
                                     strict=True):
         if mass > 0:
             assert shapely.Polygon(cell).buffer(1e-9).covers(shapely.Point(centroid))
+
+
+@pytest.mark.parametrize("kind", ["uniform", "raster", "bumps"])
+def test_cost_splits_by_the_parallel_axis_theorem(kind) -> None:
+    """H(p, W) = sum_i [J_i(c_i) + M_i ||p_i - c_i||^2], with J_i(c_i) the polar moment of
+    cell i about its own centroid (parallel-axis theorem; Cortes, Martinez, Karatas &
+    Bullo, IEEE Trans. Robotics and Automation 20(2), 2004, sec. II): the identity the
+    reference gate's monotone-progress argument rests on."""
+    density = {"uniform": UNIFORM, "raster": RASTER, "bumps": BUMPS}[kind]
+    points = np.random.default_rng(21).uniform(0.05, 0.95, size=(9, 2))
+    result = compute_partition(points, UNIT_SQUARE, density)
+    about_centroids = density.moments(result.cells, result.centroids)
+    np.testing.assert_allclose(about_centroids.first, 0.0, atol=1e-12)
+    gap = np.sum((result.positions - result.centroids) ** 2, axis=1)
+    split = about_centroids.polar + result.masses * gap
+    np.testing.assert_allclose(result.polar_moments, split, rtol=1e-10)
+    assert result.cost == pytest.approx(split.sum(), rel=1e-10)
