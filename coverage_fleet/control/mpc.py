@@ -1,0 +1,443 @@
+"""Tracking MPC with an artificial steady state, for any VehicleModel.
+
+Formulation (Limon, Alvarado, Alamo & Camacho, "MPC for tracking piecewise constant
+references for constrained linear systems", Automatica 44(9), 2008; Limon, Ferramosca,
+Alvarado & Alamo, "Nonlinear MPC for tracking piece-wise constant reference signals",
+IEEE TAC 63(11), 2018), direct multiple shooting:
+
+    min   sum_{k<N} |x_k - x_s|_Q^2 + |u_k - u_s|_R^2 + V_f(x_N, x_s)
+          + offset_weight * |position(x_s) - target|^2
+    over  x_0..x_N, u_0..u_{N-1}, theta           with x_s = Mx theta + x0, u_s = Mu theta + u0
+    s.t.  x_0 = measured state,  x_{k+1} = F(x_k, u_k)  (model.discrete_dynamics, RK4)
+          u_k in input box and polytope;  x_k (k >= 1) in state box and polytope
+          A position(x_k) <= b - r |A_i|           (region shrunk by the footprint radius r)
+          steady state: limits scaled by 1 - steady_state_margin towards rest (limits.py),
+                        A position(x_s) <= b - (r + e_f) |A_i|  (e_f: terminal-set extent)
+          terminal:     ellipsoid  e_N' P e_N <= alpha   (e_N = steady_frame_error(x_N, x_s))
+                        equality   x_N = x_s
+
+The offset cost keeps the problem feasible for any target: an unreachable target yields the
+admissible steady state closest to it (the tracking property of the references above), here
+the projection of the target onto the doubly shrunk region.
+
+Headings stay continuous (frames.py); the steady heading is a free parameter.
+"""
+
+from __future__ import annotations
+
+import time
+from dataclasses import dataclass
+from typing import Any
+
+import casadi as ca
+import numpy as np
+
+from coverage_fleet.control.frames import heading_index, steady_frame_error
+from coverage_fleet.control.ingredients import TerminalIngredients
+from coverage_fleet.control.limits import input_limits, state_limits, steady_limits
+from coverage_fleet.errors import ConfigError, Problem
+from coverage_fleet.vehicles.base import VehicleModel
+from coverage_fleet.vehicles.settings import MpcSettings
+
+#: Solver plugins the MPC is tested with, and the casadi options it starts from. Keys given
+#: under `mpc.solver.options` in the vehicle file are merged over these.
+SOLVER_DEFAULTS: dict[str, dict[str, Any]] = {
+    "ipopt": {
+        "print_time": False,
+        "ipopt.print_level": 0,
+        "ipopt.sb": "yes",
+        "ipopt.warm_start_init_point": "yes",
+        "ipopt.warm_start_bound_push": 1e-6,
+        "ipopt.warm_start_mult_bound_push": 1e-6,
+        "ipopt.mu_init": 1e-3,
+        "ipopt.tol": 1e-8,
+        "ipopt.acceptable_tol": 1e-6,
+    },
+    "fatrop": {
+        "print_time": False,
+        "structure_detection": "auto",
+        "fatrop.print_level": 0,
+        "fatrop.mu_init": 1e-3,
+        "fatrop.tol": 1e-8,
+    },
+}
+DEFAULT_PLUGIN = "fatrop"
+SOLVER_KEYS = ("plugin", "max_iter", "options")
+DEFAULT_MAX_ITER = 100
+
+
+@dataclass(frozen=True)
+class SteadyStatePoint:
+    state: np.ndarray
+    input: np.ndarray
+    parameter: np.ndarray
+    position: np.ndarray
+
+
+@dataclass(frozen=True)
+class MpcSolution:
+    first_input: np.ndarray
+    #: (N + 1, nx), row 0 is the measured state.
+    predicted_states: np.ndarray
+    #: (N, nu)
+    predicted_inputs: np.ndarray
+    steady_state: SteadyStatePoint
+    status: str
+    success: bool
+    iterations: int
+    solve_time: float
+
+
+def _region_offsets(A: np.ndarray, b: np.ndarray, distance: float) -> np.ndarray:
+    return b - distance * np.linalg.norm(A, axis=1)
+
+
+def stage_weights(model: VehicleModel, settings: MpcSettings) -> tuple[np.ndarray, np.ndarray]:
+    """Q and R (diagonal) from the settings; all ones where the settings leave them empty
+    (the vehicle-file loader always fills them)."""
+    q = np.asarray(settings.state_weights or np.ones(model.nx), dtype=float)
+    r = np.asarray(settings.input_weights or np.ones(model.nu), dtype=float)
+    return np.diag(q), np.diag(r)
+
+
+def settings_problems(model: VehicleModel, settings: MpcSettings) -> list[Problem]:
+    """Everything wrong with these MPC settings for this model (empty when usable)."""
+    source = model.source
+    problems: list[Problem] = []
+    if settings.horizon < 1:
+        problems.append(Problem(source, "mpc.horizon", "must be at least 1"))
+    if settings.sample_time <= 0:
+        problems.append(Problem(source, "mpc.sample_time", "must be positive (seconds)"))
+    for key, values, n, names in (
+        ("mpc.state_weights", settings.state_weights, model.nx, model.state_names),
+        ("mpc.input_weights", settings.input_weights, model.nu, model.input_names),
+    ):
+        if values and len(values) != n:
+            problems.append(
+                Problem(source, key, f"needs {n} entries ({', '.join(names)}), got {len(values)}")
+            )
+        if any(v < 0 for v in values):
+            problems.append(Problem(source, key, "weights must be non-negative"))
+    if settings.input_weights and min(settings.input_weights) <= 0:
+        problems.append(Problem(source, "mpc.input_weights", "weights must be positive"))
+    if settings.offset_weight <= 0:
+        problems.append(Problem(source, "mpc.offset_weight", "must be positive"))
+    if not 0.0 <= settings.steady_state_margin < 1.0:
+        problems.append(Problem(source, "mpc.steady_state_margin", "must be in [0, 1)"))
+    if settings.terminal not in ("equality", "ellipsoid"):
+        problems.append(
+            Problem(source, "mpc.terminal", f"'{settings.terminal}': use equality or ellipsoid")
+        )
+    if settings.terminal == "ellipsoid" and not model.stabilisable_at_rest:
+        problems.append(
+            Problem(
+                source,
+                "mpc.terminal",
+                f"ellipsoid needs a linearisation at rest that can be stabilised; the "
+                f"{model.kind} model's cannot (at rest it cannot move in every direction, "
+                f"e.g. sideways), so no terminal ellipsoid exists: use 'equality'",
+            )
+        )
+    heading = heading_index(model)
+    if settings.terminal == "ellipsoid" and heading is not None and settings.state_weights:
+        i, j = model.position_indices
+        if settings.state_weights[i] != settings.state_weights[j]:
+            problems.append(
+                Problem(
+                    source,
+                    "mpc.state_weights",
+                    "the two position weights must be equal with an ellipsoid terminal set "
+                    "on a model with a heading (the set is computed once, at heading 0, and "
+                    "rotated; a cost that prefers one map axis would not rotate with it)",
+                )
+            )
+    unknown = sorted(set(settings.solver) - set(SOLVER_KEYS))
+    if unknown:
+        problems.append(
+            Problem(source, "mpc.solver", f"unknown keys {unknown}; known: {list(SOLVER_KEYS)}")
+        )
+    plugin = settings.solver.get("plugin", DEFAULT_PLUGIN)
+    if plugin not in SOLVER_DEFAULTS:
+        problems.append(
+            Problem(source, "mpc.solver.plugin", f"'{plugin}': use one of {list(SOLVER_DEFAULTS)}")
+        )
+    max_iter = settings.solver.get("max_iter", DEFAULT_MAX_ITER)
+    if isinstance(max_iter, bool) or not isinstance(max_iter, int) or max_iter < 1:
+        problems.append(Problem(source, "mpc.solver.max_iter", "must be a positive integer"))
+    if not isinstance(settings.solver.get("options", {}), dict):
+        problems.append(Problem(source, "mpc.solver.options", "must be a mapping"))
+    return problems
+
+
+class TrackingMpc:
+    """One robot's tracking MPC. Build once per robot; solve() once per sample."""
+
+    def __init__(
+        self,
+        model: VehicleModel,
+        settings: MpcSettings,
+        region_halfspaces: tuple[np.ndarray, np.ndarray],
+        terminal: TerminalIngredients | None = None,
+    ) -> None:
+        problems = settings_problems(model, settings)
+        if problems:
+            raise ConfigError(problems)
+        if terminal is None:
+            if settings.terminal == "ellipsoid":
+                from coverage_fleet.control.terminal import compute_terminal_ingredients
+
+                terminal = compute_terminal_ingredients(model, settings)
+            else:
+                terminal = TerminalIngredients.equality("equality asked for in the settings")
+        if terminal.kind != settings.terminal:
+            raise ConfigError.single(
+                model.source,
+                "mpc.terminal",
+                f"settings ask for '{settings.terminal}' but the terminal ingredients given "
+                f"are '{terminal.kind}' ({terminal.reason})",
+            )
+        self.model = model
+        self.settings = settings
+        self.terminal = terminal
+        self.horizon = settings.horizon
+        A, b = (np.asarray(v, dtype=float) for v in region_halfspaces)
+        self.region_A = A.reshape(-1, 2)
+        self.region_b = b.reshape(-1)
+        self.heading = heading_index(model)
+        family = model.steady_states()
+        self._Mx, self._x0s = np.asarray(family.Mx, float), np.asarray(family.x0, float)
+        self._Mu, self._u0s = np.asarray(family.Mu, float), np.asarray(family.u0, float)
+        self._heading_parameter = self._find_heading_parameter()
+        self.Q, self.R = stage_weights(model, settings)
+        self.footprint_radius = float(model.footprint_radius)
+        #: Offsets of the region every predicted position must keep (shrunk by footprint).
+        self.path_region_b = _region_offsets(self.region_A, self.region_b, self.footprint_radius)
+        #: Offsets for the steady position (also shrunk by the terminal set's extent).
+        self.steady_region_b = _region_offsets(
+            self.region_A, self.region_b, self.footprint_radius + terminal.position_extent
+        )
+        plugin = settings.solver.get("plugin", DEFAULT_PLUGIN)
+        self.plugin = plugin
+        self._build(plugin)
+        self._guess: np.ndarray | None = None
+        self._lam_g: np.ndarray | None = None
+        self._lam_x: np.ndarray | None = None
+
+    # --- construction ------------------------------------------------------------------
+
+    def _find_heading_parameter(self) -> int | None:
+        if self.heading is None:
+            return None
+        column = np.nonzero(np.abs(self._Mx[self.heading]) > 0)[0]
+        return int(column[0]) if len(column) == 1 else None
+
+    def _build(self, plugin: str) -> None:
+        """Stage-wise NLP: stage k holds z_k = (x_k, theta_k) and u_k; theta is carried as a
+        constant state (theta_{k+1} = theta_k) so that every constraint touches one stage
+        or two neighbouring ones, the block structure structure-exploiting solvers need."""
+        model, settings, N = self.model, self.settings, self.horizon
+        nx, nu = model.nx, model.nu
+        F = model.discrete_dynamics(settings.sample_time, settings.substeps)
+        n_theta = self._Mx.shape[1]
+        nz = nx + n_theta
+        Z = [ca.SX.sym(f"z{k}", nz) for k in range(N + 1)]
+        U = [ca.SX.sym(f"u{k}", nu) for k in range(N)]
+        target = ca.SX.sym("target", 2)
+        Mx, x0s, Mu, u0s = (ca.DM(v) for v in (self._Mx, self._x0s, self._Mu, self._u0s))
+        i, j = model.position_indices
+        Q, R = ca.DM(self.Q), ca.DM(self.R)
+
+        x_lim, u_lim = state_limits(model), input_limits(model)
+        margin = settings.steady_state_margin
+        x_steady = steady_limits(x_lim, self._Mx, self._x0s, margin)
+        u_steady = steady_limits(u_lim, self._Mu, self._u0s, margin)
+        x_lower, x_upper = (np.asarray(v, float) for v in model.state_bounds())
+        u_lower, u_upper = (np.asarray(v, float) for v in model.input_bounds())
+        G_x, g_x = model.state_polytope()
+        E_u, e_u = model.input_polytope()
+        A_r = ca.DM(self.region_A)
+        free_theta = np.full(n_theta, np.inf)
+
+        cost = 0
+        g: list[ca.SX] = []
+        lbg: list[np.ndarray] = []
+        ubg: list[np.ndarray] = []
+
+        def add(expr: ca.SX, lower: np.ndarray | float, upper: np.ndarray | float) -> None:
+            n = expr.shape[0]
+            if n == 0:
+                return
+            g.append(expr)
+            lbg.append(np.broadcast_to(np.asarray(lower, float), (n,)).copy())
+            ubg.append(np.broadcast_to(np.asarray(upper, float), (n,)).copy())
+
+        def path(x: ca.SX) -> None:
+            if len(g_x):
+                add(ca.mtimes(ca.DM(G_x), x), -np.inf, g_x)
+            add(ca.mtimes(A_r, ca.vertcat(x[i], x[j])), -np.inf, self.path_region_b)
+
+        w: list[ca.SX] = []
+        lbw: list[np.ndarray] = []
+        ubw: list[np.ndarray] = []
+        for k in range(N + 1):
+            # Constraint order per stage (what fatrop's structure detection reads): the
+            # dynamics to the next stage first, then this stage's path constraints.
+            x, theta = Z[k][:nx], Z[k][nx:]
+            x_s = ca.mtimes(Mx, theta) + x0s
+            w.append(Z[k])
+            if k == 0:
+                # x_0 is fixed to the measured state through its bounds (set per solve).
+                lbw.append(np.concatenate([np.zeros(nx), -free_theta]))
+                ubw.append(np.concatenate([np.zeros(nx), free_theta]))
+            else:
+                lbw.append(np.concatenate([x_lower, -free_theta]))
+                ubw.append(np.concatenate([x_upper, free_theta]))
+            if k == N:
+                path(x)
+                break
+            u_s = ca.mtimes(Mu, theta) + u0s
+            w.append(U[k])
+            lbw.append(u_lower)
+            ubw.append(u_upper)
+            dx, du = x - x_s, U[k] - u_s
+            cost += ca.bilin(Q, dx, dx) + ca.bilin(R, du, du)
+            add(Z[k + 1] - ca.vertcat(F(x, U[k]), theta), 0.0, 0.0)
+            if k >= 1:
+                path(x)
+            if len(e_u):
+                add(ca.mtimes(ca.DM(E_u), U[k]), -np.inf, e_u)
+
+        # Terminal stage: steady state admissible, terminal ingredients, offset cost.
+        x_N, theta = Z[N][:nx], Z[N][nx:]
+        x_s = ca.mtimes(Mx, theta) + x0s
+        u_s = ca.mtimes(Mu, theta) + u0s
+        p_s = ca.vertcat(x_s[i], x_s[j])
+        if len(x_steady.g_dep):
+            add(ca.mtimes(ca.DM(x_steady.G_dep), x_s), -np.inf, x_steady.g_dep)
+        if len(u_steady.g_dep):
+            add(ca.mtimes(ca.DM(u_steady.G_dep), u_s), -np.inf, u_steady.g_dep)
+        add(ca.mtimes(A_r, p_s), -np.inf, self.steady_region_b)
+        if self.terminal.kind == "equality":
+            add(x_N - x_s, 0.0, 0.0)
+        else:
+            error = steady_frame_error(x_N, x_s, model.position_indices, self.heading)
+            P = ca.DM(self.terminal.P)
+            cost += ca.bilin(P, error, error)
+            add(ca.bilin(P, error, error), -np.inf, self.terminal.alpha)
+        cost += settings.offset_weight * ca.sumsqr(p_s - target)
+
+        nlp = {
+            "x": ca.vertcat(*w),
+            "p": target,
+            "f": cost,
+            "g": ca.vertcat(*g),
+        }
+        self._lbw, self._ubw = np.concatenate(lbw), np.concatenate(ubw)
+        self._lbg, self._ubg = np.concatenate(lbg), np.concatenate(ubg)
+        self._nz = nz
+        options = dict(SOLVER_DEFAULTS[plugin])
+        options[f"{plugin}.max_iter"] = int(settings.solver.get("max_iter", DEFAULT_MAX_ITER))
+        if plugin == "fatrop":
+            options["equality"] = [bool(lo == hi) for lo, hi in zip(self._lbg, self._ubg)]
+        options.update(settings.solver.get("options", {}))
+        self._solver = ca.nlpsol("tracking_mpc", plugin, nlp, options)
+
+    # --- solving -----------------------------------------------------------------------
+
+    def reset(self) -> None:
+        """Forget the warm start (next solve starts cold)."""
+        self._guess = self._lam_g = self._lam_x = None
+
+    def _unpack(self, w: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        nx, nu, N, nz = self.model.nx, self.model.nu, self.horizon, self._nz
+        body = w[: N * (nz + nu)].reshape(N, nz + nu)
+        last = w[N * (nz + nu) :]
+        states = np.vstack([body[:, :nx], last[:nx]])
+        inputs = body[:, nz:]
+        return states, inputs, last[nx:].copy()
+
+    def _pack(self, states: np.ndarray, inputs: np.ndarray, theta: np.ndarray) -> np.ndarray:
+        N = self.horizon
+        thetas = np.tile(theta, (N, 1))
+        body = np.hstack([states[:-1], thetas, inputs]).reshape(-1)
+        return np.concatenate([body, states[-1], theta])
+
+    def _cold_guess(self, x0: np.ndarray) -> np.ndarray:
+        theta, *_ = np.linalg.lstsq(self._Mx, x0 - self._x0s, rcond=None)
+        u_s = self._Mu @ theta + self._u0s
+        states = np.tile(x0, (self.horizon + 1, 1))
+        inputs = np.tile(u_s, (self.horizon, 1))
+        return self._pack(states, inputs, theta)
+
+    def _shifted(self, w: np.ndarray) -> np.ndarray:
+        """The previous solution one sample later: the warm start."""
+        states, inputs, theta = self._unpack(w)
+        states = np.vstack([states[1:], states[-1:]])
+        inputs = np.vstack([inputs[1:], inputs[-1:]])
+        return self._pack(states, inputs, theta)
+
+    def _align_heading(self, w: np.ndarray, x0: np.ndarray) -> np.ndarray:
+        """Shift the guess by whole turns so its heading matches the measured one."""
+        if self.heading is None:
+            return w
+        states, inputs, theta = self._unpack(w)
+        turns = np.round((x0[self.heading] - states[0, self.heading]) / (2 * np.pi))
+        if turns == 0:
+            return w
+        states = states.copy()
+        states[:, self.heading] += 2 * np.pi * turns
+        theta = theta.copy()
+        if self._heading_parameter is not None:
+            scale = self._Mx[self.heading, self._heading_parameter]
+            theta[self._heading_parameter] += 2 * np.pi * turns / scale
+        return self._pack(states, inputs, theta)
+
+    def solve(self, x0: np.ndarray, target_xy: np.ndarray) -> MpcSolution:
+        x0 = np.asarray(x0, dtype=float).reshape(-1)
+        target = np.asarray(target_xy, dtype=float).reshape(2)
+        guess = self._cold_guess(x0) if self._guess is None else self._guess
+        guess = self._align_heading(guess, x0)
+        states, inputs, theta = self._unpack(guess)
+        states = states.copy()
+        states[0] = x0
+        guess = self._pack(states, inputs, theta)
+        lbw, ubw = self._lbw.copy(), self._ubw.copy()
+        lbw[: self.model.nx] = ubw[: self.model.nx] = x0
+        arguments: dict[str, Any] = {
+            "x0": guess,
+            "p": target,
+            "lbx": lbw,
+            "ubx": ubw,
+            "lbg": self._lbg,
+            "ubg": self._ubg,
+        }
+        if self._lam_g is not None:
+            arguments["lam_g0"] = self._lam_g
+            arguments["lam_x0"] = self._lam_x
+        started = time.perf_counter()
+        result = self._solver(**arguments)
+        solve_time = time.perf_counter() - started
+        stats = self._solver.stats()
+        success = bool(stats.get("success", False))
+        w = np.asarray(result["x"], dtype=float).reshape(-1)
+        if success:
+            self._guess = self._shifted(w)
+            self._lam_g = np.asarray(result["lam_g"], dtype=float).reshape(-1)
+            self._lam_x = np.asarray(result["lam_x"], dtype=float).reshape(-1)
+        else:
+            self._guess = self._shifted(guess)
+            self._lam_g = self._lam_x = None
+        states, inputs, theta = self._unpack(w)
+        x_s = self._Mx @ theta + self._x0s
+        u_s = self._Mu @ theta + self._u0s
+        steady = SteadyStatePoint(x_s, u_s, theta, self.model.position(x_s))
+        return MpcSolution(
+            first_input=inputs[0].copy(),
+            predicted_states=states,
+            predicted_inputs=inputs,
+            steady_state=steady,
+            status=str(stats.get("return_status", "unknown")),
+            success=success,
+            iterations=int(stats.get("iter_count", 0)),
+            solve_time=solve_time,
+        )
