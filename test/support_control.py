@@ -75,3 +75,19 @@ def discrete_matrices(dt: float) -> tuple[np.ndarray, np.ndarray]:
     A = np.block([[I2, dt * I2], [np.zeros((2, 2)), I2]])
     B = np.vstack([0.5 * dt**2 * I2, dt * I2])
     return A, B
+
+
+#: An invented orchard block (metres, map frame, counter-clockwise) for the control tests.
+ORCHARD_BLOCK = np.array([(0.0, 0.0), (12.0, 0.0), (14.0, 7.0), (6.0, 11.0), (-1.0, 6.0)])
+
+
+def polygon_halfspaces(vertices: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """(A, b) with A p <= b inside a convex counter-clockwise polygon, unit-norm rows."""
+    rows, offsets = [], []
+    for k in range(len(vertices)):
+        p, q = vertices[k], vertices[(k + 1) % len(vertices)]
+        normal = np.array([q[1] - p[1], p[0] - q[0]])
+        normal /= np.linalg.norm(normal)
+        rows.append(normal)
+        offsets.append(float(normal @ p))
+    return np.array(rows), np.array(offsets)

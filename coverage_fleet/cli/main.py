@@ -17,6 +17,7 @@ from coverage_fleet.errors import ConfigError
 COMMAND_MODULES = [
     "coverage_fleet.cli.demo_command",
     "coverage_fleet.cli.vehicle_command",
+    "coverage_fleet.cli.terminal_command",
 ]
 
 EXIT_BAD_INPUT = 2

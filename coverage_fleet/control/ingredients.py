@@ -23,7 +23,8 @@ class TerminalIngredients:
     K: np.ndarray | None = None
     #: The DARE solution for the stage cost; P = (1 + terminal_decrease_slack) * P_lqr.
     P_lqr: np.ndarray | None = None
-    #: Largest V_f(f(x, k(x))) - V_f(x) + l(x, k(x)) found over the set (<= 0 verified).
+    #: Largest [V_f(f(x, k(x))) - V_f(x) + l(x, k(x))] / V_f(x) found over the set by
+    #: sampling (<= 0: the decrease condition holds; the check also maximises it locally).
     decrease_margin: float = 0.0
     #: Level allowed by each limit under u = u_s + K e, and by the decrease condition.
     limit_levels: dict[str, float] = field(default_factory=dict)

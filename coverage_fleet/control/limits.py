@@ -85,7 +85,9 @@ class SteadyLimits:
     slack: np.ndarray
 
 
-def steady_limits(limits: LinearLimits, M: np.ndarray, v0: np.ndarray, margin: float) -> SteadyLimits:
+def steady_limits(
+    limits: LinearLimits, M: np.ndarray, v0: np.ndarray, margin: float
+) -> SteadyLimits:
     rest_slack = limits.g - limits.G @ v0
     dependent = np.abs(limits.G @ M).max(axis=1, initial=0.0) > INDEPENDENT_TOLERANCE
     slack = np.where(dependent, margin * rest_slack, rest_slack)

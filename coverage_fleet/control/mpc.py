@@ -58,10 +58,15 @@ SOLVER_DEFAULTS: dict[str, dict[str, Any]] = {
         "structure_detection": "auto",
         "fatrop.print_level": 0,
         "fatrop.mu_init": 1e-3,
-        "fatrop.tol": 1e-8,
+        # fatrop's tolerance is absolute (IPOPT's is scaled); the cost is O(1e3) here.
+        "fatrop.tol": 1e-5,
     },
 }
-DEFAULT_PLUGIN = "fatrop"
+DEFAULT_PLUGIN = "ipopt"
+#: fatrop (casadi 3.6/3.7 builds) can stall inside an iteration when equality rows at the
+#: terminal stage outnumber the inputs near a converged warm start; with fatrop the terminal
+#: equality is therefore imposed as |x_N - x_s| <= this (metres / radians / m/s).
+FATROP_EQUALITY_TOLERANCE = 1e-6
 SOLVER_KEYS = ("plugin", "max_iter", "options")
 DEFAULT_MAX_ITER = 100
 
@@ -243,6 +248,7 @@ class TrackingMpc:
         Z = [ca.SX.sym(f"z{k}", nz) for k in range(N + 1)]
         U = [ca.SX.sym(f"u{k}", nu) for k in range(N)]
         target = ca.SX.sym("target", 2)
+        measured = ca.SX.sym("measured", nx)
         Mx, x0s, Mu, u0s = (ca.DM(v) for v in (self._Mx, self._x0s, self._Mu, self._u0s))
         i, j = model.position_indices
         Q, R = ca.DM(self.Q), ca.DM(self.R)
@@ -286,9 +292,8 @@ class TrackingMpc:
             x_s = ca.mtimes(Mx, theta) + x0s
             w.append(Z[k])
             if k == 0:
-                # x_0 is fixed to the measured state through its bounds (set per solve).
-                lbw.append(np.concatenate([np.zeros(nx), -free_theta]))
-                ubw.append(np.concatenate([np.zeros(nx), free_theta]))
+                lbw.append(np.concatenate([np.full(nx, -np.inf), -free_theta]))
+                ubw.append(np.concatenate([np.full(nx, np.inf), free_theta]))
             else:
                 lbw.append(np.concatenate([x_lower, -free_theta]))
                 ubw.append(np.concatenate([x_upper, free_theta]))
@@ -302,7 +307,9 @@ class TrackingMpc:
             dx, du = x - x_s, U[k] - u_s
             cost += ca.bilin(Q, dx, dx) + ca.bilin(R, du, du)
             add(Z[k + 1] - ca.vertcat(F(x, U[k]), theta), 0.0, 0.0)
-            if k >= 1:
+            if k == 0:
+                add(x - measured, 0.0, 0.0)
+            else:
                 path(x)
             if len(e_u):
                 add(ca.mtimes(ca.DM(E_u), U[k]), -np.inf, e_u)
@@ -318,7 +325,8 @@ class TrackingMpc:
             add(ca.mtimes(ca.DM(u_steady.G_dep), u_s), -np.inf, u_steady.g_dep)
         add(ca.mtimes(A_r, p_s), -np.inf, self.steady_region_b)
         if self.terminal.kind == "equality":
-            add(x_N - x_s, 0.0, 0.0)
+            width = FATROP_EQUALITY_TOLERANCE if plugin == "fatrop" else 0.0
+            add(x_N - x_s, -width, width)
         else:
             error = steady_frame_error(x_N, x_s, model.position_indices, self.heading)
             P = ca.DM(self.terminal.P)
@@ -328,7 +336,7 @@ class TrackingMpc:
 
         nlp = {
             "x": ca.vertcat(*w),
-            "p": target,
+            "p": ca.vertcat(measured, target),
             "f": cost,
             "g": ca.vertcat(*g),
         }
@@ -336,9 +344,10 @@ class TrackingMpc:
         self._lbg, self._ubg = np.concatenate(lbg), np.concatenate(ubg)
         self._nz = nz
         options = dict(SOLVER_DEFAULTS[plugin])
-        options[f"{plugin}.max_iter"] = int(settings.solver.get("max_iter", DEFAULT_MAX_ITER))
+        max_iter = int(settings.solver.get("max_iter", DEFAULT_MAX_ITER))
+        options[f"{plugin}.max_iter"] = max_iter
         if plugin == "fatrop":
-            options["equality"] = [bool(lo == hi) for lo, hi in zip(self._lbg, self._ubg)]
+            options["equality"] = [bool(v) for v in self._lbg == self._ubg]
         options.update(settings.solver.get("options", {}))
         self._solver = ca.nlpsol("tracking_mpc", plugin, nlp, options)
 
@@ -401,13 +410,11 @@ class TrackingMpc:
         states = states.copy()
         states[0] = x0
         guess = self._pack(states, inputs, theta)
-        lbw, ubw = self._lbw.copy(), self._ubw.copy()
-        lbw[: self.model.nx] = ubw[: self.model.nx] = x0
         arguments: dict[str, Any] = {
             "x0": guess,
-            "p": target,
-            "lbx": lbw,
-            "ubx": ubw,
+            "p": np.concatenate([x0, target]),
+            "lbx": self._lbw,
+            "ubx": self._ubw,
             "lbg": self._lbg,
             "ubg": self._ubg,
         }

@@ -28,5 +28,9 @@ class MpcSettings:
     steady_state_margin: float = 0.05
     #: Terminal level alpha is this fraction of the largest verified level.
     terminal_shrink: float = 0.9
+    #: Terminal weight P = (1 + slack) * (DARE solution): the extra decrease per step that
+    #: absorbs the nonlinearity inside the terminal set (Chen & Allgower, Automatica 34(10),
+    #: 1998, their kappa). 0 keeps the pure LQR cost (exact for linear models).
+    terminal_decrease_slack: float = 0.1
     #: Solver options passed through to casadi (plugin name and its options).
     solver: dict[str, Any] = field(default_factory=dict)

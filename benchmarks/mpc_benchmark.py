@@ -1,0 +1,220 @@
+"""Solve time of the tracking MPC against the same problem written the plain way.
+
+For every vehicle file in config/vehicles/ (horizon 20): one closed loop of STEPS samples
+from an invented start towards an invented target in an invented orchard block. At every
+sample the same state is given to
+  - ours: coverage_fleet.control.mpc.TrackingMpc (its configured solver, warm-started), and
+  - baseline: casadi Opti, multiple shooting, IPOPT with default options, warm-started from
+    its previous solution (only printing switched off),
+and the plant is moved with our input. Printed per model: median and 95th-percentile solve
+time of both, their ratio, the largest difference between the two first inputs, and
+whether our 95th percentile is below the sample time. Timing is wall-clock around the
+solver call; the machine is shared, so both run interleaved under the same load.
+
+    .venv/bin/python benchmarks/mpc_benchmark.py [--steps 200] [vehicle files...]
+"""
+
+from __future__ import annotations
+
+import argparse
+import dataclasses
+import json
+import sys
+import time
+from pathlib import Path
+
+import casadi as ca
+import numpy as np
+
+from coverage_fleet.control.frames import heading_index, steady_frame_error
+from coverage_fleet.control.limits import input_limits, state_limits, steady_limits
+from coverage_fleet.control.mpc import TrackingMpc, stage_weights
+from coverage_fleet.control.terminal import compute_terminal_ingredients
+from coverage_fleet.vehicles.loader import VehicleSpec, load_vehicle_file
+
+REPO = Path(__file__).resolve().parents[1]
+#: Invented orchard block (metres, map frame), counter-clockwise.
+REGION = np.array([(0.0, 0.0), (40.0, 0.0), (46.0, 22.0), (20.0, 34.0), (-4.0, 18.0)])
+START = (4.0, 4.0)
+#: Targets visited in turn (a new one every STEPS/4 samples), like gate openings.
+TARGETS = [(30.0, 20.0), (12.0, 22.0), (36.0, 8.0), (20.0, 12.0)]
+
+
+def halfspaces(vertices: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    rows, offsets = [], []
+    for k in range(len(vertices)):
+        p, q = vertices[k], vertices[(k + 1) % len(vertices)]
+        normal = np.array([q[1] - p[1], p[0] - q[0]])
+        normal /= np.linalg.norm(normal)
+        rows.append(normal)
+        offsets.append(normal @ p)
+    return np.array(rows), np.array(offsets)
+
+
+class OptiBaseline:
+    """The same optimal control problem, written directly with casadi Opti."""
+
+    def __init__(self, spec: VehicleSpec, mpc: TrackingMpc) -> None:
+        model, settings = spec.model, spec.mpc
+        N, nx, nu = settings.horizon, model.nx, model.nu
+        F = model.discrete_dynamics(settings.sample_time, settings.substeps)
+        family = model.steady_states()
+        opti = ca.Opti()
+        X = opti.variable(nx, N + 1)
+        U = opti.variable(nu, N)
+        theta = opti.variable(len(family.parameter_names))
+        self.x0 = opti.parameter(nx)
+        self.target = opti.parameter(2)
+        x_s = ca.DM(family.Mx) @ theta + ca.DM(family.x0)
+        u_s = ca.DM(family.Mu) @ theta + ca.DM(family.u0)
+        i, j = model.position_indices
+        Q, R = (ca.DM(m) for m in stage_weights(model, settings))
+        x_lo, x_hi = model.state_bounds()
+        u_lo, u_hi = model.input_bounds()
+        G, g = model.state_polytope()
+        E, e = model.input_polytope()
+        A = ca.DM(mpc.region_A)
+        J = 0
+        opti.subject_to(X[:, 0] == self.x0)
+        for k in range(N):
+            J += ca.bilin(Q, X[:, k] - x_s, X[:, k] - x_s) + ca.bilin(
+                R, U[:, k] - u_s, U[:, k] - u_s
+            )
+            opti.subject_to(X[:, k + 1] == F(X[:, k], U[:, k]))
+            opti.subject_to(opti.bounded(u_lo, U[:, k], u_hi))
+            if len(e):
+                opti.subject_to(ca.DM(E) @ U[:, k] <= e)
+        for k in range(1, N + 1):
+            for n in range(nx):
+                if np.isfinite(x_hi[n]):
+                    opti.subject_to(X[n, k] <= x_hi[n])
+                if np.isfinite(x_lo[n]):
+                    opti.subject_to(X[n, k] >= x_lo[n])
+            if len(g):
+                opti.subject_to(ca.DM(G) @ X[:, k] <= g)
+            opti.subject_to(A @ ca.vertcat(X[i, k], X[j, k]) <= mpc.path_region_b)
+        margin = settings.steady_state_margin
+        for limits, M, v0, v_s in (
+            (state_limits(model), family.Mx, family.x0, x_s),
+            (input_limits(model), family.Mu, family.u0, u_s),
+        ):
+            steady = steady_limits(limits, np.asarray(M), np.asarray(v0), margin)
+            if len(steady.g_dep):
+                opti.subject_to(ca.DM(steady.G_dep) @ v_s <= steady.g_dep)
+        p_s = ca.vertcat(x_s[i], x_s[j])
+        opti.subject_to(A @ p_s <= mpc.steady_region_b)
+        terminal = mpc.terminal
+        if terminal.kind == "equality":
+            opti.subject_to(X[:, N] == x_s)
+        else:
+            err = steady_frame_error(X[:, N], x_s, model.position_indices, heading_index(model))
+            P = ca.DM(terminal.P)
+            J += ca.bilin(P, err, err)
+            opti.subject_to(ca.bilin(P, err, err) <= terminal.alpha)
+        J += settings.offset_weight * ca.sumsqr(p_s - self.target)
+        opti.minimize(J)
+        opti.solver("ipopt", {"print_time": False}, {"print_level": 0, "sb": "yes"})
+        self.opti, self.X, self.U, self.theta = opti, X, U, theta
+        self.family = family
+        self.warm = False
+
+    def solve(self, x: np.ndarray, target: np.ndarray) -> tuple[np.ndarray, float, bool]:
+        opti = self.opti
+        opti.set_value(self.x0, x)
+        opti.set_value(self.target, target)
+        if not self.warm:
+            opti.set_initial(self.X, np.tile(x, (self.X.shape[1], 1)).T)
+            theta, *_ = np.linalg.lstsq(self.family.Mx, x - self.family.x0, rcond=None)
+            opti.set_initial(self.theta, theta)
+        started = time.perf_counter()
+        try:
+            solution = opti.solve()
+            ok = True
+        except RuntimeError:
+            solution = opti.debug
+            ok = False
+        elapsed = time.perf_counter() - started
+        u = np.array(solution.value(self.U[:, 0])).reshape(-1)
+        # Warm start: the previous solution (primal and dual), as Opti users do.
+        opti.set_initial(solution.value_variables())
+        opti.set_initial(opti.lam_g, solution.value(opti.lam_g))
+        self.warm = True
+        return u, elapsed, ok
+
+
+def run(path: Path, steps: int, solver: dict | None) -> dict[str, float | str | int]:
+    spec = load_vehicle_file(path)
+    if solver is not None:
+        spec = dataclasses.replace(spec, mpc=dataclasses.replace(spec.mpc, solver=solver))
+    terminal = compute_terminal_ingredients(spec.model, spec.mpc, spec.content_hash)
+    region = halfspaces(REGION)
+    ours = TrackingMpc(spec.model, spec.mpc, region, terminal)
+    baseline = OptiBaseline(spec, ours)
+    F = spec.model.discrete_dynamics(spec.mpc.sample_time, spec.mpc.substeps)
+    x = np.zeros(spec.model.nx)
+    x[list(spec.model.position_indices)] = START
+    ours_t, base_t, diffs = [], [], []
+    ours_fail = base_fail = 0
+    for k in range(steps):
+        target = np.array(TARGETS[min(k * len(TARGETS) // steps, len(TARGETS) - 1)])
+        solution = ours.solve(x, target)
+        u_base, t_base, ok_base = baseline.solve(x, target)
+        if k > 0:  # the first (cold) solve is not a warm-started sample
+            ours_t.append(solution.solve_time)
+            base_t.append(t_base)
+        ours_fail += not solution.success
+        base_fail += not ok_base
+        if solution.success and ok_base:
+            diffs.append(float(np.abs(solution.first_input - u_base).max()))
+        x = np.array(F(x, solution.first_input)).reshape(-1)
+    o50, o95 = np.percentile(ours_t, [50, 95])
+    b50, b95 = np.percentile(base_t, [50, 95])
+    return {
+        "model": spec.model.kind,
+        "solver": ours.plugin,
+        "ours_median_ms": 1e3 * o50,
+        "ours_p95_ms": 1e3 * o95,
+        "base_median_ms": 1e3 * b50,
+        "base_p95_ms": 1e3 * b95,
+        "ratio": b50 / o50,
+        "max_input_diff": max(diffs) if diffs else float("nan"),
+        "sample_ms": 1e3 * spec.mpc.sample_time,
+        "failures": f"{ours_fail}/{base_fail}",
+    }
+
+
+def main(argv: list[str] | None = None) -> int:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("files", nargs="*", type=Path)
+    parser.add_argument("--steps", type=int, default=200)
+    parser.add_argument(
+        "--solver",
+        type=json.loads,
+        default=None,
+        help='override mpc.solver, e.g. \'{"plugin": "ipopt"}\'',
+    )
+    args = parser.parse_args(argv)
+    files = args.files or sorted((REPO / "config" / "vehicles").glob("*.yaml"))
+    header = (
+        f"{'model':<20}{'solver':<8}{'ours med':>9}{'ours p95':>9}{'Opti med':>9}"
+        f"{'Opti p95':>9}{'ratio':>7}{'max |du|':>10}{'dt':>6}{'p95<dt':>7}{'fails':>7}"
+    )
+    print(f"tracking MPC, horizon 20, {args.steps} closed-loop samples, times in ms")
+    print("(ratio = Opti median / ours median; max |du| = largest first-input difference;")
+    print(" fails = unsuccessful solves ours/Opti)")
+    print(header)
+    print("-" * len(header))
+    for path in files:
+        r = run(path, args.steps, args.solver)
+        below = "yes" if r["ours_p95_ms"] < r["sample_ms"] else "NO"
+        print(
+            f"{r['model']:<20}{r['solver']:<8}{r['ours_median_ms']:>9.2f}{r['ours_p95_ms']:>9.2f}"
+            f"{r['base_median_ms']:>9.2f}{r['base_p95_ms']:>9.2f}{r['ratio']:>6.1f}x"
+            f"{r['max_input_diff']:>10.1e}{r['sample_ms']:>6.0f}{below:>7}{r['failures']:>7}",
+            flush=True,
+        )
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())

@@ -1,0 +1,289 @@
+"""Tracking MPC and robot controller: checks against outside sources and closed-loop outcomes.
+
+Sources named beside each check. The vehicle files under config/vehicles/ are picked up
+automatically, so every model that lands is held to the same closed-loop checks.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+from pathlib import Path
+
+import numpy as np
+import pytest
+import scipy.linalg
+import shapely
+from shapely.geometry import Point, Polygon
+from shapely.ops import nearest_points
+from support_control import (
+    ORCHARD_BLOCK,
+    DoubleIntegratorModel,
+    discrete_matrices,
+    polygon_halfspaces,
+)
+
+from coverage_fleet.control.controller import (
+    FALLBACK_BRAKING,
+    FALLBACK_PREVIOUS_PLAN,
+    RobotController,
+)
+from coverage_fleet.control.frames import heading_index
+from coverage_fleet.control.limits import input_limits, state_limits
+from coverage_fleet.control.mpc import TrackingMpc
+from coverage_fleet.control.terminal import compute_terminal_ingredients
+from coverage_fleet.errors import ConfigError
+from coverage_fleet.vehicles.loader import load_vehicle_file
+from coverage_fleet.vehicles.settings import MpcSettings
+
+REPO = Path(__file__).resolve().parents[1]
+VEHICLE_FILES = sorted((REPO / "config" / "vehicles").glob("*.yaml"))
+REGION = polygon_halfspaces(ORCHARD_BLOCK)
+#: Position error at which a reachable target counts as reached (metres; a tenth of a
+#: typical footprint, common practice for a settling tolerance).
+REACHED_TOLERANCE = 0.05
+#: Slack on limits when checking a closed loop (solver tolerances are far smaller).
+LIMIT_SLACK = 1e-6
+
+
+def _vehicle(path: Path):
+    spec = load_vehicle_file(path)
+    return spec.model, spec.mpc
+
+
+def _double_integrator():
+    settings = MpcSettings(
+        terminal="ellipsoid", state_weights=(1.0, 1.0, 0.5, 0.5), input_weights=(0.2, 0.2)
+    )
+    return DoubleIntegratorModel(), settings
+
+
+MODELS = [pytest.param(lambda p=p: _vehicle(p), id=p.stem) for p in VEHICLE_FILES] + [
+    pytest.param(_double_integrator, id="test_double_integrator")
+]
+
+
+def _assert_within_limits(model, x: np.ndarray, u: np.ndarray) -> None:
+    xs, us = state_limits(model), input_limits(model)
+    assert np.all(xs.G @ x <= xs.g + LIMIT_SLACK), (x, xs.names)
+    assert np.all(us.G @ u <= us.g + LIMIT_SLACK), (u, us.names)
+    A, b = REGION
+    shrunk = b - model.footprint_radius * np.linalg.norm(A, axis=1)
+    assert np.all(A @ model.position(x) <= shrunk + LIMIT_SLACK), model.position(x)
+
+
+def _closed_loop(model, settings, x0, target, steps, terminal=None):
+    controller = RobotController(model, settings, REGION, terminal)
+    F = model.discrete_dynamics(settings.sample_time, settings.substeps)
+    x = np.array(x0, dtype=float)
+    failures = 0
+    for _ in range(steps):
+        step = controller.step(x, target)
+        failures += not step.success
+        _assert_within_limits(model, x, step.input)
+        x = np.array(F(x, step.input)).reshape(-1)
+    return x, failures, controller
+
+
+def _start_state(model, position, heading=0.0):
+    x = np.zeros(model.nx)
+    x[list(model.position_indices)] = position
+    h = heading_index(model)
+    if h is not None:
+        x[h] = heading
+    return x
+
+
+# --- linear-quadratic check -----------------------------------------------------------------
+
+
+def test_unconstrained_linear_mpc_first_input_is_the_lqr_law():
+    """Rawlings, Mayne & Diehl, "Model Predictive Control: Theory, Computation, and Design",
+    2nd ed., 2017, ch. 2 (sec. 2.5): linear model, no active constraints, terminal cost the
+    DARE solution -> the MPC's first input is the LQR input. With the artificial steady
+    state the LQR acts on x - x_s, and the optimal x_s minimises the infinite-horizon cost
+    (x - x_s)' P (x - x_s) + w |p_s - target|^2, a least-squares problem solved here in
+    closed form; u = u_s - K_lqr (x - x_s)."""
+    model = DoubleIntegratorModel(max_speed=100.0, max_acceleration=100.0)
+    settings = MpcSettings(
+        horizon=15,
+        terminal="ellipsoid",
+        state_weights=(1.0, 2.0, 0.5, 0.3),
+        input_weights=(0.4, 0.7),
+        offset_weight=3.0,
+        terminal_decrease_slack=0.0,
+        solver={"options": {"ipopt.tol": 1e-12}},
+    )
+    dt = settings.sample_time
+    A, B = discrete_matrices(dt)  # exact zero-order hold, independent of the MPC's RK4
+    Q, R = np.diag(settings.state_weights), np.diag(settings.input_weights)
+    P = scipy.linalg.solve_discrete_are(A, B, Q, R)
+    K_lqr = np.linalg.solve(R + B.T @ P @ B, B.T @ P @ A)  # u = -K_lqr x
+    terminal = compute_terminal_ingredients(model, settings)
+    np.testing.assert_allclose(terminal.P_lqr, P, rtol=1e-9)
+    big_region = (np.array([[1.0, 0], [-1, 0], [0, 1], [0, -1]]), np.full(4, 1e3))
+    mpc = TrackingMpc(model, settings, big_region, terminal)
+    rng = np.random.default_rng(2017)
+    for _ in range(3):
+        x = rng.uniform(-1.0, 1.0, 4)
+        target = rng.uniform(-1.0, 1.0, 2)
+        Mx = model.steady_states().Mx
+        w = settings.offset_weight
+        theta = np.linalg.solve(Mx.T @ P @ Mx + w * np.eye(2), Mx.T @ P @ x + w * target)
+        x_s = Mx @ theta
+        expected = -K_lqr @ (x - x_s)
+        mpc.reset()
+        solution = mpc.solve(x, target)
+        assert solution.success, solution.status
+        np.testing.assert_allclose(solution.steady_state.position, theta, atol=1e-6)
+        np.testing.assert_allclose(solution.first_input, expected, atol=1e-6)
+
+
+# --- closed loops ---------------------------------------------------------------------------
+
+
+@pytest.mark.parametrize("make", MODELS)
+def test_closed_loop_reaches_a_reachable_target_within_limits(make):
+    """Tracking MPC property (Limon et al., Automatica 44(9), 2008, Theorem 1): for an
+    admissible target the closed loop converges to it; every limit holds on the way."""
+    model, settings = make()
+    rng = np.random.default_rng(44)
+    inner = Polygon(ORCHARD_BLOCK).buffer(-2.0)
+    starts = [(2.5, 2.5), (10.0, 3.0)]
+    for start in starts:
+        while True:
+            target = rng.uniform([0, 0], [14, 11])
+            if inner.contains(Point(target)) and 2.0 < np.linalg.norm(target - start) < 4.0:
+                break
+        x0 = _start_state(model, start, heading=float(rng.uniform(-np.pi, np.pi)))
+        x, failures, _ = _closed_loop(model, settings, x0, target, steps=180)
+        error = np.linalg.norm(model.position(x) - target)
+        assert error < REACHED_TOLERANCE, (start, target, error, failures)
+
+
+@pytest.mark.parametrize("make", MODELS)
+def test_closed_loop_settles_at_closest_admissible_point_for_target_outside(make):
+    """Tracking MPC property (Limon et al., Automatica 44(9), 2008, Theorem 1; IEEE TAC
+    63(11), 2018): an inadmissible target gives convergence to the admissible steady state
+    minimising the offset cost, here the projection of the target onto the region shrunk
+    by footprint + terminal-set extent. Reference projection: shapely (negative buffer of
+    a convex polygon = inward offset of its edges; nearest_points)."""
+    model, settings = make()
+    terminal = compute_terminal_ingredients(model, settings)
+    target = np.array([16.0, -3.0])
+    x0 = _start_state(model, (9.0, 4.0), heading=0.3)
+    x, _, controller = _closed_loop(model, settings, x0, target, steps=110, terminal=terminal)
+    shrink = model.footprint_radius + terminal.position_extent
+    admissible = Polygon(ORCHARD_BLOCK).buffer(-shrink)
+    expected = np.array(nearest_points(admissible, Point(target))[0].coords[0])
+    steady = controller.mpc.solve(x, target).steady_state.position
+    assert np.linalg.norm(steady - expected) < 1e-4
+    assert np.linalg.norm(model.position(x) - expected) < REACHED_TOLERANCE
+
+
+def test_rover_heading_wrap_from_odometry_does_not_disturb_the_loop():
+    """Odometry reports yaw wrapped to [-pi, pi) (REP 103 convention); a target behind a
+    rover facing along -x makes the heading cross +-pi. The controller must keep going as
+    if the heading were continuous (common practice: unwrap against the prediction)."""
+    path = REPO / "config" / "vehicles" / "differential_drive.yaml"
+    model, settings = _vehicle(path)
+    controller = RobotController(model, settings, REGION)
+    F = model.discrete_dynamics(settings.sample_time, settings.substeps)
+    x = _start_state(model, (8.0, 5.0), heading=np.pi - 0.05)
+    target = np.array([5.0, 3.0])
+    crossed = False
+    for _ in range(130):
+        measured = x.copy()
+        measured[2] = (x[2] + np.pi) % (2 * np.pi) - np.pi
+        crossed |= abs(measured[2] - x[2]) > 1.0
+        step = controller.step(measured, target)
+        assert step.success, step.status
+        x = np.array(F(measured, step.input)).reshape(-1)
+    assert np.linalg.norm(x[:2] - target) < REACHED_TOLERANCE
+
+
+# --- refusals and failures ------------------------------------------------------------------
+
+
+def test_ellipsoid_is_refused_for_a_model_not_stabilisable_at_rest():
+    model, settings = _vehicle(REPO / "config" / "vehicles" / "differential_drive.yaml")
+    with pytest.raises(ConfigError) as caught:
+        TrackingMpc(model, dataclasses.replace(settings, terminal="ellipsoid"), REGION)
+    text = str(caught.value)
+    assert "mpc.terminal" in text and "stabilis" in text and "equality" in text
+
+
+def test_bad_solver_settings_are_reported_together():
+    model, settings = _double_integrator()
+    bad = dataclasses.replace(settings, solver={"plugin": "nope", "max_iter": 0, "colour": 1})
+    with pytest.raises(ConfigError) as caught:
+        TrackingMpc(model, bad, REGION)
+    keys = {p.key for p in caught.value.problems}
+    assert {"mpc.solver", "mpc.solver.plugin", "mpc.solver.max_iter"} <= keys
+
+
+def test_solver_failure_brakes_when_there_is_no_plan():
+    """A real failure: one IPOPT iteration cannot converge from a cold start."""
+    model, settings = _vehicle(REPO / "config" / "vehicles" / "multirotor.yaml")
+    starved = dataclasses.replace(settings, solver={"max_iter": 1})
+    controller = RobotController(model, starved, REGION)
+    x = _start_state(model, (5.0, 5.0))
+    x[2:4] = (1.5, -1.0)
+    step = controller.step(x, np.array([9.0, 6.0]))
+    assert not step.success and step.used_fallback and step.fallback == FALLBACK_BRAKING
+    np.testing.assert_allclose(step.input, controller.admissible(model.braking_input(x)))
+    _assert_within_limits(model, x, step.input)
+
+
+def test_solver_failure_flies_the_previous_plan_then_brakes():
+    """A real failure: the robot is pushed outside the region (a gust), so no plan can
+    keep every predicted position inside: the problem is infeasible. The controller flies
+    the last plan one input per sample while it lasts, then brakes."""
+    model, settings = _vehicle(REPO / "config" / "vehicles" / "multirotor.yaml")
+    controller = RobotController(model, settings, REGION)
+    F = model.discrete_dynamics(settings.sample_time, settings.substeps)
+    x = _start_state(model, (6.0, 5.0))
+    target = np.array([3.0, 3.0])
+    for _ in range(5):
+        step = controller.step(x, target)
+        assert step.success
+        x = np.array(F(x, step.input)).reshape(-1)
+    plan = controller.mpc.solve(x, target)  # what the controller will hold on to
+    step = controller.step(x, target)
+    assert step.success
+    np.testing.assert_allclose(step.input, plan.first_input, atol=1e-6)
+    outside = _start_state(model, (6.0, -3.0))
+    outside[2:4] = (0.0, -2.5)
+    kinds = []
+    for k in range(1, settings.horizon + 2):
+        step = controller.step(outside, target)
+        assert not step.success and step.used_fallback
+        kinds.append(step.fallback)
+        if step.fallback == FALLBACK_PREVIOUS_PLAN:
+            np.testing.assert_allclose(step.input, plan.predicted_inputs[k], atol=1e-6)
+        u_lower, u_upper = model.input_bounds()
+        assert np.all(step.input >= u_lower) and np.all(step.input <= u_upper)
+    assert kinds == [FALLBACK_PREVIOUS_PLAN] * (settings.horizon - 1) + [FALLBACK_BRAKING] * 2
+
+
+def test_inputs_are_clipped_into_the_input_polytope():
+    model, settings = _vehicle(REPO / "config" / "vehicles" / "multirotor.yaml")
+    controller = RobotController(model, settings, REGION)
+    limits = input_limits(model)
+    for u in ([10.0, 10.0], [-3.0, 0.5], [np.nan, 1.0], [2.5, 2.5]):
+        clipped = controller.admissible(np.array(u))
+        assert np.all(limits.G @ clipped <= limits.g + 1e-12)
+    inside = np.array([0.3, -0.2])
+    np.testing.assert_array_equal(controller.admissible(inside), inside)
+
+
+def test_shapely_projection_reference_is_the_edge_offset():
+    """Sanity of the reference itself: for a convex polygon shapely's negative buffer
+    equals the intersection of the edges moved inwards (common practice)."""
+    A, b = REGION
+    d = 0.7
+    eroded = Polygon(ORCHARD_BLOCK).buffer(-d)
+    rng = np.random.default_rng(5)
+    points = rng.uniform([-2, -2], [16, 13], (400, 2))
+    inside_offset = np.all(points @ A.T <= b - d, axis=1)
+    inside_buffer = shapely.contains_xy(eroded, points[:, 0], points[:, 1])
+    assert np.mean(inside_offset == inside_buffer) > 0.99
