@@ -1,8 +1,9 @@
 """Heading conventions shared by the MPC and the terminal-ingredient tools.
 
-A model whose state has a heading (a state named `yaw`) keeps that heading continuous
-inside the controller: odometry arrives wrapped to [-pi, pi), and the controller shifts it by
-whole turns to stay next to its own prediction, so the optimiser never sees a 2 pi jump.
+A model's angle states (VehicleModel.angle_indices) stay continuous inside the MPC:
+odometry arrives wrapped to [-pi, pi), and the MPC shifts its warm start by whole turns to
+lie next to the measured angle, so the optimiser never sees a 2 pi jump. The first angle
+state is the heading.
 
 The terminal set of such a model is computed once at heading 0 and used at any steady
 heading psi_s by expressing the error x - x_s in the steady state's own frame (position error
@@ -21,15 +22,10 @@ import numpy as np
 
 from coverage_fleet.vehicles.base import VehicleModel
 
-HEADING_STATE_NAMES = ("yaw",)
-
 
 def heading_index(model: VehicleModel) -> int | None:
-    """Index of the heading state, None for models without one."""
-    for i, name in enumerate(model.state_names):
-        if name in HEADING_STATE_NAMES:
-            return i
-    return None
+    """Index of the heading state (the first angle state), None for models without one."""
+    return model.angle_indices[0] if model.angle_indices else None
 
 
 def steady_frame_error(

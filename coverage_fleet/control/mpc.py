@@ -69,6 +69,13 @@ DEFAULT_PLUGIN = "ipopt"
 FATROP_EQUALITY_TOLERANCE = 1e-6
 SOLVER_KEYS = ("plugin", "max_iter", "options")
 DEFAULT_MAX_ITER = 100
+#: A plan whose positions and steady state stay within this of the robot counts as "not
+#: moving" (metres); see TrackingMpc._stalled.
+STALL_DISTANCE = 0.01
+#: ... while the steady state is farther than this from the target (metres).
+STALL_OFFSET = 0.02
+#: How far the second-start guess drives towards the target (metres).
+ESCAPE_DISTANCE = 1.0
 
 
 @dataclass(frozen=True)
@@ -212,7 +219,6 @@ class TrackingMpc:
         family = model.steady_states()
         self._Mx, self._x0s = np.asarray(family.Mx, float), np.asarray(family.x0, float)
         self._Mu, self._u0s = np.asarray(family.Mu, float), np.asarray(family.u0, float)
-        self._heading_parameter = self._find_heading_parameter()
         self.Q, self.R = stage_weights(model, settings)
         self.footprint_radius = float(model.footprint_radius)
         #: Offsets of the region every predicted position must keep (shrunk by footprint).
@@ -229,12 +235,6 @@ class TrackingMpc:
         self._lam_x: np.ndarray | None = None
 
     # --- construction ------------------------------------------------------------------
-
-    def _find_heading_parameter(self) -> int | None:
-        if self.heading is None:
-            return None
-        column = np.nonzero(np.abs(self._Mx[self.heading]) > 0)[0]
-        return int(column[0]) if len(column) == 1 else None
 
     def _build(self, plugin: str) -> None:
         """Stage-wise NLP: stage k holds z_k = (x_k, theta_k) and u_k; theta is carried as a
@@ -385,31 +385,47 @@ class TrackingMpc:
         inputs = np.vstack([inputs[1:], inputs[-1:]])
         return self._pack(states, inputs, theta)
 
-    def _align_heading(self, w: np.ndarray, x0: np.ndarray) -> np.ndarray:
-        """Shift the guess by whole turns so its heading matches the measured one."""
-        if self.heading is None:
-            return w
+    def _align_angles(self, w: np.ndarray, x0: np.ndarray) -> np.ndarray:
+        """Shift the guess by whole turns so its angles match the measured ones."""
         states, inputs, theta = self._unpack(w)
-        turns = np.round((x0[self.heading] - states[0, self.heading]) / (2 * np.pi))
-        if turns == 0:
-            return w
-        states = states.copy()
-        states[:, self.heading] += 2 * np.pi * turns
-        theta = theta.copy()
-        if self._heading_parameter is not None:
-            scale = self._Mx[self.heading, self._heading_parameter]
-            theta[self._heading_parameter] += 2 * np.pi * turns / scale
+        changed = False
+        for index in self.model.angle_indices:
+            turns = np.round((x0[index] - states[0, index]) / (2 * np.pi))
+            if turns == 0:
+                continue
+            changed = True
+            states[:, index] += 2 * np.pi * turns
+            column = np.nonzero(np.abs(self._Mx[index]) > 0)[0]
+            if len(column) == 1:
+                theta[column[0]] += 2 * np.pi * turns / self._Mx[index, column[0]]
+        return self._pack(states, inputs, theta) if changed else w
+
+    def _escape_guess(self, x0: np.ndarray, target: np.ndarray) -> np.ndarray | None:
+        """A guess that drives ESCAPE_DISTANCE towards the target (heading along the way),
+        or None when that steady position would not be admissible."""
+        p0 = self.model.position(x0)
+        offset = target - p0
+        distance = float(np.linalg.norm(offset))
+        goal = p0 + offset * min(1.0, ESCAPE_DISTANCE / distance)
+        if np.any(self.region_A @ goal > self.steady_region_b):
+            return None
+        i, j = self.model.position_indices
+        fractions = np.linspace(0.0, 1.0, self.horizon + 1)
+        states = np.tile(x0, (self.horizon + 1, 1))
+        states[:, i] = p0[0] + fractions * (goal[0] - p0[0])
+        states[:, j] = p0[1] + fractions * (goal[1] - p0[1])
+        x_goal = states[-1].copy()
+        if self.heading is not None:
+            along = np.arctan2(offset[1], offset[0])
+            along = x0[self.heading] + (along - x0[self.heading] + np.pi) % (2 * np.pi) - np.pi
+            states[1:, self.heading] = along
+            x_goal[self.heading] = along
+        theta, *_ = np.linalg.lstsq(self._Mx, x_goal - self._x0s, rcond=None)
+        states[-1] = self._Mx @ theta + self._x0s
+        inputs = np.tile(self._Mu @ theta + self._u0s, (self.horizon, 1))
         return self._pack(states, inputs, theta)
 
-    def solve(self, x0: np.ndarray, target_xy: np.ndarray) -> MpcSolution:
-        x0 = np.asarray(x0, dtype=float).reshape(-1)
-        target = np.asarray(target_xy, dtype=float).reshape(2)
-        guess = self._cold_guess(x0) if self._guess is None else self._guess
-        guess = self._align_heading(guess, x0)
-        states, inputs, theta = self._unpack(guess)
-        states = states.copy()
-        states[0] = x0
-        guess = self._pack(states, inputs, theta)
+    def _run(self, guess: np.ndarray, x0: np.ndarray, target: np.ndarray, warm_duals: bool):
         arguments: dict[str, Any] = {
             "x0": guess,
             "p": np.concatenate([x0, target]),
@@ -418,15 +434,51 @@ class TrackingMpc:
             "lbg": self._lbg,
             "ubg": self._ubg,
         }
-        if self._lam_g is not None:
+        if warm_duals and self._lam_g is not None:
             arguments["lam_g0"] = self._lam_g
             arguments["lam_x0"] = self._lam_x
         started = time.perf_counter()
         result = self._solver(**arguments)
-        solve_time = time.perf_counter() - started
+        elapsed = time.perf_counter() - started
         stats = self._solver.stats()
+        return result, stats, elapsed
+
+    def _stalled(self, w: np.ndarray, x0: np.ndarray, target: np.ndarray) -> bool:
+        """Resting on a stationary point short of the target: the plan and the steady state
+        stay where the robot is. Happens with nonholonomic models started at rest (at zero
+        speed steering has no first-order effect, so "stay" satisfies the optimality
+        conditions); a second start from a guess that moves breaks the symmetry."""
+        states, _, theta = self._unpack(w)
+        p0 = self.model.position(x0)
+        p_s = self.model.position(self._Mx @ theta + self._x0s)
+        motion = np.abs(states[:, list(self.model.position_indices)] - p0).max()
+        return (
+            motion < STALL_DISTANCE
+            and np.linalg.norm(p_s - p0) < STALL_DISTANCE
+            and np.linalg.norm(p_s - target) > STALL_OFFSET
+        )
+
+    def solve(self, x0: np.ndarray, target_xy: np.ndarray) -> MpcSolution:
+        x0 = np.asarray(x0, dtype=float).reshape(-1)
+        target = np.asarray(target_xy, dtype=float).reshape(2)
+        guess = self._cold_guess(x0) if self._guess is None else self._guess
+        guess = self._align_angles(guess, x0)
+        states, inputs, theta = self._unpack(guess)
+        states[0] = x0
+        guess = self._pack(states, inputs, theta)
+        result, stats, solve_time = self._run(guess, x0, target, warm_duals=True)
+        iterations = int(stats.get("iter_count", 0))
         success = bool(stats.get("success", False))
         w = np.asarray(result["x"], dtype=float).reshape(-1)
+        if success and self._stalled(w, x0, target):
+            escape = self._escape_guess(x0, target)
+            if escape is not None:
+                retry, retry_stats, retry_time = self._run(escape, x0, target, warm_duals=False)
+                solve_time += retry_time
+                iterations += int(retry_stats.get("iter_count", 0))
+                if retry_stats.get("success") and float(retry["f"]) < float(result["f"]) - 1e-9:
+                    result, stats = retry, retry_stats
+                    w = np.asarray(result["x"], dtype=float).reshape(-1)
         if success:
             self._guess = self._shifted(w)
             self._lam_g = np.asarray(result["lam_g"], dtype=float).reshape(-1)
@@ -445,6 +497,6 @@ class TrackingMpc:
             steady_state=steady,
             status=str(stats.get("return_status", "unknown")),
             success=success,
-            iterations=int(stats.get("iter_count", 0)),
+            iterations=iterations,
             solve_time=solve_time,
         )
