@@ -25,13 +25,21 @@ Headings stay continuous (frames.py); the steady heading is a free parameter.
 
 from __future__ import annotations
 
+import hashlib
+import os
+import shutil
+import subprocess
+import tempfile
+import threading
 import time
 from dataclasses import dataclass
+from pathlib import Path
 from typing import Any
 
 import casadi as ca
 import numpy as np
 
+from coverage_fleet.control.cache import cache_root, write_atomically
 from coverage_fleet.control.frames import heading_index, steady_frame_error
 from coverage_fleet.control.ingredients import TerminalIngredients
 from coverage_fleet.control.limits import input_limits, state_limits, steady_limits
@@ -62,12 +70,14 @@ SOLVER_DEFAULTS: dict[str, dict[str, Any]] = {
         "fatrop.tol": 1e-5,
     },
 }
-DEFAULT_PLUGIN = "ipopt"
+DEFAULT_PLUGIN = "fatrop"
 #: fatrop (casadi 3.6/3.7 builds) can stall inside an iteration when equality rows at the
 #: terminal stage outnumber the inputs near a converged warm start; with fatrop the terminal
 #: equality is therefore imposed as |x_N - x_s| <= this (metres / radians / m/s).
 FATROP_EQUALITY_TOLERANCE = 1e-6
-SOLVER_KEYS = ("plugin", "max_iter", "options")
+SOLVER_KEYS = ("plugin", "max_iter", "options", "compile")
+#: Plugin that re-solves a sample another plugin failed on (from the same warm start).
+RESCUE_PLUGIN = "ipopt"
 DEFAULT_MAX_ITER = 100
 #: A plan whose positions and steady state stay within this of the robot counts as "not
 #: moving" (metres); see TrackingMpc._stalled.
@@ -176,9 +186,52 @@ def settings_problems(model: VehicleModel, settings: MpcSettings) -> list[Proble
     max_iter = settings.solver.get("max_iter", DEFAULT_MAX_ITER)
     if isinstance(max_iter, bool) or not isinstance(max_iter, int) or max_iter < 1:
         problems.append(Problem(source, "mpc.solver.max_iter", "must be a positive integer"))
+    if not isinstance(settings.solver.get("compile", False), bool):
+        problems.append(Problem(source, "mpc.solver.compile", "must be true or false"))
     if not isinstance(settings.solver.get("options", {}), dict):
         problems.append(Problem(source, "mpc.solver.options", "must be a mapping"))
     return problems
+
+
+_CODEGEN_LOCK = threading.Lock()
+
+
+def compiled_library(solver: ca.Function) -> Path:
+    """The solver's problem functions (cost, constraints, derivatives) as C, compiled into a
+    shared library in the cache, keyed by the generated source, so it is compiled once per
+    problem shape. casadi then loads it instead of evaluating its expression graphs."""
+    compiler = os.environ.get("CC", "cc")
+    if shutil.which(compiler) is None:
+        raise ConfigError.single(
+            "<environment>",
+            "mpc.solver.compile",
+            f"no C compiler '{compiler}' found (set CC, or compile: false)",
+        )
+    with tempfile.TemporaryDirectory() as folder:
+        # casadi writes generated code to the working directory (it takes no path).
+        with _CODEGEN_LOCK:
+            here = os.getcwd()
+            try:
+                os.chdir(folder)
+                solver.generate_dependencies("tracking_mpc.c")
+            finally:
+                os.chdir(here)
+        source = Path(folder, "tracking_mpc.c").read_bytes()
+        key = hashlib.sha256(source + ca.__version__.encode()).hexdigest()[:24]
+        library = cache_root() / "mpc" / f"{key}.so"
+        if library.is_file():
+            return library
+        built = Path(folder, "tracking_mpc.so")
+        command = [compiler, "-O1", "-shared", "-fPIC", str(Path(folder, "tracking_mpc.c"))]
+        done = subprocess.run([*command, "-o", str(built)], capture_output=True, text=True)
+        if done.returncode != 0:
+            raise ConfigError.single(
+                "<environment>", "mpc.solver.compile", f"compiling failed: {done.stderr[:400]}"
+            )
+        if not write_atomically(library, built.read_bytes()):
+            library = Path(tempfile.mkdtemp()) / f"{key}.so"
+            library.write_bytes(built.read_bytes())
+    return library
 
 
 class TrackingMpc:
@@ -343,13 +396,22 @@ class TrackingMpc:
         self._lbw, self._ubw = np.concatenate(lbw), np.concatenate(ubw)
         self._lbg, self._ubg = np.concatenate(lbg), np.concatenate(ubg)
         self._nz = nz
+        self._solver = self._make_solver(plugin, nlp)
+        if settings.solver.get("compile", False):
+            library = compiled_library(self._solver)
+            self._solver = self._make_solver(plugin, str(library))
+        #: A more forgiving solver for the samples the fast one fails on.
+        self._rescue = self._make_solver(RESCUE_PLUGIN, nlp) if plugin != RESCUE_PLUGIN else None
+
+    def _make_solver(self, plugin: str, nlp: dict[str, ca.SX] | str) -> ca.Function:
         options = dict(SOLVER_DEFAULTS[plugin])
-        max_iter = int(settings.solver.get("max_iter", DEFAULT_MAX_ITER))
+        max_iter = int(self.settings.solver.get("max_iter", DEFAULT_MAX_ITER))
         options[f"{plugin}.max_iter"] = max_iter
         if plugin == "fatrop":
             options["equality"] = [bool(v) for v in self._lbg == self._ubg]
-        options.update(settings.solver.get("options", {}))
-        self._solver = ca.nlpsol("tracking_mpc", plugin, nlp, options)
+        if plugin == self.plugin:
+            options.update(self.settings.solver.get("options", {}))
+        return ca.nlpsol(f"tracking_mpc_{plugin}", plugin, nlp, options)
 
     # --- solving -----------------------------------------------------------------------
 
@@ -440,7 +502,16 @@ class TrackingMpc:
         started = time.perf_counter()
         result = self._solver(**arguments)
         elapsed = time.perf_counter() - started
-        stats = self._solver.stats()
+        stats = dict(self._solver.stats())
+        if not stats.get("success") and self._rescue is not None:
+            first = f"{self.plugin}: {stats.get('return_status', 'failed')}"
+            iterations = int(stats.get("iter_count", 0))
+            started = time.perf_counter()
+            result = self._rescue(**arguments)
+            elapsed += time.perf_counter() - started
+            stats = dict(self._rescue.stats())
+            stats["return_status"] = f"{first}; {RESCUE_PLUGIN}: {stats.get('return_status')}"
+            stats["iter_count"] = iterations + int(stats.get("iter_count", 0))
         return result, stats, elapsed
 
     def _stalled(self, w: np.ndarray, x0: np.ndarray, target: np.ndarray) -> bool:

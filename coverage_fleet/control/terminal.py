@@ -34,8 +34,6 @@ Results are cached by vehicle-file content (terminal_for_vehicle).
 from __future__ import annotations
 
 import json
-import os
-import tempfile
 from pathlib import Path
 
 import casadi as ca
@@ -43,6 +41,7 @@ import numpy as np
 import scipy.linalg
 import scipy.optimize
 
+from coverage_fleet.control.cache import cache_root, write_atomically
 from coverage_fleet.control.frames import heading_index, rotation_transform
 from coverage_fleet.control.ingredients import TerminalIngredients
 from coverage_fleet.control.limits import LinearLimits, input_limits, state_limits, steady_limits
@@ -54,7 +53,6 @@ from coverage_fleet.vehicles.settings import MpcSettings
 
 #: Bump when the method changes: cached results of an older method are not reused.
 METHOD_VERSION = 1
-CACHE_ENV = "COVERAGE_FLEET_CACHE"
 STABILISABILITY_TOLERANCE = 1e-9
 EQUIVARIANCE_TOLERANCE = 1e-8
 _BOUNDARY_SAMPLES = 3000
@@ -349,9 +347,7 @@ def compute_terminal_ingredients(
 
 def cache_directory() -> Path:
     """$COVERAGE_FLEET_CACHE/terminal, else ~/.cache/coverage_fleet/terminal."""
-    root = os.environ.get(CACHE_ENV)
-    base = Path(root) if root else Path.home() / ".cache" / "coverage_fleet"
-    return base / "terminal"
+    return cache_root() / "terminal"
 
 
 def cache_path(content_hash: str) -> Path:
@@ -372,16 +368,5 @@ def terminal_for_vehicle(
         except (ValueError, KeyError, TypeError):
             pass  # unreadable entry: recompute and overwrite
     ingredients = compute_terminal_ingredients(spec.model, spec.mpc, spec.content_hash)
-    _write_atomically(path, json.dumps(ingredients.to_json(), indent=1))
+    write_atomically(path, json.dumps(ingredients.to_json(), indent=1).encode())
     return ingredients, False
-
-
-def _write_atomically(path: Path, text: str) -> None:
-    try:
-        path.parent.mkdir(parents=True, exist_ok=True)
-        handle, temporary = tempfile.mkstemp(dir=path.parent, suffix=".tmp")
-        with os.fdopen(handle, "w") as stream:
-            stream.write(text)
-        os.replace(temporary, path)
-    except OSError:
-        pass  # a cache that cannot be written only costs a recomputation
