@@ -152,14 +152,17 @@ class ReferenceGate:
 
     @property
     def converged(self) -> bool:
-        """Every robot has reported for the current generation and is within the settle
-        distance of its target."""
+        """The fleet is at rest: every robot has reported for the current generation and is
+        within the settle distance of its target, and the gate is shut (nobody is closer by
+        the progress tolerance, so the targets are within settle_distance +
+        progress_tolerance of the centroids they were computed from)."""
         if self.generation < 0 or self._roster_changed or not self._robots:
             return False
         settle = self.settings.settle_distance
-        return all(
+        near = all(
             self._distance_now.get(name, np.inf) <= settle for name in self._distance_at_commit
         )
+        return near and not self.ready_to_open()
 
     # --- opening ------------------------------------------------------------------------
 
