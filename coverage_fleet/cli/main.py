@@ -18,6 +18,8 @@ COMMAND_MODULES = [
     "coverage_fleet.cli.demo_command",
     "coverage_fleet.cli.vehicle_command",
     "coverage_fleet.cli.terminal_command",
+    "coverage_fleet.cli.simulate_command",
+    "coverage_fleet.cli.batch_command",
 ]
 
 EXIT_BAD_INPUT = 2

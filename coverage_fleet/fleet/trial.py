@@ -13,7 +13,7 @@ Layout of a trial directory:
     fleet.csv             time, generation, cost, largest_distance
     robots/<name>.csv     time, generation, <state names>, <input names>, target_x, target_y,
                           distance, no_farther, closer, controller_ran, solve_time, status,
-                          solver_ok
+                          solver_ok, fallback
     gate_openings.csv     generation, time, reason, cost, robot, position_x, position_y,
                           target_x, target_y, distance
     violations.csv        time, robot, limit, value, bound
@@ -59,6 +59,8 @@ class RobotLog:
     solve_time: list[float] = field(default_factory=list)
     status: list[str] = field(default_factory=list)
     solver_ok: list[bool] = field(default_factory=list)
+    #: What the controller applied instead of a solution: "", "previous plan" or "braking".
+    fallback: list[str] = field(default_factory=list)
 
     def positions(self) -> np.ndarray:
         """(T, 2) positions over the run."""
@@ -157,6 +159,7 @@ def write_log(directory: Path, log: TrialLog) -> None:
             "solve_time",
             "status",
             "solver_ok",
+            "fallback",
         ]
         rows = []
         for k in range(len(robot.time)):
@@ -174,6 +177,7 @@ def write_log(directory: Path, log: TrialLog) -> None:
                     robot.solve_time[k],
                     robot.status[k],
                     robot.solver_ok[k],
+                    robot.fallback[k] if k < len(robot.fallback) else "",
                 ]
             )
         _write_csv(robots_dir / f"{name}.csv", header, rows)

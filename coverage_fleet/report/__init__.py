@@ -1,0 +1,34 @@
+"""Trial report: PNG figures and metrics.json for one trial (fleet and below, matplotlib)."""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+from typing import Any
+
+from coverage_fleet.fleet.trial import TrialLog
+from coverage_fleet.geometry.density import Density
+from coverage_fleet.geometry.region import ConvexRegion
+
+FIGURES = ("trajectories.png", "cost.png", "distances.png", "solve_times.png")
+
+
+def write_report(
+    directory: str | Path,
+    log: TrialLog,
+    region: ConvexRegion,
+    density: Density,
+    settle_distance: float,
+) -> dict[str, Any]:
+    """Write metrics.json and the figures into `directory`; returns the metrics."""
+    from coverage_fleet.report import figures
+    from coverage_fleet.report.metrics import trial_metrics
+
+    directory = Path(directory)
+    metrics = trial_metrics(log, region, density)
+    (directory / "metrics.json").write_text(json.dumps(metrics, indent=2) + "\n")
+    figures.plot_trajectories(directory / "trajectories.png", log, region, density)
+    figures.plot_cost(directory / "cost.png", log)
+    figures.plot_distances(directory / "distances.png", log, settle_distance)
+    figures.plot_solve_times(directory / "solve_times.png", log)
+    return metrics

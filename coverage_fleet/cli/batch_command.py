@@ -1,0 +1,107 @@
+"""`coverage-fleet batch MISSION --seeds N`: the mission over many seeds from random valid
+initial poses; a table on stdout and a JSON summary."""
+
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import sys
+from datetime import UTC, datetime
+from pathlib import Path
+from typing import Any
+
+from coverage_fleet.errors import ConfigError
+from coverage_fleet.fleet.batch import run_batch, summarise
+from coverage_fleet.fleet.mission import load_mission
+from coverage_fleet.report.metrics import trial_metrics
+
+COLUMNS = (
+    ("seed", "seed", "{:>4}"),
+    ("settled", "at rest", "{!s:>7}"),
+    ("settled_time_s", "rest (s)", "{:>8.1f}"),
+    ("generations", "gens", "{:>4}"),
+    ("final_cost", "final cost", "{:>11.5g}"),
+    ("final_largest_distance_to_centroid_m", "max dist (m)", "{:>12.3g}"),
+    ("limit_violations", "limits", "{:>6}"),
+    ("solver_failures", "fails", "{:>5}"),
+    ("wall_time_s", "wall (s)", "{:>8.1f}"),
+)
+SUMMARY_KEYS = (
+    "settled_time_s",
+    "generations",
+    "final_cost",
+    "final_largest_distance_to_centroid_m",
+    "limit_violations",
+    "solver_failures",
+    "wall_time_s",
+)
+
+
+def table_header() -> str:
+    return "  ".join(f"{title:>{max(len(title), 4)}}" for _, title, _ in COLUMNS)
+
+
+def table_row(row: dict[str, Any]) -> str:
+    cells = []
+    for key, title, fmt in COLUMNS:
+        value = row.get(key)
+        text = "-" if value is None else fmt.format(value).strip()
+        cells.append(f"{text:>{max(len(title), 4)}}")
+    return "  ".join(cells)
+
+
+def register(subparsers: argparse._SubParsersAction) -> None:
+    parser = subparsers.add_parser(
+        "batch",
+        help="simulate a mission over many seeds from random initial poses and summarise",
+    )
+    parser.add_argument("mission", type=Path, help="mission file (YAML)")
+    parser.add_argument("--seeds", type=int, required=True, help="number of runs")
+    parser.add_argument("--first-seed", type=int, default=0, help="seed of the first run")
+    parser.add_argument("--duration", type=float, help="simulated seconds per run")
+    parser.add_argument(
+        "--json",
+        type=Path,
+        help="summary file to write (default: trials/<mission>-batch-<UTC time>.json)",
+    )
+    parser.set_defaults(handler=run)
+
+
+def run(args: argparse.Namespace) -> int:
+    mission = load_mission(args.mission)
+    if args.seeds < 1:
+        raise ConfigError.single("command line", "--seeds", f"must be >= 1, got {args.seeds}")
+    if args.duration is not None and not args.duration > 0:
+        raise ConfigError.single("command line", "--duration", f"must be > 0, got {args.duration}")
+    stamp = datetime.now(UTC).strftime("%Y%m%dT%H%M%SZ")
+    out = args.json or Path("trials") / f"{mission.name}-batch-{stamp}.json"
+    if out.exists():
+        raise ConfigError.single(
+            str(out), "--json", "already exists; a summary is never overwritten"
+        )
+    seeds = list(range(args.first_seed, args.first_seed + args.seeds))
+    print(table_header())
+
+    def show(seed: int, row: dict[str, Any]) -> None:
+        print(table_row(row), flush=True)
+        print(f"batch: run {seeds.index(seed) + 1}/{len(seeds)} done", file=sys.stderr)
+
+    rows = run_batch(
+        mission,
+        seeds,
+        duration=args.duration,
+        metrics=lambda log: trial_metrics(log, mission.region, mission.density),
+        on_run=show,
+    )
+    summary = summarise(rows, SUMMARY_KEYS)
+    print("summary over", len(rows), "runs:")
+    for key, stats in summary.items():
+        print(f"  {key}: mean {stats['mean']:.4g}  min {stats['min']:.4g}  max {stats['max']:.4g}")
+    document = {"mission": str(mission.source), "seeds": seeds, "summary": summary, "runs": rows}
+    out.parent.mkdir(parents=True, exist_ok=True)
+    staging = out.with_name(f".{out.name}.partial")
+    staging.write_text(json.dumps(document, indent=2) + "\n")
+    os.replace(staging, out)
+    print(f"summary written to {out}")
+    return 0

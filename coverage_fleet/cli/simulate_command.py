@@ -1,0 +1,151 @@
+"""`coverage-fleet simulate MISSION`: run a mission offline to completion and write a trial
+directory (log, mission as run, report)."""
+
+from __future__ import annotations
+
+import argparse
+import sys
+import time
+from datetime import UTC, datetime
+from pathlib import Path
+from typing import Any, TextIO
+
+from coverage_fleet.errors import ConfigError
+from coverage_fleet.fleet.mission import Mission, load_mission, mission_as_run
+from coverage_fleet.fleet.simulation import StepInfo, simulate_mission
+from coverage_fleet.fleet.trial import TrialLog, write_trial
+from coverage_fleet.report import write_report
+
+SAFETY_NOTE = (
+    "Offline plan only: before real trials check the plan with qualified operators, keep an "
+    "emergency stop within reach, enforce a geofence on each robot and follow local rules."
+)
+
+
+class ProgressBar:
+    """Plain-text progress on a stream: rewrites one line on a terminal, otherwise prints a
+    line every tenth of the run."""
+
+    def __init__(self, label: str, stream: TextIO | None = None, width: int = 24) -> None:
+        self.label = label
+        self.stream = stream or sys.stderr
+        self.width = width
+        self.interactive = bool(getattr(self.stream, "isatty", lambda: False)())
+        self._last_wall = 0.0
+        self._last_decile = -1
+
+    def __call__(self, info: StepInfo) -> None:
+        fraction = min(1.0, info.time / info.duration) if info.duration > 0 else 1.0
+        if self.interactive:
+            now = time.monotonic()
+            if now - self._last_wall < 0.2 and fraction < 1.0:
+                return
+            self._last_wall = now
+        else:
+            decile = int(fraction * 10)
+            if decile == self._last_decile:
+                return
+            self._last_decile = decile
+        filled = round(fraction * self.width)
+        bar = "#" * filled + "-" * (self.width - filled)
+        line = (
+            f"{self.label} [{bar}] t={info.time:7.1f}/{info.duration:.1f} s  "
+            f"cost={info.cost:.4g}  generation {info.generation}"
+        )
+        if self.interactive:
+            self.stream.write("\r" + line)
+        else:
+            self.stream.write(line + "\n")
+        self.stream.flush()
+
+    def finish(self, message: str) -> None:
+        if self.interactive:
+            self.stream.write("\n")
+        self.stream.write(f"{self.label}: {message}\n")
+        self.stream.flush()
+
+
+def default_trial_directory(mission: Mission, seed: int) -> Path:
+    stamp = datetime.now(UTC).strftime("%Y%m%dT%H%M%SZ")
+    return Path("trials") / f"{mission.name}-seed{seed}-{stamp}"
+
+
+def check_output_free(out: Path) -> None:
+    if out.exists():
+        raise ConfigError.single(str(out), "--out", "already exists; a trial is never overwritten")
+
+
+def simulate_to_trial(
+    mission: Mission,
+    out: Path,
+    seed: int | None = None,
+    duration: float | None = None,
+    progress: ProgressBar | None = None,
+) -> tuple[Path, TrialLog, dict[str, Any]]:
+    """Simulate the mission and write its trial directory; returns (path, log, metrics)."""
+    check_output_free(out)
+    log = simulate_mission(mission, seed=seed, duration=duration, on_step=progress)
+    metrics: dict[str, Any] = {}
+
+    def report(directory: Path) -> None:
+        metrics.update(
+            write_report(
+                directory, log, mission.region, mission.density, mission.gate.settle_distance
+            )
+        )
+
+    as_run = mission_as_run(mission, seed=log.seed, duration=log.duration)
+    path = write_trial(out, as_run, log, report=report)
+    return path, log, metrics
+
+
+def summary_lines(metrics: dict[str, Any]) -> list[str]:
+    settled = (
+        f"at rest after {metrics['settled_time_s']:.1f} s"
+        if metrics["settled"]
+        else f"NOT at rest after {metrics['simulated_time_s']:.1f} s"
+    )
+    return [
+        f"fleet {settled}; {metrics['generations']} generations",
+        f"final cost {metrics['final_cost']:.6g}; largest distance to a cell centroid "
+        f"{metrics['final_largest_distance_to_centroid_m']:.3g} m",
+        f"limit violations {metrics['limit_violations']}; solver failures "
+        f"{metrics['solver_failures']}",
+    ]
+
+
+def register(subparsers: argparse._SubParsersAction) -> None:
+    parser = subparsers.add_parser(
+        "simulate",
+        help="simulate a mission offline and write a trial directory with a report",
+        description="Simulate a mission offline (closed loop: partition, reference gate, one "
+        "MPC per robot) and write a trial directory: CSV logs, the mission as run, a report.",
+    )
+    parser.add_argument("mission", type=Path, help="mission file (YAML)")
+    parser.add_argument(
+        "--out",
+        type=Path,
+        help="trial directory to create (default: trials/<mission>-seed<N>-<UTC time>)",
+    )
+    parser.add_argument("--seed", type=int, help="noise seed (default: the mission's)")
+    parser.add_argument("--duration", type=float, help="simulated seconds (default: the mission's)")
+    parser.set_defaults(handler=run)
+
+
+def run(args: argparse.Namespace) -> int:
+    mission = load_mission(args.mission)
+    if args.duration is not None and not args.duration > 0:
+        raise ConfigError.single("command line", "--duration", f"must be > 0, got {args.duration}")
+    if args.seed is not None and args.seed < 0:
+        raise ConfigError.single("command line", "--seed", f"must be >= 0, got {args.seed}")
+    seed = mission.simulation.seed if args.seed is None else args.seed
+    out = args.out or default_trial_directory(mission, seed)
+    progress = ProgressBar("simulate")
+    path, _, metrics = simulate_to_trial(mission, out, seed, args.duration, progress)
+    progress.finish("done")
+    for line in summary_lines(metrics):
+        print(line)
+    print(SAFETY_NOTE)
+    print(f"trial written to {path}")
+    print(f"report: {path / 'report'}")
+    return 0

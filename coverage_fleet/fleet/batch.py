@@ -1,0 +1,90 @@
+"""Many runs of one mission over seeds, each from random valid initial poses."""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Callable
+from typing import Any
+
+import numpy as np
+
+from coverage_fleet.errors import ConfigError
+from coverage_fleet.fleet.mission import Mission
+from coverage_fleet.fleet.simulation import simulate_mission
+from coverage_fleet.fleet.trial import TrialLog
+
+#: Draws per robot before giving up on placing it (a crowded region cannot hold the fleet).
+MAX_DRAWS_PER_ROBOT = 2000
+
+
+def random_initial_poses(
+    mission: Mission, rng: np.random.Generator
+) -> dict[str, tuple[float, float, float]]:
+    """Uniformly random poses inside the region (footprint discs inside), apart by the
+    robots' footprints, with uniformly random headings (rejection sampling)."""
+    x0, y0, x1, y1 = mission.region.bounds
+    A, b = mission.region.halfspaces()
+    placed: dict[str, tuple[float, float, float]] = {}
+    radii: dict[str, float] = {}
+    for entry in mission.roster:
+        radius = entry.footprint_radius
+        for _ in range(MAX_DRAWS_PER_ROBOT):
+            point = np.array([rng.uniform(x0, x1), rng.uniform(y0, y1)])
+            if np.any(A @ point > b - radius):
+                continue
+            if any(
+                math.dist(point, other[:2]) < radius + radii[name] for name, other in placed.items()
+            ):
+                continue
+            placed[entry.name] = (
+                float(point[0]),
+                float(point[1]),
+                float(rng.uniform(-np.pi, np.pi)),
+            )
+            radii[entry.name] = radius
+            break
+        else:
+            raise ConfigError.single(
+                str(mission.source),
+                "roster",
+                f"could not place {entry.name!r} at random: the region is too crowded for "
+                "the fleet's footprints",
+            )
+    return placed
+
+
+def run_batch(
+    mission: Mission,
+    seeds: list[int],
+    duration: float | None = None,
+    metrics: Callable[[TrialLog], dict[str, Any]] | None = None,
+    on_run: Callable[[int, dict[str, Any]], None] | None = None,
+) -> list[dict[str, Any]]:
+    """One simulation per seed from random initial poses drawn with that seed; returns one
+    metrics mapping per run (`metrics(log)`, plus seed and initial poses)."""
+    rows = []
+    for seed in seeds:
+        poses = random_initial_poses(mission, np.random.default_rng(seed))
+        log = simulate_mission(mission, seed=seed, duration=duration, initial_poses=poses)
+        row = dict(metrics(log)) if metrics is not None else {}
+        row["seed"] = seed
+        row["initial_poses"] = {n: list(p) for n, p in poses.items()}
+        rows.append(row)
+        if on_run is not None:
+            on_run(seed, row)
+    return rows
+
+
+def summarise(rows: list[dict[str, Any]], keys: tuple[str, ...]) -> dict[str, dict[str, float]]:
+    """Mean, min and max of each numeric key over the runs (None entries are skipped)."""
+    summary = {}
+    for key in keys:
+        values = [float(r[key]) for r in rows if r.get(key) is not None]
+        if values:
+            summary[key] = {
+                "mean": float(np.mean(values)),
+                "min": float(np.min(values)),
+                "max": float(np.max(values)),
+                "runs": len(values),
+            }
+    return summary

@@ -1,0 +1,154 @@
+"""PNG figures of a trial (matplotlib, Agg backend: no display needed)."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import matplotlib
+
+matplotlib.use("Agg")
+
+import matplotlib.pyplot as plt
+import numpy as np
+from matplotlib.colors import LinearSegmentedColormap
+from matplotlib.path import Path as PolygonPath
+
+from coverage_fleet.fleet.trial import TrialLog
+from coverage_fleet.geometry.density import Density
+from coverage_fleet.geometry.partition import compute_partition
+from coverage_fleet.geometry.region import ConvexRegion
+
+#: Robot colours: a hand-picked set of strong hues that stay apart on a pale background.
+ROBOT_COLOURS = (
+    "#c0392b",
+    "#1f6fb2",
+    "#e08e0b",
+    "#2e8b57",
+    "#8e44ad",
+    "#d35c9e",
+    "#4a4a4a",
+    "#17a2b8",
+    "#7d5a1e",
+    "#6b8e23",
+)
+#: Density background: white to a muted amber, kept pale so robots and cells stay readable.
+DENSITY_COLOURMAP = LinearSegmentedColormap.from_list(
+    "coverage_fleet_density", ["#ffffff", "#fbeed3", "#f0c987", "#d99a4e"]
+)
+DPI = 120
+
+
+def robot_colour(index: int) -> str:
+    return ROBOT_COLOURS[index % len(ROBOT_COLOURS)]
+
+
+def _density_grid(region: ConvexRegion, density: Density, cells: int = 160):
+    x0, y0, x1, y1 = region.bounds
+    xs = np.linspace(x0, x1, cells)
+    ys = np.linspace(y0, y1, cells)
+    gx, gy = np.meshgrid(xs, ys)
+    points = np.column_stack([gx.ravel(), gy.ravel()])
+    values = np.asarray(density.evaluate(points), float)
+    inside = PolygonPath(region.vertices).contains_points(points, radius=1e-9)
+    values = np.where(inside, values, np.nan).reshape(gx.shape)
+    return values, (x0, x1, y0, y1)
+
+
+def plot_trajectories(path: Path, log: TrialLog, region: ConvexRegion, density: Density) -> None:
+    """Trajectories over the final cells and the density."""
+    names = list(log.robots)
+    final = np.array([log.robots[n].positions()[-1] for n in names])
+    partition = compute_partition(final, region, density)
+    values, extent = _density_grid(region, density)
+    width = extent[1] - extent[0]
+    height = extent[3] - extent[2]
+    aspect = height / width if width > 0 else 1.0
+    fig, ax = plt.subplots(figsize=(8.5, max(4.5, 6.0 * aspect + 1.5)), dpi=DPI)
+    peak = float(np.nanmax(values)) if np.isfinite(values).any() else 1.0
+    image = ax.imshow(values, origin="lower", extent=extent, cmap=DENSITY_COLOURMAP, vmin=0.0,
+                      vmax=1.25 * peak if peak > 0 else 1.0, alpha=0.85, aspect="equal")
+    fig.colorbar(image, ax=ax, shrink=0.8, label="density (importance per m²)")
+    outline = np.vstack([region.vertices, region.vertices[:1]])
+    ax.plot(outline[:, 0], outline[:, 1], color="black", linewidth=1.8)
+    for cell in partition.cells:
+        ring = np.vstack([cell, cell[:1]])
+        ax.plot(ring[:, 0], ring[:, 1], color="#555555", linewidth=1.1)
+    for index, name in enumerate(names):
+        robot = log.robots[name]
+        track = robot.positions()
+        colour = robot_colour(index)
+        ax.plot(track[:, 0], track[:, 1], color=colour, linewidth=1.8,
+                label=f"{name} ({robot.vehicle_kind})")
+        ax.plot(*track[0], marker="o", markersize=8, markerfacecolor="white",
+                markeredgecolor=colour, markeredgewidth=2)
+        ax.plot(*track[-1], marker="D", markersize=7, color=colour, markeredgecolor="black")
+        centroid = partition.centroids[index]
+        ax.plot(*centroid, marker="+", markersize=12, color="black", markeredgewidth=1.6)
+    ax.set_xlabel("x (m, map frame)")
+    ax.set_ylabel("y (m, map frame)")
+    ax.set_title(f"{log.mission_name}: paths over the final cells\n"
+                 "open circle = start, diamond = end, + = centroid of the final cell",
+                 fontsize=10)
+    ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.12), ncol=3, fontsize=8,
+              frameon=False)
+    fig.tight_layout()
+    fig.savefig(path)
+    plt.close(fig)
+
+
+def plot_cost(path: Path, log: TrialLog) -> None:
+    """Coverage cost against time, gate openings marked."""
+    fig, ax = plt.subplots(figsize=(8, 4), dpi=DPI)
+    ax.plot(log.time, log.cost, color="#1f6fb2", linewidth=1.6, label="cost H at current positions")
+    openings = [o for o in log.openings if o.reason == "progress"]
+    if openings:
+        ax.plot([o.time for o in openings], [o.cost for o in openings], linestyle="none",
+                marker="v", markersize=6, color="#c0392b", label="gate opening (new targets)")
+    if log.settled_time is not None:
+        ax.axvline(log.settled_time, color="#2e8b57", linestyle=":", label="fleet at rest")
+    ax.set_xlabel("simulated time (s)")
+    ax.set_ylabel("coverage cost H")
+    ax.set_title(f"{log.mission_name}: coverage cost ({len(log.openings)} generations)",
+                 fontsize=10)
+    ax.grid(alpha=0.3)
+    ax.legend(fontsize=8)
+    fig.tight_layout()
+    fig.savefig(path)
+    plt.close(fig)
+
+
+def plot_distances(path: Path, log: TrialLog, settle_distance: float) -> None:
+    """Each robot's distance to its committed target over time."""
+    fig, ax = plt.subplots(figsize=(8, 4), dpi=DPI)
+    for index, (name, robot) in enumerate(log.robots.items()):
+        ax.plot(robot.time, robot.distance, color=robot_colour(index), linewidth=1.3, label=name)
+    ax.axhline(settle_distance, color="black", linestyle="--", linewidth=1,
+               label=f"settle distance {settle_distance:g} m")
+    ax.set_yscale("symlog", linthresh=max(settle_distance, 1e-3))
+    ax.set_xlabel("simulated time (s)")
+    ax.set_ylabel("distance to target (m)")
+    ax.set_title(f"{log.mission_name}: distance to committed target", fontsize=10)
+    ax.grid(alpha=0.3)
+    ax.legend(fontsize=8, ncol=2)
+    fig.tight_layout()
+    fig.savefig(path)
+    plt.close(fig)
+
+
+def plot_solve_times(path: Path, log: TrialLog) -> None:
+    """Distribution of each robot's MPC solve times."""
+    names = list(log.robots)
+    samples = [1e3 * log.robots[n].solve_times() for n in names]
+    fig, ax = plt.subplots(figsize=(8, 4), dpi=DPI)
+    parts = ax.boxplot(samples, vert=False, patch_artist=True, showfliers=True)
+    ax.set_yticks(range(1, len(names) + 1), names)
+    for index, box in enumerate(parts["boxes"]):
+        box.set_facecolor(robot_colour(index))
+        box.set_alpha(0.55)
+    ax.set_xscale("log")
+    ax.set_xlabel("solve time (ms, log scale)")
+    ax.set_title(f"{log.mission_name}: MPC solve times per robot", fontsize=10)
+    ax.grid(alpha=0.3, axis="x")
+    fig.tight_layout()
+    fig.savefig(path)
+    plt.close(fig)

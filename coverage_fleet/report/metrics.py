@@ -1,0 +1,56 @@
+"""Figures of merit of one trial, as plain numbers (written to report/metrics.json)."""
+
+from __future__ import annotations
+
+from typing import Any
+
+import numpy as np
+
+from coverage_fleet.fleet.trial import TrialLog
+from coverage_fleet.geometry.density import Density
+from coverage_fleet.geometry.partition import compute_partition
+from coverage_fleet.geometry.region import ConvexRegion
+
+
+def distances_to_centroids(
+    positions: np.ndarray, region: ConvexRegion, density: Density
+) -> tuple[np.ndarray, float]:
+    """Each robot's distance to the centroid of its own cell, and the cost H, at `positions`."""
+    partition = compute_partition(positions, region, density)
+    return np.linalg.norm(positions - partition.centroids, axis=1), float(partition.cost)
+
+
+def trial_metrics(log: TrialLog, region: ConvexRegion, density: Density) -> dict[str, Any]:
+    """final_cost, final_largest_distance_to_centroid, generations, settled_time,
+    limit_violations, solver_failures, solve-time statistics and the opening costs."""
+    names = list(log.robots)
+    final = np.array([log.robots[n].positions()[-1] for n in names])
+    to_centroid, final_cost = distances_to_centroids(final, region, density)
+    solve = {}
+    for name in names:
+        times = log.robots[name].solve_times()
+        solve[name] = {
+            "solves": len(times),
+            "median_s": float(np.median(times)) if len(times) else None,
+            "p95_s": float(np.percentile(times, 95)) if len(times) else None,
+            "max_s": float(np.max(times)) if len(times) else None,
+        }
+    return {
+        "mission": log.mission_name,
+        "seed": log.seed,
+        "simulated_time_s": float(log.time[-1]) if log.time else 0.0,
+        "duration_s": log.duration,
+        "settled": log.settled_time is not None,
+        "settled_time_s": log.settled_time,
+        "final_cost": final_cost,
+        "final_largest_distance_to_centroid_m": float(np.max(to_centroid)),
+        "final_distance_to_centroid_m": {
+            n: float(d) for n, d in zip(names, to_centroid, strict=True)
+        },
+        "generations": len(log.openings),
+        "opening_costs": [o.cost for o in log.openings],
+        "limit_violations": len(log.violations),
+        "solver_failures": sum(log.robots[n].solver_failures() for n in names),
+        "solve_time": solve,
+        "wall_time_s": log.wall_time,
+    }
