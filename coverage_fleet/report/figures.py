@@ -140,7 +140,10 @@ def plot_solve_times(path: Path, log: TrialLog) -> None:
     names = list(log.robots)
     samples = [1e3 * log.robots[n].solve_times() for n in names]
     fig, ax = plt.subplots(figsize=(8, 4), dpi=DPI)
-    parts = ax.boxplot(samples, vert=False, patch_artist=True, showfliers=True)
+    # Matplotlib 3.10 renamed `vert=False` to `orientation="horizontal"`.
+    version = tuple(int(v) for v in matplotlib.__version__.split(".")[:2])
+    sideways = {"orientation": "horizontal"} if version >= (3, 10) else {"vert": False}
+    parts = ax.boxplot(samples, patch_artist=True, showfliers=True, **sideways)
     ax.set_yticks(range(1, len(names) + 1), names)
     for index, box in enumerate(parts["boxes"]):
         box.set_facecolor(robot_colour(index))
