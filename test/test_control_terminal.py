@@ -195,7 +195,7 @@ def test_cache_is_keyed_by_file_content(tmp_path):
     first.write_text(source)
     spec = load_vehicle_file(first)
     computed, cached = terminal_for_vehicle(spec)
-    assert not cached and cache_path(spec.content_hash).is_file()
+    assert not cached and cache_path(spec.cache_key).is_file()
     again, cached = terminal_for_vehicle(load_vehicle_file(first))
     assert cached
     np.testing.assert_allclose(again.P, computed.P)
@@ -204,8 +204,8 @@ def test_cache_is_keyed_by_file_content(tmp_path):
     changed.write_text(source.replace("max_acceleration: 2.5", "max_acceleration: 2.0"))
     other, cached = terminal_for_vehicle(load_vehicle_file(changed))
     assert not cached and other.alpha != computed.alpha
-    stored = json.loads(cache_path(spec.content_hash).read_text())
-    assert stored["content_hash"] == spec.content_hash
+    stored = json.loads(cache_path(spec.cache_key).read_text())
+    assert stored["content_hash"] == spec.cache_key
 
 
 def test_terminal_command_reports_ellipsoid_and_equality(capsys):

@@ -64,6 +64,6 @@ def run(args: argparse.Namespace) -> int:
     ingredients, cached = terminal_for_vehicle(spec, use_cache=not args.recompute)
     print(f"coverage-fleet terminal: {spec.source}")
     print(report(ingredients, spec.model.kind))
-    where = cache_path(spec.content_hash)
+    where = cache_path(spec.cache_key)
     print(f"({'read from the cache' if cached else 'computed'}; cache file {where})")
     return 0

@@ -144,6 +144,10 @@ def settings_problems(model: VehicleModel, settings: MpcSettings) -> list[Proble
         problems.append(Problem(source, "mpc.input_weights", "weights must be positive"))
     if settings.offset_weight <= 0:
         problems.append(Problem(source, "mpc.offset_weight", "must be positive"))
+    if settings.terminal_decrease_slack < 0:
+        problems.append(Problem(source, "mpc.terminal_decrease_slack", "must be zero or positive"))
+    if not 0.0 < settings.terminal_shrink <= 1.0:
+        problems.append(Problem(source, "mpc.terminal_shrink", "must be in (0, 1]"))
     if not 0.0 <= settings.steady_state_margin < 1.0:
         problems.append(Problem(source, "mpc.steady_state_margin", "must be in [0, 1)"))
     if settings.terminal not in ("equality", "ellipsoid"):

@@ -329,7 +329,13 @@ def _largest_decreasing_level(check: _DecreaseCheck, alpha_high: float) -> float
 def compute_terminal_ingredients(
     model: VehicleModel, settings: MpcSettings, content_hash: str = ""
 ) -> TerminalIngredients:
-    """What the MPC uses for these settings: the ellipsoid, or the equality with its reason."""
+    """What the MPC uses for these settings: the ellipsoid, or the equality with its reason.
+    With a content_hash (VehicleSpec.cache_key) the result is read from / written to the
+    cache."""
+    return _cached(model, settings, content_hash)[0]
+
+
+def _compute(model: VehicleModel, settings: MpcSettings, content_hash: str) -> TerminalIngredients:
     if settings.terminal == "ellipsoid":
         return compute_ellipsoid(model, settings, content_hash)
     if not model.stabilisable_at_rest:
@@ -357,16 +363,32 @@ def cache_path(content_hash: str) -> Path:
 def terminal_for_vehicle(
     spec: VehicleSpec, use_cache: bool = True
 ) -> tuple[TerminalIngredients, bool]:
-    """(ingredients, read_from_cache) for a loaded vehicle file; computed results are
-    written to the cache keyed by the file's content hash."""
-    path = cache_path(spec.content_hash)
-    if use_cache and path.is_file():
+    """(ingredients, read_from_cache) for a loaded vehicle file, keyed by spec.cache_key
+    (file bytes and model code)."""
+    if not use_cache:
+        ingredients = _compute(spec.model, spec.mpc, spec.cache_key)
+        write_atomically(cache_path(spec.cache_key), _encode(ingredients))
+        return ingredients, False
+    return _cached(spec.model, spec.mpc, spec.cache_key)
+
+
+def _encode(ingredients: TerminalIngredients) -> bytes:
+    return json.dumps(ingredients.to_json(), indent=1).encode()
+
+
+def _cached(
+    model: VehicleModel, settings: MpcSettings, key: str
+) -> tuple[TerminalIngredients, bool]:
+    if not key:
+        return _compute(model, settings, key), False
+    path = cache_path(key)
+    if path.is_file():
         try:
             cached = TerminalIngredients.from_json(json.loads(path.read_text()))
-            if cached.kind == spec.mpc.terminal and cached.content_hash == spec.content_hash:
+            if cached.kind == settings.terminal and cached.content_hash == key:
                 return cached, True
         except (ValueError, KeyError, TypeError):
             pass  # unreadable entry: recompute and overwrite
-    ingredients = compute_terminal_ingredients(spec.model, spec.mpc, spec.content_hash)
-    write_atomically(path, json.dumps(ingredients.to_json(), indent=1).encode())
+    ingredients = _compute(model, settings, key)
+    write_atomically(path, _encode(ingredients))
     return ingredients, False
