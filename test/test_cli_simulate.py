@@ -136,3 +136,29 @@ def test_figures_are_real_images(trials) -> None:
         pixels = image.imread(directory / "report" / name)
         assert pixels.shape[0] > 300 and pixels.shape[1] > 600, name
         assert pixels[..., :3].std() > 0.05, name  # not a blank canvas
+
+
+def test_ctrl_c_leaves_no_trial_behind(tmp_path: Path) -> None:
+    """SIGINT (Ctrl-C) in the middle of a run: status 130 (128 + SIGINT, common practice for
+    shells) and no trial directory, complete or partial."""
+    import os
+    import signal
+    import subprocess
+    import sys
+
+    script = Path(sys.executable).with_name("coverage-fleet")
+    mission = QUICK.parent / "orchard_frost_watch.yaml"
+    process = subprocess.Popen(
+        [str(script), "simulate", str(mission), "--out", str(tmp_path / "trial")],
+        stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
+        env={**os.environ, "PYTHONUNBUFFERED": "1"},
+    )
+    assert process.stderr is not None
+    for line in process.stderr:  # wait until the simulation is under way
+        if "generation" in line:
+            break
+    process.send_signal(signal.SIGINT)
+    _, err = process.communicate(timeout=120)
+    assert process.returncode == 130, err
+    assert "interrupted" in err and "Traceback" not in err
+    assert list(tmp_path.iterdir()) == []

@@ -33,19 +33,23 @@ class ProgressBar:
         self.interactive = bool(getattr(self.stream, "isatty", lambda: False)())
         self._last_wall = 0.0
         self._last_decile = -1
+        self._last_info: StepInfo | None = None
+        self._shown: StepInfo | None = None
 
-    def __call__(self, info: StepInfo) -> None:
+    def __call__(self, info: StepInfo, force: bool = False) -> None:
+        self._last_info = info
         fraction = min(1.0, info.time / info.duration) if info.duration > 0 else 1.0
-        if self.interactive:
+        if self.interactive and not force:
             now = time.monotonic()
             if now - self._last_wall < 0.2 and fraction < 1.0:
                 return
             self._last_wall = now
-        else:
+        elif not force:
             decile = int(fraction * 10)
             if decile == self._last_decile:
                 return
             self._last_decile = decile
+        self._shown = info
         filled = round(fraction * self.width)
         bar = "#" * filled + "-" * (self.width - filled)
         line = (
@@ -59,6 +63,8 @@ class ProgressBar:
         self.stream.flush()
 
     def finish(self, message: str) -> None:
+        if self._last_info is not None and self._last_info is not self._shown:
+            self(self._last_info, force=True)
         if self.interactive:
             self.stream.write("\n")
         self.stream.write(f"{self.label}: {message}\n")

@@ -33,7 +33,7 @@ ROBOT_COLOURS = (
 )
 #: Density background: white to a muted amber, kept pale so robots and cells stay readable.
 DENSITY_COLOURMAP = LinearSegmentedColormap.from_list(
-    "coverage_fleet_density", ["#ffffff", "#fbeed3", "#f0c987", "#d99a4e"]
+    "coverage_fleet_density", ["#ffffff", "#fae3b8", "#eeb461", "#cf7f2a"]
 )
 DPI = 120
 
@@ -65,8 +65,11 @@ def plot_trajectories(path: Path, log: TrialLog, region: ConvexRegion, density: 
     aspect = height / width if width > 0 else 1.0
     fig, ax = plt.subplots(figsize=(8.5, max(4.5, 6.0 * aspect + 1.5)), dpi=DPI)
     peak = float(np.nanmax(values)) if np.isfinite(values).any() else 1.0
+    low = float(np.nanmin(values)) if np.isfinite(values).any() else 0.0
+    # A uniform density is drawn in a pale tone; otherwise the scale spans 0 to the peak.
+    top = peak if peak > low * 1.05 else 2.0 * peak
     image = ax.imshow(values, origin="lower", extent=extent, cmap=DENSITY_COLOURMAP, vmin=0.0,
-                      vmax=1.25 * peak if peak > 0 else 1.0, alpha=0.85, aspect="equal")
+                      vmax=top if top > 0 else 1.0, alpha=0.9, aspect="equal")
     fig.colorbar(image, ax=ax, shrink=0.8, label="density (importance per m²)")
     outline = np.vstack([region.vertices, region.vertices[:1]])
     ax.plot(outline[:, 0], outline[:, 1], color="black", linewidth=1.8)
@@ -92,22 +95,26 @@ def plot_trajectories(path: Path, log: TrialLog, region: ConvexRegion, density: 
     ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.12), ncol=3, fontsize=8,
               frameon=False)
     fig.tight_layout()
-    fig.savefig(path)
+    fig.savefig(path, bbox_inches="tight")
     plt.close(fig)
 
 
 def plot_cost(path: Path, log: TrialLog) -> None:
     """Coverage cost against time, gate openings marked."""
     fig, ax = plt.subplots(figsize=(8, 4), dpi=DPI)
-    ax.plot(log.time, log.cost, color="#1f6fb2", linewidth=1.6, label="cost H at current positions")
     openings = [o for o in log.openings if o.reason == "progress"]
     if openings:
         ax.plot([o.time for o in openings], [o.cost for o in openings], linestyle="none",
-                marker="v", markersize=6, color="#c0392b", label="gate opening (new targets)")
+                marker="o", markersize=3.5, color="#c0392b", alpha=0.6, zorder=2,
+                label=f"gate opening ({len(openings)}): cost at the positions used")
+    ax.plot(log.time, log.cost, color="#1f6fb2", linewidth=1.4, zorder=3,
+            label="cost H at current positions")
+    if min(log.cost, default=0.0) > 0:
+        ax.set_yscale("log")
     if log.settled_time is not None:
         ax.axvline(log.settled_time, color="#2e8b57", linestyle=":", label="fleet at rest")
     ax.set_xlabel("simulated time (s)")
-    ax.set_ylabel("coverage cost H")
+    ax.set_ylabel("coverage cost H (log scale)")
     ax.set_title(f"{log.mission_name}: coverage cost ({len(log.openings)} generations)",
                  fontsize=10)
     ax.grid(alpha=0.3)
@@ -120,13 +127,16 @@ def plot_cost(path: Path, log: TrialLog) -> None:
 def plot_distances(path: Path, log: TrialLog, settle_distance: float) -> None:
     """Each robot's distance to its committed target over time."""
     fig, ax = plt.subplots(figsize=(8, 4), dpi=DPI)
+    floor = settle_distance / 50.0
     for index, (name, robot) in enumerate(log.robots.items()):
-        ax.plot(robot.time, robot.distance, color=robot_colour(index), linewidth=1.3, label=name)
+        shown = np.maximum(np.asarray(robot.distance, float), floor)
+        ax.plot(robot.time, shown, color=robot_colour(index), linewidth=1.3, label=name)
     ax.axhline(settle_distance, color="black", linestyle="--", linewidth=1,
                label=f"settle distance {settle_distance:g} m")
-    ax.set_yscale("symlog", linthresh=max(settle_distance, 1e-3))
+    ax.set_yscale("log")
+    ax.set_ylim(bottom=floor)
     ax.set_xlabel("simulated time (s)")
-    ax.set_ylabel("distance to target (m)")
+    ax.set_ylabel(f"distance to target (m, log scale, floor {floor:.2g} m)")
     ax.set_title(f"{log.mission_name}: distance to committed target", fontsize=10)
     ax.grid(alpha=0.3)
     ax.legend(fontsize=8, ncol=2)
