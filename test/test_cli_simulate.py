@@ -12,6 +12,7 @@ import numpy as np
 import pytest
 import yaml
 from matplotlib import image
+from scipy.spatial.distance import pdist
 
 from coverage_fleet.cli.main import main
 from coverage_fleet.report import FIGURES
@@ -128,6 +129,12 @@ def test_report_numbers_agree_with_the_log(trials) -> None:
     grid = np.column_stack([xs.ravel(), ys.ravel()])
     nearest = ((grid[:, None, :] - final[None, :, :]) ** 2).sum(axis=2).min(axis=1)
     assert metrics["final_cost"] == pytest.approx(nearest.sum() * h * h, rel=1e-3)
+    # Closest approach of any two rovers (footprint radius 0.35 m each) with scipy's pdist.
+    tracks = [np.array([[float(r["x"]), float(r["y"])] for r in read_rows(p)])
+              for p in sorted((directory / "robots").glob("*.csv"))]
+    closest = min(pdist(np.array([t[k] for t in tracks])).min() for k in range(len(tracks[0])))
+    assert metrics["closest_approach_m"] == pytest.approx(closest, abs=1e-12)
+    assert metrics["smallest_clearance_m"] == pytest.approx(closest - 0.7, abs=1e-12)
 
 
 def test_figures_are_real_images(trials) -> None:

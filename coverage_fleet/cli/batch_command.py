@@ -25,6 +25,7 @@ COLUMNS = (
     ("final_largest_distance_to_centroid_m", "max dist (m)", "{:>12.3g}"),
     ("limit_violations", "limits", "{:>6}"),
     ("solver_failures", "fails", "{:>5}"),
+    ("smallest_clearance_m", "clear (m)", "{:>9.2f}"),
     ("wall_time_s", "wall (s)", "{:>8.1f}"),
 )
 SUMMARY_KEYS = (
@@ -34,6 +35,7 @@ SUMMARY_KEYS = (
     "final_largest_distance_to_centroid_m",
     "limit_violations",
     "solver_failures",
+    "smallest_clearance_m",
     "wall_time_s",
 )
 
@@ -81,6 +83,7 @@ def run(args: argparse.Namespace) -> int:
             str(out), "--json", "already exists; a summary is never overwritten"
         )
     seeds = list(range(args.first_seed, args.first_seed + args.seeds))
+    footprints = {e.name: e.footprint_radius for e in mission.roster}
     print(table_header())
 
     def show(seed: int, row: dict[str, Any]) -> None:
@@ -91,7 +94,7 @@ def run(args: argparse.Namespace) -> int:
         mission,
         seeds,
         duration=args.duration,
-        metrics=lambda log: trial_metrics(log, mission.region, mission.density),
+        metrics=lambda log: trial_metrics(log, mission.region, mission.density, footprints),
         on_run=show,
     )
     summary = summarise(rows, SUMMARY_KEYS)

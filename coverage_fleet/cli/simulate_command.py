@@ -96,7 +96,12 @@ def simulate_to_trial(
     def report(directory: Path) -> None:
         metrics.update(
             write_report(
-                directory, log, mission.region, mission.density, mission.gate.settle_distance
+                directory,
+                log,
+                mission.region,
+                mission.density,
+                mission.gate.settle_distance,
+                footprints={e.name: e.footprint_radius for e in mission.roster},
             )
         )
 
@@ -117,7 +122,18 @@ def summary_lines(metrics: dict[str, Any]) -> list[str]:
         f"{metrics['final_largest_distance_to_centroid_m']:.3g} m",
         f"limit violations {metrics['limit_violations']}; solver failures "
         f"{metrics['solver_failures']}",
+        *_clearance_line(metrics),
     ]
+
+
+def _clearance_line(metrics: dict[str, Any]) -> list[str]:
+    clearance = metrics.get("smallest_clearance_m")
+    if clearance is None:
+        return []
+    warning = (
+        " (FOOTPRINTS OVERLAP: the controllers do not avoid each other)" if clearance < 0 else ""
+    )
+    return [f"smallest clearance between two robots' footprints {clearance:.2f} m{warning}"]
 
 
 def register(subparsers: argparse._SubParsersAction) -> None:

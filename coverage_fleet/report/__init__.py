@@ -19,13 +19,14 @@ def write_report(
     region: ConvexRegion,
     density: Density,
     settle_distance: float,
+    footprints: dict[str, float] | None = None,
 ) -> dict[str, Any]:
     """Write metrics.json and the figures into `directory`; returns the metrics."""
     from coverage_fleet.report import figures
     from coverage_fleet.report.metrics import trial_metrics
 
     directory = Path(directory)
-    metrics = trial_metrics(log, region, density)
+    metrics = trial_metrics(log, region, density, footprints)
     (directory / "metrics.json").write_text(json.dumps(metrics, indent=2) + "\n")
     figures.plot_trajectories(directory / "trajectories.png", log, region, density)
     figures.plot_cost(directory / "cost.png", log)

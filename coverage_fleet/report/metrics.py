@@ -20,7 +20,31 @@ def distances_to_centroids(
     return np.linalg.norm(positions - partition.centroids, axis=1), float(partition.cost)
 
 
-def trial_metrics(log: TrialLog, region: ConvexRegion, density: Density) -> dict[str, Any]:
+def closest_approach(log: TrialLog, footprints: dict[str, float] | None = None) -> dict[str, Any]:
+    """Smallest centre distance between any two robots over the run, and (with footprint
+    radii) the smallest clearance between their footprint discs. The controllers do not
+    avoid each other, so this is worth a look before a real trial."""
+    names = list(log.robots)
+    if len(names) < 2:
+        return {"closest_approach_m": None, "smallest_clearance_m": None}
+    tracks = np.stack([log.robots[n].positions() for n in names])  # (n, T, 2)
+    gaps = np.linalg.norm(tracks[:, None] - tracks[None, :], axis=3)  # (n, n, T)
+    upper = np.triu_indices(len(names), k=1)
+    pair_gaps = gaps[upper]  # (pairs, T)
+    result: dict[str, Any] = {"closest_approach_m": float(pair_gaps.min())}
+    if footprints is not None:
+        radii = np.array([footprints[n] for n in names])
+        needed = (radii[:, None] + radii[None, :])[upper][:, None]
+        result["smallest_clearance_m"] = float((pair_gaps - needed).min())
+    return result
+
+
+def trial_metrics(
+    log: TrialLog,
+    region: ConvexRegion,
+    density: Density,
+    footprints: dict[str, float] | None = None,
+) -> dict[str, Any]:
     """final_cost, final_largest_distance_to_centroid, generations, settled_time,
     limit_violations, solver_failures, solve-time statistics and the opening costs."""
     names = list(log.robots)
@@ -51,6 +75,7 @@ def trial_metrics(log: TrialLog, region: ConvexRegion, density: Density) -> dict
         "opening_costs": [o.cost for o in log.openings],
         "limit_violations": len(log.violations),
         "solver_failures": sum(log.robots[n].solver_failures() for n in names),
+        **closest_approach(log, footprints),
         "solve_time": solve,
         "wall_time_s": log.wall_time,
     }
