@@ -76,8 +76,11 @@ DEFAULT_PLUGIN = "fatrop"
 #: equality is therefore imposed as |x_N - x_s| <= this (metres / radians / m/s).
 FATROP_EQUALITY_TOLERANCE = 1e-6
 SOLVER_KEYS = ("plugin", "max_iter", "options", "compile")
-#: Plugin that re-solves a sample another plugin failed on (from the same warm start).
+#: Plugin that re-solves a sample another plugin failed on (from the same warm start),
+#: with this many times the iteration budget (a cold start far from the target can need
+#: over 100 IPOPT iterations, e.g. the surface vessel).
 RESCUE_PLUGIN = "ipopt"
+RESCUE_ITERATION_FACTOR = 3
 DEFAULT_MAX_ITER = 100
 #: A plan whose positions and steady state stay within this of the robot counts as "not
 #: moving" (metres); see TrackingMpc._stalled.
@@ -410,6 +413,8 @@ class TrackingMpc:
     def _make_solver(self, plugin: str, nlp: dict[str, ca.SX] | str) -> ca.Function:
         options = dict(SOLVER_DEFAULTS[plugin])
         max_iter = int(self.settings.solver.get("max_iter", DEFAULT_MAX_ITER))
+        if plugin != self.plugin:
+            max_iter *= RESCUE_ITERATION_FACTOR
         options[f"{plugin}.max_iter"] = max_iter
         if plugin == "fatrop":
             options["equality"] = [bool(v) for v in self._lbg == self._ubg]
