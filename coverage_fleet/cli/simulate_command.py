@@ -162,6 +162,13 @@ def run(args: argparse.Namespace) -> int:
         raise ConfigError.single("command line", "--seed", f"must be >= 0, got {args.seed}")
     seed = mission.simulation.seed if args.seed is None else args.seed
     out = args.out or default_trial_directory(mission, seed)
+    real = [entry.name for entry in mission.roster if not entry.simulated]
+    if real:
+        print(
+            f"simulate: note: {', '.join(real)} marked 'simulated: false' (real robots) are "
+            "simulated too; this is an offline run",
+            file=sys.stderr,
+        )
     progress = ProgressBar("simulate")
     path, _, metrics = simulate_to_trial(mission, out, seed, args.duration, progress)
     progress.finish("done")
