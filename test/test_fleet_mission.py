@@ -94,3 +94,22 @@ def test_mission_as_run_reloads_from_anywhere(tmp_path: Path) -> None:
     assert [r.vehicle.content_hash for r in again.roster] == [
         r.vehicle.content_hash for r in mission.roster
     ]
+
+
+def test_raster_density_path_is_resolved_in_the_mission_as_run(tmp_path: Path) -> None:
+    here = tmp_path / "site"
+    here.mkdir()
+    np.save(here / "frost.npy", np.array([[1.0, 2.0], [3.0, 4.0]]))
+    mission = {
+        "region": {"vertices": [[0, 0], [10, 0], [10, 10], [0, 10]]},
+        "density": {"kind": "raster", "file": "frost.npy", "origin": [0, 0], "resolution": 5.0},
+        "roster": [{"name": "a", "vehicle": "differential_drive", "initial_pose": [2, 2, 0]}],
+    }
+    (here / "m.yaml").write_text(yaml.safe_dump(mission))
+    loaded = load_mission(here / "m.yaml")
+    as_run = mission_as_run(loaded, seed=0, duration=10.0)
+    assert as_run["density"]["file"] == str((here / "frost.npy").resolve())
+    (tmp_path / "elsewhere.yaml").write_text(yaml.safe_dump(as_run))
+    again = load_mission(tmp_path / "elsewhere.yaml")
+    # North row first: the south-west cell (value 3) holds (2, 2).
+    assert again.density.evaluate(np.array([[2.0, 2.0]]))[0] == pytest.approx(3.0)
