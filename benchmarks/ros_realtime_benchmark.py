@@ -2,13 +2,16 @@
 time 0.1 s), the headless simulator in realtime mode and the base station, all on this
 machine. Prints, per run:
 
-- the share of control periods that missed their deadline: a robot's period counts as
-  missed when no command of its own arrived within it (commands observed by this process);
-- the median state-to-command latency: from the arrival (here) of the state a controller
-  used, i.e. the newest state before its command, to the arrival of that command; it
-  includes the wait for the controller's timer, up to one period;
-- the baseline from the same run: the median MPC solve time of the same controllers in this
-  process without ROS, and the ratio latency / solve time.
+- the share of control periods that missed their deadline: between two successive commands
+  of a robot (as they arrive here) a gap of g seconds holds round(g / period) - 1 missed
+  periods (a late command delays its own period and may swallow the next ones);
+- the median state-to-command latency: from the arrival here of the state a controller
+  used (the plan it publishes with its command carries that state's stamp) to the arrival
+  of that plan; it includes the wait for the controller's timer, up to one period;
+- the baselines from the same run: the median MPC solve time the controllers report on
+  /diagnostics during the run (so latency minus it is the graph's own overhead), and the
+  median solve time of the same controllers in this process without ROS (a fixed 5 m move),
+  with the ratios.
 
 Usage: .venv/bin/python benchmarks/ros_realtime_benchmark.py [--robots 8] [--seconds 30]
 """
@@ -16,6 +19,7 @@ Usage: .venv/bin/python benchmarks/ros_realtime_benchmark.py [--robots 8] [--sec
 from __future__ import annotations
 
 import argparse
+import itertools
 import os
 import statistics
 import sys
@@ -103,31 +107,50 @@ def main() -> int:
     graph = GraphProcesses(folder / "logs", env)
     rclpy.init(args=["ros_realtime_benchmark"])
     node = rclpy.create_node("ros_realtime_benchmark")
-    last_state: dict[str, float] = {}
+    state_arrival: dict[tuple[str, int], float] = {}
     commands: dict[str, list[float]] = {e.name: [] for e in mission.roster}
     latencies: dict[str, list[float]] = {e.name: [] for e in mission.roster}
 
-    def on_odom(name: str) -> None:
-        last_state[name] = time.perf_counter()
+    def on_odom(name: str, msg) -> None:
+        state_arrival[(name, stamp_to_nanoseconds(msg.header.stamp))] = time.perf_counter()
 
     def on_command(name: str) -> None:
-        now = time.perf_counter()
-        commands[name].append(now)
-        if name in last_state:
-            latencies[name].append(now - last_state[name])
+        commands[name].append(time.perf_counter())
 
+    def on_plan(name: str, msg) -> None:
+        used = state_arrival.pop((name, stamp_to_nanoseconds(msg.header.stamp)), None)
+        if used is not None:
+            latencies[name].append(time.perf_counter() - used)
+
+    from diagnostic_msgs.msg import DiagnosticArray
     from nav_msgs.msg import Odometry
+    from nav_msgs.msg import Path as PlanPath
+
+    from coverage_fleet.ros.conversions import stamp_to_nanoseconds
 
     for entry in mission.roster:
         node.create_subscription(
             Odometry, topics.robot_topic(entry.name, topics.ODOM),
-            lambda _m, n=entry.name: on_odom(n), qos.STATE,
+            lambda m, n=entry.name: on_odom(n, m), qos.REPORTS,
+        )
+        node.create_subscription(
+            PlanPath, topics.robot_topic(entry.name, topics.PLAN),
+            lambda m, n=entry.name: on_plan(n, m), qos.DISPLAY,
         )
         node.create_subscription(
             command_message_type(entry.vehicle.command_kind),
             topics.robot_topic(entry.name, topics.CMD_VEL),
             lambda _m, n=entry.name: on_command(n), qos.COMMAND,
         )
+    graph_solves: list[float] = []
+
+    def on_diagnostics(msg) -> None:
+        for status in msg.status:
+            for kv in status.values:
+                if kv.key == "solve_time" and kv.value != "nan":
+                    graph_solves.append(float(kv.value))
+
+    node.create_subscription(DiagnosticArray, topics.DIAGNOSTICS, on_diagnostics, qos.REPORTS)
     executor = SingleThreadedExecutor()
     executor.add_node(node)
     status = 0
@@ -143,6 +166,7 @@ def main() -> int:
         for name in commands:
             commands[name].clear()
             latencies[name].clear()
+        graph_solves.clear()
         start = time.perf_counter()
         while time.perf_counter() - start < args.seconds:
             executor.spin_once(timeout_sec=0.01)
@@ -153,21 +177,24 @@ def main() -> int:
         rclpy.try_shutdown()
 
     period = 0.1
-    periods = int((end - start) / period)
+    periods = int((end - start) / period) * len(commands)
     missed = 0
     for stamps in commands.values():
-        bins = {int((t - start) / period) for t in stamps if start <= t < start + periods * period}
-        missed += periods - len(bins)
-    share = missed / (periods * len(commands))
+        edges = [start, *stamps, end]
+        missed += sum(max(0, round((b - a) / period) - 1) for a, b in itertools.pairwise(edges))
+    share = missed / periods
     all_latencies = [v for values in latencies.values() for v in values]
     latency = statistics.median(all_latencies) if all_latencies else float("nan")
     solve = statistics.median(solves)
     print(f"robots: {args.robots}, sample time {period:g} s, measured {end - start:.1f} s, "
           f"{os.cpu_count()} CPUs")
-    print(f"control periods missed: {missed} of {periods * len(commands)} = {100 * share:.1f} %")
+    print(f"control periods missed: {missed} of {periods} = {100 * share:.1f} %")
     print(f"median state-to-command latency: {1000 * latency:.1f} ms")
-    print(f"baseline median MPC solve time (in process, no ROS): {1000 * solve:.1f} ms")
-    print(f"ratio latency / solve time: {latency / solve:.2f}")
+    in_graph = statistics.median(graph_solves) if graph_solves else float("nan")
+    print(f"median MPC solve time inside the graph (/diagnostics): {1000 * in_graph:.1f} ms")
+    print(f"ratio latency / in-graph solve time: {latency / in_graph:.2f}")
+    print(f"baseline median MPC solve time (in process, no ROS, 5 m move): {1000 * solve:.1f} ms")
+    print(f"ratio latency / baseline solve time: {latency / solve:.2f}")
     print(f"ratio latency / sample time: {latency / period:.2f}")
     return status
 

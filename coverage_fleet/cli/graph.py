@@ -71,7 +71,6 @@ def controller_node_spec(
     mission_file: str | Path,
     robot: str,
     vehicle_file: str | Path | None = None,
-    lockstep: bool = False,
     use_sim_time: bool = False,
 ) -> NodeSpec:
     """One robot's controller in the robot's namespace (vehicle file: the roster's unless
@@ -81,7 +80,6 @@ def controller_node_spec(
         mission_file=str(Path(mission_file).resolve()),
         vehicle_file=str(Path(vehicle_file).resolve()) if vehicle_file else "",
         robot_name=robot,
-        lockstep=lockstep,
         use_sim_time=use_sim_time,
     )
 
@@ -131,12 +129,11 @@ def fleet_nodes(
         )
     any_real = any(not e.simulated for e in mission.roster)
     use_sim_time = simulation is not None and not any_real
-    lockstep = simulation == "lockstep"
     nodes = base_station_nodes(mission.source, use_sim_time)
     for entry in mission.roster:
         nodes.append(
             controller_node_spec(
-                mission.source, entry.name, overrides.get(entry.name), lockstep, use_sim_time
+                mission.source, entry.name, overrides.get(entry.name), use_sim_time
             )
         )
     if simulation is not None and any(e.simulated for e in mission.roster):

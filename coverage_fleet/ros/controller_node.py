@@ -6,11 +6,12 @@ RobotController.step on the newest state and target and publishes the first inpu
 report (`coverage/progress`, layout in conversions.py), the predicted plan (`coverage/plan`)
 and its health on /diagnostics.
 
-Timing: with `lockstep` false a timer fires every sample time (ROS clock, so use_sim_time
-is honoured) and the newest state is used; a state older than `state_timeout` is stale and
-the robot is sent its braking input. With `lockstep` true the node answers every state it
-receives (the simulator waits for the answer); it solves when a sample time has passed since
-its last solve and re-sends the held command otherwise (zero-order hold).
+Timing: the node answers every state it receives, at once (no timer phase adds latency):
+it solves when a sample time (less `sample_tolerance`, for jitter in the state stamps) has
+passed since the state of its last solve, and otherwise re-sends the held command (zero-order
+hold). Each answer carries a progress report, which is also what the lockstep simulator
+waits for. A watchdog timer (every sample time, ROS clock, so use_sim_time is honoured)
+sends the braking input while the newest state is older than `state_timeout`.
 """
 
 from __future__ import annotations
@@ -44,8 +45,6 @@ from .conversions import (
 from .parameters import declare
 from .runtime import main_for
 
-SAME_TIME = 1e-6
-
 
 class ControllerNode(Node):
     def __init__(self) -> None:
@@ -60,8 +59,10 @@ class ControllerNode(Node):
         robot_name = declare(
             self, "robot_name", "", "Robot name in the roster; empty = the node's namespace."
         )
-        self.lockstep = declare(
-            self, "lockstep", False, "Answer every received state (lockstep simulation)."
+        self.sample_tolerance = declare(
+            self, "sample_tolerance", 0.01,
+            "Seconds: a new solve is due when the state is at least sample time minus this "
+            "newer than the last solved one (absorbs jitter in odometry stamps).", (0.0, 1.0),
         )
         self.state_timeout = declare(
             self, "state_timeout", 1.0,
@@ -114,8 +115,7 @@ class ControllerNode(Node):
         self.diag_pub = self.create_publisher(DiagnosticArray, topics.DIAGNOSTICS, qos.DISPLAY)
         self.create_subscription(Odometry, topics.ODOM, self._on_odom, qos.STATE)
         self.create_subscription(PointStamped, topics.TARGET, self._on_target, qos.LATCHED)
-        if not self.lockstep:
-            self.create_timer(self.sample_time, self._on_timer)
+        self.create_timer(self.sample_time, self._watchdog)
         self.create_timer(self.diagnostics_period, self._publish_diagnostics)
 
     # --- inputs -------------------------------------------------------------------------
@@ -123,8 +123,7 @@ class ControllerNode(Node):
     def _on_odom(self, msg: Odometry) -> None:
         self.state = np.asarray(self.model.state_from_odometry(odometry_from_msg(msg)), float)
         self.state_time = stamp_to_seconds(msg.header.stamp)
-        if self.lockstep:
-            self._control(self.state_time)
+        self._control()
 
     def _on_target(self, msg: PointStamped) -> None:
         target, stamp_ns = target_from_msg(msg)
@@ -133,23 +132,25 @@ class ControllerNode(Node):
             self.distance_at_commit = None
         self.target = target
 
-    def _on_timer(self) -> None:
+    def _stale(self) -> bool:
         now = self.get_clock().now().nanoseconds * 1e-9
-        self._control(now)
+        return self.state is not None and now - self.state_time > self.state_timeout
+
+    def _watchdog(self) -> None:
+        """No fresh odometry: brake rather than drive on an old command."""
+        if self._stale():
+            self.held_input = np.asarray(self.model.braking_input(self.state), float)
+            self.cmd_pub.publish(
+                command_to_msg(self.model.command_from_input(self.held_input, self.state))
+            )
 
     # --- control ------------------------------------------------------------------------
 
-    def _control(self, now: float) -> None:
-        if self.state is None:
-            return
+    def _control(self) -> None:
         x = self.state
         position = self.model.position(x)
-        stale = not self.lockstep and now - self.state_time > self.state_timeout
-        if stale:
-            u = np.asarray(self.model.braking_input(x), float)
-            self.held_input = u
-        elif self.held_input is None or self.state_time - self.last_solve_time >= (
-            self.sample_time - SAME_TIME
+        if self.held_input is None or self.state_time - self.last_solve_time >= (
+            self.sample_time - self.sample_tolerance
         ):
             # Before the first target the robot holds its position.
             target = self.target if self.target is not None else position
@@ -189,7 +190,7 @@ class ControllerNode(Node):
         age = now - self.state_time if self.state is not None else float("inf")
         if self.state is None:
             level, message = DiagnosticStatus.STALE, "no odometry yet"
-        elif not self.lockstep and age > self.state_timeout:
+        elif age > self.state_timeout:
             level, message = DiagnosticStatus.ERROR, "odometry stale: braking"
         elif step is not None and step.used_fallback:
             level, message = DiagnosticStatus.WARN, f"solver: {step.status} ({step.fallback})"

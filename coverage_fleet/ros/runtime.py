@@ -7,6 +7,7 @@ import sys
 from collections.abc import Callable, Sequence
 
 import rclpy
+from rclpy.exceptions import InvalidParameterTypeException, InvalidParameterValueException
 from rclpy.executors import ExternalShutdownException, SingleThreadedExecutor
 from rclpy.node import Node
 
@@ -44,6 +45,10 @@ def run_nodes(
     except ConfigError as error:
         logger = rclpy.logging.get_logger(program)
         logger.error("bad input:\n  " + "\n  ".join(str(p) for p in error.problems))
+        status = EXIT_BAD_INPUT
+    except (InvalidParameterValueException, InvalidParameterTypeException) as error:
+        # Out of its declared range or of the wrong type: rclpy names the parameter.
+        rclpy.logging.get_logger(program).error(f"bad parameter: {error}")
         status = EXIT_BAD_INPUT
     except RunFinished as finished:
         status = finished.status
