@@ -1,0 +1,154 @@
+"""The base station (partition node + reference gate) as a real process over DDS on
+loopback. The test plays the robots: it publishes their odometry and progress reports.
+
+Checks the gate's rule as stated in the architecture (monotone-progress condition; Cortes,
+Martinez, Karatas & Bullo, IEEE T-RA 20(2), 2004, for why the cost then falls): a report
+that names an older generation never opens the gate, while the same report naming the
+current generation does (the positive control that makes the check able to fail)."""
+
+from __future__ import annotations
+
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+rclpy = pytest.importorskip("rclpy", reason="ROS 2 wheels not installed (scripts/setup_env.sh)")
+
+from geometry_msgs.msg import PointStamped, Vector3Stamped  # noqa: E402
+from nav_msgs.msg import Odometry  # noqa: E402
+from std_msgs.msg import Float64MultiArray  # noqa: E402
+
+from coverage_fleet.ros import conversions as cv  # noqa: E402
+from coverage_fleet.ros import qos, topics  # noqa: E402
+from coverage_fleet.vehicles.base import OdometryValues  # noqa: E402
+
+MISSION = """\
+name: gate_check_yard   # invented test scenario
+region: {vertices: [[0, 0], [10, 0], [10, 10], [0, 10]]}
+density: {kind: uniform}
+roster:
+  - {name: rover_a, vehicle: differential_drive, initial_pose: [2.0, 2.0, 0.0]}
+  - {name: rover_b, vehicle: differential_drive, initial_pose: [8.0, 7.0, 0.0]}
+"""
+POSITIONS = {"rover_a": (2.0, 2.0), "rover_b": (8.0, 7.0)}
+WAIT = 60.0
+
+
+class FakeFleet:
+    """The robots' side of the wire, published from this process."""
+
+    def __init__(self) -> None:
+        self.node = rclpy.create_node("gate_test_fleet")
+        self.odom = {
+            n: self.node.create_publisher(Odometry, topics.robot_topic(n, topics.ODOM), qos.STATE)
+            for n in POSITIONS
+        }
+        self.progress = {
+            n: self.node.create_publisher(
+                Vector3Stamped, topics.robot_topic(n, topics.PROGRESS), qos.REPORTS
+            )
+            for n in POSITIONS
+        }
+        self.targets: dict[str, int] = {}
+        self.openings: list[cv.OpeningValues] = []
+        self.candidates = 0
+        for name in POSITIONS:
+            self.node.create_subscription(
+                PointStamped, topics.robot_topic(name, topics.TARGET),
+                lambda msg, n=name: self.targets.__setitem__(n, cv.target_from_msg(msg)[1]),
+                qos.LATCHED,
+            )
+        self.node.create_subscription(
+            Float64MultiArray, topics.OPENINGS,
+            lambda msg: self.openings.append(cv.opening_from_msg(msg)), qos.OPENINGS,
+        )
+        self.node.create_subscription(
+            Float64MultiArray, topics.CANDIDATES, self._on_candidates, qos.REPORTS
+        )
+        self.node.create_timer(0.1, self.publish_states)
+
+    def _on_candidates(self, _msg) -> None:
+        self.candidates += 1
+
+    def publish_states(self) -> None:
+        stamp = self.node.get_clock().now().to_msg()
+        for name, (x, y) in POSITIONS.items():
+            odom = cv.odometry_to_msg(OdometryValues(x, y, 0.0), stamp, f"{name}/base_link")
+            self.odom[name].publish(odom)
+
+    def report(self, generation_stamp_ns: int, distance_now: float) -> None:
+        now = self.node.get_clock().now().nanoseconds * 1e-9
+        for name in POSITIONS:
+            values = cv.ProgressValues(generation_stamp_ns, 5.0, distance_now, now)
+            self.progress[name].publish(cv.progress_to_msg(values))
+
+    def spin_until(self, condition, what: str, keep_reporting=None) -> None:
+        deadline = time.monotonic() + WAIT
+        while not condition():
+            assert time.monotonic() < deadline, f"timed out waiting for {what}"
+            if keep_reporting:
+                keep_reporting()
+            rclpy.spin_once(self.node, timeout_sec=0.05)
+
+
+@pytest.fixture()
+def base_station(tmp_path: Path):
+    mission = tmp_path / "mission.yaml"
+    mission.write_text(MISSION)
+    log = (tmp_path / "base_station.log").open("w")
+    process = subprocess.Popen(
+        [
+            sys.executable, "-m", "coverage_fleet.ros.base_station", "--ros-args",
+            "-p", f"mission_file:={mission}", "-p", "rate:=5.0",
+            "-p", "controller_timeout:=600.0",
+        ],
+        stdout=log, stderr=subprocess.STDOUT,
+    )
+    rclpy.init()
+    fleet = FakeFleet()
+    yield fleet
+    fleet.node.destroy_node()
+    rclpy.shutdown()
+    process.terminate()
+    process.wait(timeout=20)
+    log.close()
+    assert process.returncode == 0, (tmp_path / "base_station.log").read_text()[-3000:]
+
+
+def test_a_stale_progress_report_never_opens_the_gate(base_station: FakeFleet) -> None:
+    fleet = base_station
+    # Before any target the robots report "no generation" (zero stamp) to show they live.
+    fleet.spin_until(
+        lambda: len(fleet.targets) == 2 and fleet.openings,
+        "generation 0", keep_reporting=lambda: fleet.report(0, 0.0),
+    )
+    assert fleet.openings[0].generation == 0 and fleet.openings[0].reason == "start"
+    first = fleet.targets["rover_a"]
+    assert all(d > 0.5 for d in fleet.openings[0].distances.values())
+
+    # Progress on generation 0 (everyone arrived) opens the gate: generation 1.
+    fleet.report(first, 0.0)
+    fleet.spin_until(lambda: len(fleet.openings) >= 2, "generation 1")
+    assert fleet.openings[1].generation == 1 and fleet.openings[1].reason == "progress"
+    fleet.spin_until(lambda: fleet.targets["rover_a"] != first, "the generation-1 targets")
+    second = fleet.targets["rover_a"]
+    assert fleet.targets["rover_b"] == second
+
+    # The same report naming generation 0 again (stale): several partition rounds go by
+    # and the gate stays shut.
+    fleet.report(first, 0.0)
+    seen = fleet.candidates
+    fleet.spin_until(lambda: fleet.candidates >= seen + 5, "five more partition rounds")
+    assert [o.generation for o in fleet.openings] == [0, 1]
+
+    # Naming generation 1 (current), the same distances open it.
+    fleet.report(second, 0.0)
+    fleet.spin_until(lambda: len(fleet.openings) >= 3, "generation 2")
+    assert [o.generation for o in fleet.openings] == [0, 1, 2]
+    # Robots did not move, so the cost stays what the partition computed (not lower).
+    assert fleet.openings[2].cost == pytest.approx(fleet.openings[1].cost, rel=1e-9)
+    assert np.isfinite(fleet.openings[2].cost)
