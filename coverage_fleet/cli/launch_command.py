@@ -10,13 +10,18 @@ import os
 import sys
 import threading
 import time
+from dataclasses import dataclass
 from datetime import UTC, datetime
 from pathlib import Path
+from typing import TYPE_CHECKING, Any
 
 from coverage_fleet.errors import ConfigError, Problem
 
-from .graph import SIMULATION_MODES, fleet_nodes
+from .graph import SIMULATION_MODES, SimulationMode, fleet_nodes
 from .launcher import SAFETY_CAUTION, GraphProcesses, ros_environment
+
+if TYPE_CHECKING:
+    from coverage_fleet.fleet.mission import Mission
 
 EXIT_NODE_DIED = 1
 EXIT_INTERRUPTED = 130
@@ -111,13 +116,42 @@ def run(args: argparse.Namespace) -> int:
     from coverage_fleet.fleet.mission import load_mission
 
     mission = load_mission(args.mission)
-    simulation = args.sim_mode if args.headless_sim else None
+    result = run_graph(
+        mission,
+        args.sim_mode if args.headless_sim else None,
+        _overrides(args.vehicle),
+        duration=args.duration,
+        out=args.out,
+        record=not args.no_record,
+    )
+    return result.status
+
+
+@dataclass(frozen=True)
+class GraphRun:
+    """How a run of the graph ended: exit status, trial directory and report metrics (None
+    without recording)."""
+
+    status: int
+    trial: Path | None
+    metrics: dict[str, Any]
+
+
+def run_graph(
+    mission: Mission,
+    simulation: SimulationMode | None,
+    vehicle_overrides: dict[str, Path] | None = None,
+    duration: float = 0.0,
+    out: Path | None = None,
+    record: bool = True,
+) -> GraphRun:
+    """Start the mission's graph, watch it until the simulation is over, a node other than a
+    controller dies or Ctrl-C, stop it and write the trial (when recording)."""
     specs = fleet_nodes(
-        mission.source, simulation, _overrides(args.vehicle), duration=args.duration,
-        recorded=not args.no_record,
+        mission.source, simulation, vehicle_overrides, duration=duration, recorded=record
     )
     stamp = datetime.now(UTC).strftime("%Y%m%dT%H%M%SZ")
-    out = args.out or Path("trials") / f"{mission.name}-ros-{stamp}"
+    out = out or Path("trials") / f"{mission.name}-ros-{stamp}"
     if out.exists():
         raise ConfigError.single(str(out), "--out", "already exists; a trial is never overwritten")
     log_dir = Path(f"{out}.logs")
@@ -129,11 +163,10 @@ def run(args: argparse.Namespace) -> int:
     print(SAFETY_CAUTION)
     for note in notes:
         print(f"launch: set {note}")
-    recorder, stop_recorder = (None, None) if args.no_record else _start_recorder(mission.source)
+    recorder, stop_recorder = _start_recorder(mission.source) if record else (None, None)
     graph = GraphProcesses(log_dir, env)
     started = time.monotonic()
     status = 0
-    finished = False
     try:
         graph.start(specs)
         print(
@@ -148,29 +181,7 @@ def run(args: argparse.Namespace) -> int:
             f"{log_dir}; Ctrl-C stops everything",
             flush=True,
         )
-        while not finished:
-            for node in graph.exited():
-                code = node.returncode
-                if node.spec.role == SIMULATOR_ROLE and code == 0:
-                    print("launch: the simulation is over", flush=True)
-                    finished = True
-                elif node.spec.role.startswith("controller"):
-                    # A fault in one robot never takes the fleet down: the others go on.
-                    print(
-                        f"launch: {node.spec.label} exited with status {code} "
-                        f"(see {node.log_path}); the rest of the fleet goes on",
-                        file=sys.stderr, flush=True,
-                    )
-                    status = EXIT_NODE_DIED
-                else:
-                    print(
-                        f"launch: {node.spec.label} exited with status {code} "
-                        f"(see {node.log_path}); stopping the graph",
-                        file=sys.stderr, flush=True,
-                    )
-                    status = EXIT_NODE_DIED
-                    finished = True
-            time.sleep(0.1)
+        status = _watch(graph)
     except KeyboardInterrupt:
         print("launch: interrupted, stopping the graph", file=sys.stderr, flush=True)
         status = EXIT_INTERRUPTED
@@ -179,10 +190,39 @@ def run(args: argparse.Namespace) -> int:
         if stop_recorder is not None:
             stop_recorder()
     print(f"launch: all processes stopped after {time.monotonic() - started:.1f} s")
-    if recorder is not None:
-        path, metrics = recorder.write(out, wall_time=time.monotonic() - started)
-        print(f"launch: trial written to {path} (report in {path / 'report'})")
-        for key in ("generations", "final_cost", "settled"):
-            if key in metrics:
-                print(f"  {key}: {metrics[key]}")
-    return status
+    if recorder is None:
+        return GraphRun(status, None, {})
+    path, metrics = recorder.write(out, wall_time=time.monotonic() - started)
+    print(f"launch: trial written to {path} (report in {path / 'report'})")
+    for key in ("generations", "final_cost", "settled"):
+        if key in metrics:
+            print(f"  {key}: {metrics[key]}")
+    return GraphRun(status, path, metrics)
+
+
+def _watch(graph: GraphProcesses) -> int:
+    """Until the simulation is over or a node other than a controller exits; returns the
+    exit status (EXIT_NODE_DIED when any node died)."""
+    status = 0
+    while True:
+        for node in graph.exited():
+            code = node.returncode
+            if node.spec.role == SIMULATOR_ROLE and code == 0:
+                print("launch: the simulation is over", flush=True)
+                return status
+            if node.spec.role.startswith("controller"):
+                # A fault in one robot never takes the fleet down: the others go on.
+                print(
+                    f"launch: {node.spec.label} exited with status {code} "
+                    f"(see {node.log_path}); the rest of the fleet goes on",
+                    file=sys.stderr, flush=True,
+                )
+                status = EXIT_NODE_DIED
+                continue
+            print(
+                f"launch: {node.spec.label} exited with status {code} "
+                f"(see {node.log_path}); stopping the graph",
+                file=sys.stderr, flush=True,
+            )
+            return EXIT_NODE_DIED
+        time.sleep(0.1)

@@ -43,7 +43,7 @@ class PartitionNode(Node):
             self, "mission_file", "", "Mission file (YAML): region, density and roster."
         )
         rate = declare(
-            self, "rate", 5.0, "Partitions per second (ROS clock).", (0.1, 100.0)
+            self, "rate", 10.0, "Partitions per second (ROS clock).", (0.1, 100.0)
         )
         self.state_timeout = declare(
             self, "state_timeout", 2.0,

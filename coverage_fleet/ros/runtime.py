@@ -3,6 +3,8 @@ SIGINT and SIGTERM (rclpy installs handlers for both), a node's own exit status 
 
 from __future__ import annotations
 
+import faulthandler
+import signal
 import sys
 from collections.abc import Callable, Sequence
 
@@ -32,6 +34,9 @@ def run_nodes(
 ) -> int:
     """Create the nodes and spin them in one executor until shutdown. Returns the exit
     status: 0 on a signal or a finished run, 2 on bad configuration."""
+    # `kill -USR1 <pid>` prints every thread's stack to the node's log: the way to see
+    # where a node that stopped answering is stuck.
+    faulthandler.register(signal.SIGUSR1, all_threads=True)
     rclpy.init(args=list(sys.argv if args is None else args))
     nodes: list[Node] = []
     status = 0
