@@ -58,7 +58,7 @@ def write_mission(folder: Path, robots: int) -> Path:
 def baseline_solve_times(mission_path: Path, samples: int = 20) -> list[float]:
     """In-process MPC solves of every roster robot towards a target 5 m away."""
     from coverage_fleet.control.controller import RobotController
-    from coverage_fleet.control.terminal import compute_terminal_ingredients
+    from coverage_fleet.control.terminal import terminal_for_vehicle
     from coverage_fleet.fleet.mission import load_mission
     from coverage_fleet.fleet.simulation import initial_state
 
@@ -66,7 +66,7 @@ def baseline_solve_times(mission_path: Path, samples: int = 20) -> list[float]:
     times = []
     for entry in mission.roster:
         spec = entry.vehicle
-        terminal = compute_terminal_ingredients(spec.model, spec.mpc, spec.cache_key)
+        terminal, _ = terminal_for_vehicle(spec)
         controller = RobotController(spec.model, spec.mpc, mission.region.halfspaces(), terminal)
         x = initial_state(entry, entry.initial_pose)
         target = np.asarray(entry.initial_pose[:2]) + np.array([5.0, 3.0])

@@ -192,7 +192,7 @@ def test_fleet_settles_at_a_centroidal_voronoi_configuration(baseline) -> None:
     # before; the current cell's centroid may have moved by about as much again.
     assert gaps.max() <= 2 * SETTLE, dict(zip(names, gaps, strict=True))
     # And the robots really spread out: from a 2 m cluster to the four quarters.
-    assert np.min(np.linalg.norm(final[:, None] - final[None], axis=2) + 99 * np.eye(4)) > 5.0
+    assert np.min(np.linalg.norm(final[:, None] - final[None], axis=2) + 99 * np.eye(4)) > 4.0
 
 
 def test_cost_at_gate_openings_strictly_decreases(baseline) -> None:
@@ -239,12 +239,18 @@ def test_a_killed_controller_does_not_take_down_the_fleet(faulty) -> None:
     assert "drone_b: no answer" in simulator_log
     assert "(fleet at rest)" in simulator_log  # the other three went on to rest
     openings = rows(trial / "gate_openings.csv")
-    roster_change = [r for r in openings if r["reason"] == "roster"]
-    assert roster_change, "the gate never re-committed without drone_b"
-    generation = int(roster_change[0]["generation"])
-    assert {r["robot"] for r in openings if int(r["generation"]) == generation} == {
-        "rover_a", "rover_c", "boat_d",
-    }
+    robots_of = {}
+    for row in openings:
+        robots_of.setdefault(int(row["generation"]), (row["reason"], float(row["time"]), set()))
+        robots_of[int(row["generation"])][2].add(row["robot"])
+    assert robots_of[0][2] == {"rover_a", "drone_b", "rover_c", "boat_d"}
+    without = [g for g, (_, _, robots) in robots_of.items() if "drone_b" not in robots]
+    assert without, "the gate never re-committed without drone_b"
+    first = min(without)
+    assert robots_of[first][0] == "roster"
+    assert robots_of[first][2] == {"rover_a", "rover_c", "boat_d"}
+    # Once left out, drone_b never comes back, and the others went on for a while.
+    assert all("drone_b" not in robots_of[g][2] for g in robots_of if g > first)
     for name in ("rover_a", "rover_c", "boat_d"):
         t, _ = positions(trial, name)
-        assert t[-1] > float(roster_change[0]["time"]) + 1.0  # recorded well past the kill
+        assert t[-1] > robots_of[first][1] + 1.0

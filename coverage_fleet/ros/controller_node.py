@@ -25,7 +25,7 @@ from nav_msgs.msg import Odometry, Path
 from rclpy.node import Node
 
 from coverage_fleet.control.controller import RobotController
-from coverage_fleet.control.terminal import compute_terminal_ingredients
+from coverage_fleet.control.terminal import terminal_for_vehicle
 from coverage_fleet.errors import ConfigError
 from coverage_fleet.fleet.mission import load_mission
 from coverage_fleet.vehicles.loader import load_vehicle_file
@@ -87,7 +87,7 @@ class ControllerNode(Node):
         self.model = spec.model
         self.sample_time = float(spec.mpc.sample_time)
         started = wallclock.perf_counter()
-        terminal = compute_terminal_ingredients(self.model, spec.mpc, spec.cache_key)
+        terminal, _ = terminal_for_vehicle(spec)
         self.controller = RobotController(
             self.model, spec.mpc, mission.region.halfspaces(), terminal
         )

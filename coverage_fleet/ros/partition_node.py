@@ -55,6 +55,13 @@ class PartitionNode(Node):
             "Seconds without a progress report after which a robot's controller counts as "
             "not live and the robot is left out.", (0.01, 600.0),
         )
+        self.startup_grace = declare(
+            self, "startup_grace", 5.0,
+            "Seconds the first partition waits for every roster robot to be live; after "
+            "that it starts with the live ones (the others join later).", (0.0, 600.0),
+        )
+        self.started = False
+        self.first_tick: float | None = None
         self.mission = load_mission(mission_file)
         self.names = list(self.mission.robot_names)
         self.positions: dict[int, np.ndarray] = {}
@@ -116,6 +123,19 @@ class PartitionNode(Node):
     def _on_timer(self) -> None:
         now = self._now()
         live = self._live_robots(now)
+        if not self.started:
+            # The whole roster gets its first cells together, so that the first generation
+            # is not followed at once by a roster change when a slower robot appears.
+            self.first_tick = now if self.first_tick is None else self.first_tick
+            waited = now - self.first_tick
+            if len(live) < len(self.names) and waited < self.startup_grace:
+                return
+            self.started = True
+            missing = sorted(set(self.names) - {self.names[i] for i in live})
+            if missing:
+                self.get_logger().warning(
+                    f"starting without {', '.join(missing)} (not live after {waited:.1f} s)"
+                )
         if not live:
             return
         stacked = np.array([self.positions[i] for i in live])
