@@ -106,8 +106,16 @@ class RecorderNode(Node):
         )
         self.solver_samples: dict[str, tuple[float, str, bool]] = {}
         self.settled_time: float | None = None
+        self.time_origin: float | None = None
 
     # --- callbacks ----------------------------------------------------------------------
+
+    def _relative(self, t: float) -> float:
+        """Seconds since the first message of the run: a simulated run starts at 0 anyway,
+        a real-time run is stamped with the wall clock (seconds since 1970)."""
+        if self.time_origin is None:
+            self.time_origin = t
+        return t - self.time_origin
 
     def _on_target(self, name: str, msg: PointStamped) -> None:
         with self.lock:
@@ -151,7 +159,7 @@ class RecorderNode(Node):
     def _on_odom(self, entry, msg: Odometry) -> None:
         model = entry.vehicle.model
         name = entry.name
-        t = stamp_to_seconds(msg.header.stamp)
+        t = self._relative(stamp_to_seconds(msg.header.stamp))
         x = np.asarray(model.state_from_odometry(odometry_from_msg(msg)), float)
         with self.lock:
             command = self.commands.get(name)
@@ -195,7 +203,7 @@ class RecorderNode(Node):
                 target = self.targets.get(self.names[index])
                 if target is not None:
                     largest = max(largest, float(np.linalg.norm(position - target)))
-            self.log.time.append(candidates.time)
+            self.log.time.append(self._relative(candidates.time))
             self.log.generation.append(self.generation)
             self.log.cost.append(candidates.cost)
             self.log.largest_distance.append(largest)
@@ -205,7 +213,7 @@ class RecorderNode(Node):
         with self.lock:
             self.log.openings.append(
                 GateOpening(
-                    time=values.time,
+                    time=self._relative(values.time),
                     generation=values.generation,
                     reason=values.reason,
                     cost=values.cost,
