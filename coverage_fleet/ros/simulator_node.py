@@ -13,7 +13,10 @@ Two modes:
   that joins late still receives the current state.
 
 A robot without a fresh command (older than `command_timeout`) is given its model's
-braking input: a silent controller never leaves its robot driving on a stale command.
+braking input: a silent controller never leaves its robot driving on a stale command. The
+mission's simulation noise applies as offline: process noise on the positions every tick,
+measurement noise on the published positions (one numpy generator seeded with the mission's
+seed).
 """
 
 from __future__ import annotations
@@ -121,7 +124,13 @@ class SimulatorNode(Node):
         self.step = step or simulation_step(mission.roster, mission.simulation)
         self.plant_substeps = self.plant_substeps or mission.simulation.plant_substeps
         self.duration = self.duration or mission.simulation.duration
+        # The mission's noise, as the offline simulation applies it: process noise on the
+        # positions per tick, measurement noise on the positions published.
+        self.process_noise = mission.simulation.process_noise_std
+        self.measurement_noise = mission.simulation.measurement_noise_std
+        self.rng = np.random.default_rng(mission.simulation.seed)
         self.time = 0.0
+        self.measured: dict[str, np.ndarray] = {}
         self.converged = False
         self.robots: dict[str, SimulatedRobot] = {}
         for entry in mission.roster:
@@ -211,14 +220,24 @@ class SimulatorNode(Node):
         for robot in self.robots.values():
             u = self._input_for(robot)
             robot.state = np.asarray(robot.plant(robot.state, u), float).ravel()
+            if self.process_noise > 0:
+                i, j = robot.entry.vehicle.model.position_indices
+                robot.state[[i, j]] += self.rng.normal(0.0, self.process_noise, 2)
         self.time += self.step
+        self.measured = {}
 
     def _publish_states(self) -> None:
         stamp = seconds_to_stamp(self.time)
         self.clock_pub.publish(Clock(clock=stamp))
         for name, robot in self.robots.items():
             model = robot.entry.vehicle.model
-            odom = model.odometry_from_state(robot.state, robot.command)
+            if name not in self.measured:  # a re-publication sends the same measurement
+                x = robot.state.copy()
+                if self.measurement_noise > 0:
+                    i, j = model.position_indices
+                    x[[i, j]] += self.rng.normal(0.0, self.measurement_noise, 2)
+                self.measured[name] = x
+            odom = model.odometry_from_state(self.measured[name], robot.command)
             robot.commands_since_publish = 0
             robot.odom_pub.publish(odometry_to_msg(odom, stamp, child_frame_id=f"{name}/base_link"))
 
