@@ -4,15 +4,24 @@ Holds the generations of committed targets (coverage_fleet.control.gate.Referenc
 `coverage/candidates` message is offered to the gate; when the monotone-progress condition
 holds it commits them and publishes every robot's `<robot>/coverage/target` (reliable,
 transient-local; the header stamp identifies the generation), `coverage/generation`,
-`coverage/openings` and `coverage/converged`. Progress reports name their generation by the
-stamp of the target they refer to; a stamp that is not the current generation's (an old
-report, or one from before the robot had a target) is ignored and never opens the gate.
+`coverage/openings` and `coverage/converged`.
+
+Progress reports name their generation by the stamp of the target they refer to. A robot
+counts for the current generation only once its newest report names it: a report with an
+older stamp (or one from before the robot had a target) is ignored and never opens the gate.
+The rule itself (every robot no farther than at the commit, one strictly closer) is then
+evaluated on the positions in the candidates message, the very positions whose partition
+would be committed, as in the offline simulation, so that the cost at successive openings
+falls even though reports and partitions arrive at different moments. (The distance in a
+report is the controller's own view, for monitoring.)
+
 The robots in a candidates message are the gate's roster: robots the partition left out
 leave the gate, and the next offer is committed for the remaining ones.
 """
 
 from __future__ import annotations
 
+import numpy as np
 from geometry_msgs.msg import PointStamped, Vector3Stamped
 from rclpy.node import Node
 from std_msgs.msg import Bool, Float64MultiArray, UInt32
@@ -61,6 +70,8 @@ class GateNode(Node):
         self.gate = ReferenceGate(settings)
         self.names = list(mission.robot_names)
         self.generation_of_stamp: dict[int, int] = {}
+        #: robot -> generation its newest progress report names
+        self.acknowledged: dict[str, int] = {}
         self.last_stamp_ns = 0
         self.ignored_reports = 0
         self.converged = False
@@ -88,12 +99,13 @@ class GateNode(Node):
     def _on_progress(self, name: str, msg: Vector3Stamped) -> None:
         report = progress_from_msg(msg)
         generation = self.generation_of_stamp.get(report.generation_stamp_ns)
-        if generation is None or not self.gate.report(
-            ProgressReport(name, generation, report.distance_now)
-        ):
+        if generation is None:
             self.ignored_reports += 1
+            self.acknowledged.pop(name, None)
             return
-        self._update_converged()
+        if generation != self.gate.generation:
+            self.ignored_reports += 1
+        self.acknowledged[name] = generation
 
     def _on_candidates(self, msg: Float64MultiArray) -> None:
         candidates = candidates_from_msg(msg)
@@ -105,6 +117,11 @@ class GateNode(Node):
         for name in sorted(present - set(self.gate.robots)):
             self.gate.add_robot(name)
         by_name = {self.names[i]: i for i in candidates.positions}
+        for name, index in by_name.items():
+            target = self.gate.targets.get(name)
+            if target is not None and self.acknowledged.get(name) == self.gate.generation:
+                distance = float(np.linalg.norm(candidates.positions[index] - target))
+                self.gate.report(ProgressReport(name, self.gate.generation, distance))
         opening = self.gate.offer(
             {n: candidates.centroids[i] for n, i in by_name.items()},
             {n: candidates.positions[i] for n, i in by_name.items()},
