@@ -140,12 +140,14 @@ def simulate_mission(
     duration: float | None = None,
     initial_poses: Mapping[str, tuple[float, float, float] | OdometryValues] | None = None,
     on_step: Callable[[StepInfo], None] | None = None,
+    stop_at_rest: bool = True,
 ) -> TrialLog:
     """Run the mission offline in closed loop; returns the trial log.
 
     seed and duration default to the mission's simulation settings; initial_poses (by robot
     name: a pose at rest, or odometry values for a robot already moving) default to the
-    roster's poses at rest.
+    roster's poses at rest. With stop_at_rest=False the run goes on for the whole duration
+    (as the ROS graph does); settled_time is then the first time the fleet was at rest.
     """
     settings = mission.simulation
     seed = settings.seed if seed is None else int(seed)
@@ -229,8 +231,9 @@ def simulate_mission(
         log.largest_distance.append(largest)
         if on_step is not None:
             on_step(StepInfo(t, duration, float(partition.cost), gate.generation))
-        if settled:
+        if settled and log.settled_time is None:
             log.settled_time = t
+        if settled and stop_at_rest:
             break
 
         for robot in robots:
