@@ -36,6 +36,9 @@ class GateSettings:
 
     noise_tolerance: how much farther than its recorded distance a robot may be and still
         count as "no farther" (absorbs localisation noise and a robot jittering at rest).
+        The cost decrease at every opening is guaranteed for 0; a positive value lets a
+        robot slip back by at most this much, which the mover's progress outweighs unless
+        the masses of the cells differ wildly (keep it well below progress_tolerance).
     progress_tolerance: how much closer than its recorded distance a robot must be to count
         as "strictly closer" (so that noise alone never opens the gate).
     settle_distance: the fleet is at rest (converged) when every robot is within this
