@@ -199,6 +199,7 @@ def test_rover_heading_wrap_from_odometry_does_not_disturb_the_loop():
         step = controller.step(measured, target)
         assert step.success, step.status
         x = np.array(F(measured, step.input)).reshape(-1)
+    assert crossed, "the scenario must make the wrapped heading jump"
     assert np.linalg.norm(x[:2] - target) < REACHED_TOLERANCE
 
 
