@@ -193,10 +193,11 @@ def run_graph(
     if recorder is None:
         return GraphRun(status, None, {})
     path, metrics = recorder.write(out, wall_time=time.monotonic() - started)
+    from coverage_fleet.cli.simulate_command import summary_lines
+
+    for line in summary_lines(metrics):
+        print(f"launch: {line}")
     print(f"launch: trial written to {path} (report in {path / 'report'})")
-    for key in ("generations", "final_cost", "settled"):
-        if key in metrics:
-            print(f"  {key}: {metrics[key]}")
     return GraphRun(status, path, metrics)
 
 

@@ -149,12 +149,12 @@ class RecorderNode(Node):
                     self.solver_samples[status.hardware_id] = sample
 
     def _on_converged(self, msg: Bool) -> None:
+        # The first time the gate reports the fleet at rest, as the offline log keeps it (the
+        # simulator stops there; a gate that opens again a moment later does not undo it).
         with self.lock:
             if msg.data and self.settled_time is None:
                 times = [r.time[-1] for r in self.log.robots.values() if r.time]
                 self.settled_time = max(times) if times else 0.0
-            elif not msg.data:
-                self.settled_time = None
 
     def _on_odom(self, entry, msg: Odometry) -> None:
         model = entry.vehicle.model
