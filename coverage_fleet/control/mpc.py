@@ -81,6 +81,12 @@ SOLVER_KEYS = ("plugin", "max_iter", "options", "compile")
 #: over 100 IPOPT iterations, e.g. the surface vessel).
 RESCUE_PLUGIN = "ipopt"
 RESCUE_ITERATION_FACTOR = 3
+#: After a failure of the fast plugin, this many samples go straight to the rescue plugin
+#: (failures come in stretches, and a failed fast solve costs its whole iteration budget).
+RESCUE_HOLD_SAMPLES = 10
+#: Iteration cap of the fast plugin when a rescue plugin stands behind it (warm-started
+#: fatrop needs 5 to 20; a sample that needs more is cheaper to hand over).
+FAST_ITERATION_CAP = 40
 DEFAULT_MAX_ITER = 100
 #: A plan whose positions and steady state stay within this of the robot counts as "not
 #: moving" (metres); see TrackingMpc._stalled.
@@ -409,12 +415,15 @@ class TrackingMpc:
             self._solver = self._make_solver(plugin, str(library))
         #: A more forgiving solver for the samples the fast one fails on.
         self._rescue = self._make_solver(RESCUE_PLUGIN, nlp) if plugin != RESCUE_PLUGIN else None
+        self._rescue_samples_left = 0
 
     def _make_solver(self, plugin: str, nlp: dict[str, ca.SX] | str) -> ca.Function:
         options = dict(SOLVER_DEFAULTS[plugin])
         max_iter = int(self.settings.solver.get("max_iter", DEFAULT_MAX_ITER))
         if plugin != self.plugin:
             max_iter *= RESCUE_ITERATION_FACTOR
+        elif plugin != RESCUE_PLUGIN:
+            max_iter = min(max_iter, FAST_ITERATION_CAP)
         options[f"{plugin}.max_iter"] = max_iter
         if plugin == "fatrop":
             options["equality"] = [bool(v) for v in self._lbg == self._ubg]
@@ -508,11 +517,21 @@ class TrackingMpc:
         if warm_duals and self._lam_g is not None:
             arguments["lam_g0"] = self._lam_g
             arguments["lam_x0"] = self._lam_x
+        if self._rescue is not None and self._rescue_samples_left > 0:
+            # The fast solver failed recently: the problem is in a hard stretch, skip it.
+            self._rescue_samples_left -= 1
+            started = time.perf_counter()
+            result = self._rescue(**arguments)
+            elapsed = time.perf_counter() - started
+            stats = dict(self._rescue.stats())
+            stats["return_status"] = f"{RESCUE_PLUGIN}: {stats.get('return_status')}"
+            return result, stats, elapsed
         started = time.perf_counter()
         result = self._solver(**arguments)
         elapsed = time.perf_counter() - started
         stats = dict(self._solver.stats())
         if not stats.get("success") and self._rescue is not None:
+            self._rescue_samples_left = RESCUE_HOLD_SAMPLES
             first = f"{self.plugin}: {stats.get('return_status', 'failed')}"
             iterations = int(stats.get("iter_count", 0))
             started = time.perf_counter()
