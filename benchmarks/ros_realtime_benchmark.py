@@ -189,7 +189,9 @@ def main() -> int:
     print(f"robots: {args.robots}, sample time {period:g} s, measured {end - start:.1f} s, "
           f"{os.cpu_count()} CPUs")
     print(f"control periods missed: {missed} of {periods} = {100 * share:.1f} %")
-    print(f"median state-to-command latency: {1000 * latency:.1f} ms")
+    print(f"median state-to-command latency: {1000 * latency:.1f} ms "
+          f"(95th percentile {1000 * float(np.percentile(all_latencies, 95)):.1f} ms, "
+          f"{len(all_latencies)} commands)")
     in_graph = statistics.median(graph_solves) if graph_solves else float("nan")
     print(f"median MPC solve time inside the graph (/diagnostics): {1000 * in_graph:.1f} ms")
     print(f"ratio latency / in-graph solve time: {latency / in_graph:.2f}")
