@@ -189,11 +189,6 @@ class RecorderNode(Node):
             robot.solve_time.append(sample[0] if sample else float("nan"))
             robot.status.append(sample[1] if sample else "")
             robot.solver_ok.append(sample[2] if sample else True)
-            self.log.violations.extend(
-                limit_violations(
-                    SimpleNamespace(entry=entry), x, u, self.region_A, self.region_b, t
-                )
-            )
 
     def _on_candidates(self, msg: Float64MultiArray) -> None:
         candidates = candidates_from_msg(msg)
@@ -236,6 +231,17 @@ class RecorderNode(Node):
             log.step = float(np.median(np.concatenate(steps))) if steps else 0.0
             log.settled_time = self.settled_time
             log.wall_time = wall_time
+            # Checked once the rows are final: a row's input is the command that answered
+            # its state, which arrives after the state.
+            log.violations = []
+            for entry in self.mission.roster:
+                robot = log.robots[entry.name]
+                for t, x, u in zip(robot.time, robot.state, robot.input, strict=True):
+                    log.violations.extend(
+                        limit_violations(
+                            SimpleNamespace(entry=entry), x, u, self.region_A, self.region_b, t
+                        )
+                    )
             return log
 
     def write(self, directory: str | Path, wall_time: float = 0.0):
