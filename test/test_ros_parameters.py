@@ -4,6 +4,7 @@ started with bad input exits with status 2 and says what is wrong, never a trace
 
 from __future__ import annotations
 
+import signal
 import subprocess
 import sys
 from pathlib import Path
@@ -91,3 +92,19 @@ def test_a_controller_for_a_robot_not_in_the_roster_is_refused(mission: Path) ->
     )
     assert result.returncode == 2
     assert "no robot named 'ghost'" in result.stdout + result.stderr
+
+
+@pytest.mark.parametrize("sig", [signal.SIGINT, signal.SIGTERM], ids=["SIGINT", "SIGTERM"])
+def test_a_node_shuts_down_cleanly_on_a_signal(mission: Path, sig: signal.Signals) -> None:
+    process = subprocess.Popen(
+        [sys.executable, "-m", "coverage_fleet.ros.partition_node", "--ros-args",
+         "-p", f"mission_file:={mission}"],
+        stdout=subprocess.PIPE, stderr=subprocess.STDOUT, text=True,
+    )
+    # Wait until the node is up (it logs once its parameters are read).
+    line = process.stdout.readline()
+    assert "partitioning" in line, line
+    process.send_signal(sig)
+    out, _ = process.communicate(timeout=30)
+    assert process.returncode == 0, out
+    assert "Traceback" not in out
