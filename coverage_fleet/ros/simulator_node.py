@@ -12,11 +12,11 @@ Two modes:
   answers. States are re-published every `republish_period` while waiting, so a controller
   that joins late still receives the current state.
 
-A robot without a fresh command (older than `command_timeout`) is given its model's
-braking input: a silent controller never leaves its robot driving on a stale command. The
-mission's simulation noise applies as offline: process noise on the positions every tick,
-measurement noise on the published positions (one numpy generator seeded with the mission's
-seed).
+A robot without a fresh command (in realtime mode: older than `command_timeout`; in
+lockstep: its controller marked not live) is given its model's braking input: a silent
+controller never leaves its robot driving on a stale command. The mission's simulation
+noise applies as offline: process noise on the positions every tick, measurement noise on
+the published positions (one numpy generator seeded with the mission's seed).
 """
 
 from __future__ import annotations
@@ -107,7 +107,8 @@ class SimulatorNode(Node):
         )
         self.command_timeout = declare(
             self, "command_timeout", 1.0,
-            "Wall seconds after which a robot's last command counts as stale (it brakes).",
+            "Realtime: wall seconds after which a robot's last command counts as stale (it "
+            "brakes).",
             (0.01, 600.0),
         )
         self.odom_subscribers = declare(
@@ -211,7 +212,12 @@ class SimulatorNode(Node):
 
     def _input_for(self, robot: SimulatedRobot) -> np.ndarray:
         model = robot.entry.vehicle.model
-        fresh = wallclock.monotonic() - robot.command_wall_time <= self.command_timeout
+        if self.mode == "lockstep":
+            # Every live robot answered this very step; how long the step took does not
+            # matter (a slow neighbour must not make it brake).
+            fresh = True
+        else:
+            fresh = wallclock.monotonic() - robot.command_wall_time <= self.command_timeout
         if robot.command is None or not fresh or robot.liveness == "lost":
             return np.asarray(model.braking_input(robot.state), float)
         return robot.command
