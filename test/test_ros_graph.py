@@ -146,3 +146,13 @@ def test_launcher_keeps_discovery_local_unless_the_user_chose() -> None:
     env, notes = ros_environment({"ROS_AUTOMATIC_DISCOVERY_RANGE": "SUBNET", "ROS_DOMAIN_ID": "7"})
     assert env["ROS_AUTOMATIC_DISCOVERY_RANGE"] == "SUBNET"
     assert (env["ROS_DOMAIN_ID"], notes) == ("7", [])
+
+
+def test_only_selects_a_part_of_the_deployment(mission: Path) -> None:
+    nodes = graph.fleet_nodes(mission, None)
+    assert [n.role for n in graph.select_nodes(nodes, ["base_station"], "m")] == ["base_station"]
+    robot = graph.select_nodes(nodes, ["drone_b"], "m")
+    assert [(n.role, n.namespace) for n in robot] == [("controller drone_b", "/drone_b")]
+    assert graph.select_nodes(nodes, [], "m") == nodes
+    with pytest.raises(ConfigError, match=r"unknown part.*ghost.*drone_b, rover_a"):
+        graph.select_nodes(nodes, ["ghost"], "m")

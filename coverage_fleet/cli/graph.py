@@ -145,6 +145,25 @@ def fleet_nodes(
     return nodes
 
 
+def select_nodes(nodes: list[NodeSpec], parts: list[str], source: str) -> list[NodeSpec]:
+    """The nodes of a deployment's part: "base_station", "simulator", or a robot's name (its
+    controller). An empty list keeps every node."""
+    if not parts:
+        return nodes
+    names = {"base_station": "base_station", "simulator": "simulator"}
+    names.update({n.namespace.strip("/"): n.role for n in nodes if n.namespace})
+    unknown = [p for p in parts if p not in names]
+    if unknown:
+        robots = sorted(set(names) - {"base_station", "simulator"})
+        raise ConfigError.single(
+            source, "--only",
+            f"unknown part(s) {', '.join(unknown)}; expected base_station, simulator or a "
+            f"robot of the roster ({', '.join(robots)})",
+        )
+    wanted = {names[p] for p in parts}
+    return [n for n in nodes if n.role in wanted]
+
+
 def check_simulation(mission: Mission, simulation: SimulationMode | None) -> None:
     if simulation is not None and simulation not in SIMULATION_MODES:
         raise ConfigError.single(

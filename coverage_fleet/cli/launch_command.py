@@ -17,7 +17,7 @@ from typing import TYPE_CHECKING, Any
 
 from coverage_fleet.errors import ConfigError, Problem
 
-from .graph import SIMULATION_MODES, SimulationMode, fleet_nodes
+from .graph import SIMULATION_MODES, SimulationMode, fleet_nodes, select_nodes
 from .launcher import SAFETY_CAUTION, GraphProcesses, ros_environment
 
 if TYPE_CHECKING:
@@ -55,6 +55,11 @@ def register(subparsers: argparse._SubParsersAction) -> None:
     parser.add_argument(
         "--duration", type=float, default=0.0,
         help="simulated seconds before the run ends (default: the mission's)",
+    )
+    parser.add_argument(
+        "--only", action="append", default=[], metavar="PART",
+        help="start only this part (repeatable): base_station, simulator, or a robot's name "
+        "(its controller), e.g. on a robot's own computer",
     )
     parser.add_argument("--out", type=Path, help="trial directory (default: trials/...)")
     parser.add_argument(
@@ -123,6 +128,7 @@ def run(args: argparse.Namespace) -> int:
         duration=args.duration,
         out=args.out,
         record=not args.no_record,
+        only=args.only,
     )
     return result.status
 
@@ -144,11 +150,16 @@ def run_graph(
     duration: float = 0.0,
     out: Path | None = None,
     record: bool = True,
+    only: list[str] | None = None,
 ) -> GraphRun:
     """Start the mission's graph, watch it until the simulation is over, a node other than a
     controller dies or Ctrl-C, stop it and write the trial (when recording)."""
-    specs = fleet_nodes(
-        mission.source, simulation, vehicle_overrides, duration=duration, recorded=record
+    specs = select_nodes(
+        fleet_nodes(
+            mission.source, simulation, vehicle_overrides, duration=duration, recorded=record
+        ),
+        only or [],
+        str(mission.source),
     )
     stamp = datetime.now(UTC).strftime("%Y%m%dT%H%M%SZ")
     out = out or Path("trials") / f"{mission.name}-ros-{stamp}"
