@@ -41,11 +41,12 @@ def run_nodes(
     nodes: list[Node] = []
     status = 0
     try:
+        # The executor first: a signal during start-up then finds everything it needs to
+        # shut down quietly.
+        executor = SingleThreadedExecutor()
         for factory in factories:
             nodes.append(factory())
-        executor = SingleThreadedExecutor()
-        for node in nodes:
-            executor.add_node(node)
+            executor.add_node(nodes[-1])
         executor.spin()
     except ConfigError as error:
         logger = rclpy.logging.get_logger(program)
@@ -58,6 +59,11 @@ def run_nodes(
     except RunFinished as finished:
         status = finished.status
     except (KeyboardInterrupt, ExternalShutdownException):
+        status = 0
+    except Exception:
+        # A signal during start-up shuts the context down under the node being built.
+        if rclpy.ok():
+            raise
         status = 0
     finally:
         for node in nodes:

@@ -63,6 +63,9 @@ class SimulatedRobot:
     answered_time: float = -np.inf
     #: "waiting" (no answer yet), "live", or "lost" (timed out; brakes until it answers)
     liveness: str = "waiting"
+    #: simulated time at which it was marked lost, and wall time it came back
+    lost_at: float = np.inf
+    revived_wall: float = -np.inf
     subscriptions: list = field(default_factory=list)
 
 
@@ -199,10 +202,15 @@ class SimulatorNode(Node):
 
     def _on_progress(self, robot: SimulatedRobot, msg: Vector3Stamped) -> None:
         report = progress_from_msg(msg)
-        if abs(report.state_time - self.time) < SAME_TIME:
+        current = abs(report.state_time - self.time) < SAME_TIME
+        if current:
             robot.answered_time = report.state_time
+        # A lost controller that answers any state since it was lost is back; from now on
+        # it is waited for again.
+        if current or (robot.liveness == "lost" and report.state_time > robot.lost_at):
             if robot.liveness != "live":
                 self.get_logger().info(f"{robot.entry.name}: controller answering, live")
+                robot.revived_wall = wallclock.monotonic()
             robot.liveness = "live"
 
     def _on_converged(self, msg: Bool) -> None:
@@ -244,7 +252,6 @@ class SimulatorNode(Node):
                     x[[i, j]] += self.rng.normal(0.0, self.measurement_noise, 2)
                 self.measured[name] = x
             odom = model.odometry_from_state(self.measured[name], robot.command)
-            robot.commands_since_publish = 0
             robot.odom_pub.publish(odometry_to_msg(odom, stamp, child_frame_id=f"{name}/base_link"))
 
     def _finish_if_done(self) -> None:
@@ -272,15 +279,18 @@ class SimulatorNode(Node):
             )
             if answered:
                 continue
+            waiting.append(name)
+            if abs(robot.answered_time - self.time) < SAME_TIME:
+                continue  # it answered this state; its command is on the way
             limit = self.startup_timeout if robot.liveness == "waiting" else self.lockstep_timeout
-            if now - self.step_published_wall > limit:
+            if now - max(self.step_published_wall, robot.revived_wall) > limit:
                 self.get_logger().warning(
                     f"{name}: no answer for t = {self.time:.2f} s within {limit:g} s; "
                     "marking its controller not live (its robot brakes)"
                 )
                 robot.liveness = "lost"
-                continue
-            waiting.append(name)
+                robot.lost_at = self.time
+                waiting.remove(name)
         if self.time == 0.0 and not waiting:
             short = [
                 n for n, r in self.robots.items()
@@ -296,6 +306,10 @@ class SimulatorNode(Node):
         self._finish_if_done()
         self._advance()
         self.step_published_wall = self.last_republish = wallclock.monotonic()
+        for robot in self.robots.values():
+            # Counted from the step's first publication: an answer to a re-publication
+            # of the same state is as good as the first.
+            robot.commands_since_publish = 0
         self._publish_states()
 
 
