@@ -327,3 +327,49 @@ def test_compiled_problem_gives_the_same_solution(tmp_path, monkeypatch):
     assert list((tmp_path / "mpc").glob("*.so"))
     assert plain.success and compiled.success
     np.testing.assert_allclose(compiled.predicted_states, plain.predicted_states, atol=1e-9)
+
+
+INTERRUPT_SCRIPT = """
+import signal, sys
+import numpy as np
+signal.signal(signal.SIGINT, signal.default_int_handler)
+sys.path.insert(0, sys.argv[1])
+from support_control import DoubleIntegratorModel
+from coverage_fleet.control.mpc import TrackingMpc
+from coverage_fleet.vehicles.settings import MpcSettings
+box = (np.array([[1.0, 0], [-1, 0], [0, 1], [0, -1]]), np.full(4, 1e3))
+settings = MpcSettings(horizon=150, solver={"plugin": sys.argv[2]})
+mpc = TrackingMpc(DoubleIntegratorModel(), settings, box)
+print("ready", flush=True)
+try:
+    for _ in range(100000):
+        mpc.reset()
+        mpc.solve(np.array([0.0, 0.0, 0.9, -0.9]), np.array([400.0, -300.0]))
+    print("never interrupted", flush=True)
+except KeyboardInterrupt:
+    print("interrupted", flush=True)
+"""
+
+
+@pytest.mark.parametrize("plugin", ["ipopt", "fatrop"])
+def test_ctrl_c_during_solves_reaches_the_caller(plugin, tmp_path):
+    """casadi turns a SIGINT that lands inside a solver callback into a failed solve; the
+    MPC must hand the operator's Ctrl-C on as KeyboardInterrupt instead (checked with a
+    real signal to a process busy solving, common practice for CLI tools)."""
+    import signal
+    import subprocess
+    import sys
+    import time
+
+    script = tmp_path / "busy.py"
+    script.write_text(INTERRUPT_SCRIPT)
+    here = str(Path(__file__).parent)
+    process = subprocess.Popen(
+        [sys.executable, str(script), here, plugin], stdout=subprocess.PIPE, text=True
+    )
+    assert process.stdout is not None
+    assert process.stdout.readline().strip() == "ready"
+    time.sleep(1.0)  # well inside the solving loop (not a timed assertion)
+    process.send_signal(signal.SIGINT)
+    out, _ = process.communicate(timeout=120)
+    assert out.strip() == "interrupted"

@@ -28,10 +28,13 @@ from __future__ import annotations
 import hashlib
 import os
 import shutil
+import signal
 import subprocess
 import tempfile
 import threading
 import time
+from collections.abc import Iterator
+from contextlib import contextmanager
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -207,6 +210,32 @@ def settings_problems(model: VehicleModel, settings: MpcSettings) -> list[Proble
 
 
 _CODEGEN_LOCK = threading.Lock()
+
+
+@contextmanager
+def interrupts_after_solve() -> Iterator[None]:
+    """Hold Ctrl-C (SIGINT) until the solver call returns, then deliver it.
+
+    casadi turns an interrupt that arrives inside a solver callback into a failed solve
+    (IPOPT: NonIpopt_Exception_Thrown), which the controller would treat as a solver failure
+    and carry on, losing the operator's Ctrl-C. Solves take milliseconds, so delivering the
+    signal right after is as good as at once. Only the main thread can handle signals;
+    elsewhere this does nothing."""
+    if threading.current_thread() is not threading.main_thread():
+        yield
+        return
+    previous = signal.getsignal(signal.SIGINT)
+    if not callable(previous):  # SIG_IGN or SIG_DFL set from outside Python: leave them
+        yield
+        return
+    received: list[int] = []
+    signal.signal(signal.SIGINT, lambda number, _frame: received.append(number))
+    try:
+        yield
+    finally:
+        signal.signal(signal.SIGINT, previous)
+        if received:
+            previous(signal.SIGINT, None)
 
 
 def compiled_library(solver: ca.Function) -> Path:
@@ -521,13 +550,15 @@ class TrackingMpc:
             # The fast solver failed recently: the problem is in a hard stretch, skip it.
             self._rescue_samples_left -= 1
             started = time.perf_counter()
-            result = self._rescue(**arguments)
+            with interrupts_after_solve():
+                result = self._rescue(**arguments)
             elapsed = time.perf_counter() - started
             stats = dict(self._rescue.stats())
             stats["return_status"] = f"{RESCUE_PLUGIN}: {stats.get('return_status')}"
             return result, stats, elapsed
         started = time.perf_counter()
-        result = self._solver(**arguments)
+        with interrupts_after_solve():
+            result = self._solver(**arguments)
         elapsed = time.perf_counter() - started
         stats = dict(self._solver.stats())
         if not stats.get("success") and self._rescue is not None:
@@ -535,7 +566,8 @@ class TrackingMpc:
             first = f"{self.plugin}: {stats.get('return_status', 'failed')}"
             iterations = int(stats.get("iter_count", 0))
             started = time.perf_counter()
-            result = self._rescue(**arguments)
+            with interrupts_after_solve():
+                result = self._rescue(**arguments)
             elapsed += time.perf_counter() - started
             stats = dict(self._rescue.stats())
             stats["return_status"] = f"{first}; {RESCUE_PLUGIN}: {stats.get('return_status')}"
