@@ -158,8 +158,11 @@ def plot_solve_times(path: Path, log: TrialLog) -> None:
     for index, box in enumerate(parts["boxes"]):
         box.set_facecolor(robot_colour(index))
         box.set_alpha(0.55)
-    ax.set_xscale("log")
-    ax.set_xlabel("solve time (ms, log scale)")
+    # A log without solve times (a robot whose controller never ran) cannot be log-scaled.
+    positive = [v for sample in samples for v in sample if v > 0]
+    if positive:
+        ax.set_xscale("log")
+    ax.set_xlabel("solve time (ms, log scale)" if positive else "solve time (ms)")
     ax.set_title(f"{log.mission_name}: MPC solve times per robot", fontsize=10)
     ax.grid(alpha=0.3, axis="x")
     fig.tight_layout()
