@@ -14,6 +14,7 @@ from typing import Any
 from coverage_fleet.errors import ConfigError
 from coverage_fleet.fleet.batch import run_batch, summarise
 from coverage_fleet.fleet.mission import load_mission
+from coverage_fleet.interrupts import interrupts_at_safe_points
 from coverage_fleet.report.metrics import trial_metrics
 
 COLUMNS = (
@@ -90,13 +91,14 @@ def run(args: argparse.Namespace) -> int:
         print(table_row(row), flush=True)
         print(f"batch: run {seeds.index(seed) + 1}/{len(seeds)} done", file=sys.stderr)
 
-    rows = run_batch(
-        mission,
-        seeds,
-        duration=args.duration,
-        metrics=lambda log: trial_metrics(log, mission.region, mission.density, footprints),
-        on_run=show,
-    )
+    with interrupts_at_safe_points():
+        rows = run_batch(
+            mission,
+            seeds,
+            duration=args.duration,
+            metrics=lambda log: trial_metrics(log, mission.region, mission.density, footprints),
+            on_run=show,
+        )
     summary = summarise(rows, SUMMARY_KEYS)
     print("summary over", len(rows), "runs:")
     for key, stats in summary.items():

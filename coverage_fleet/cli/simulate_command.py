@@ -14,6 +14,7 @@ from coverage_fleet.errors import ConfigError
 from coverage_fleet.fleet.mission import Mission, load_mission, mission_as_run
 from coverage_fleet.fleet.simulation import StepInfo, simulate_mission
 from coverage_fleet.fleet.trial import TrialLog, write_trial
+from coverage_fleet.interrupts import interrupts_at_safe_points
 from coverage_fleet.report import write_report
 
 SAFETY_NOTE = (
@@ -90,7 +91,8 @@ def simulate_to_trial(
 ) -> tuple[Path, TrialLog, dict[str, Any]]:
     """Simulate the mission and write its trial directory; returns (path, log, metrics)."""
     check_output_free(out)
-    log = simulate_mission(mission, seed=seed, duration=duration, on_step=progress)
+    with interrupts_at_safe_points():
+        log = simulate_mission(mission, seed=seed, duration=duration, on_step=progress)
     metrics: dict[str, Any] = {}
 
     def report(directory: Path) -> None:

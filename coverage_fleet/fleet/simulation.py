@@ -28,6 +28,7 @@ from coverage_fleet.control.terminal import terminal_for_vehicle
 from coverage_fleet.fleet.mission import Mission, RobotEntry, simulation_step
 from coverage_fleet.fleet.trial import LimitViolation, RobotLog, TrialLog
 from coverage_fleet.geometry.partition import compute_partition
+from coverage_fleet.interrupts import raise_if_interrupted
 from coverage_fleet.vehicles.base import OdometryValues
 
 #: Limits are checked with this slack (absolute, in the limit's SI unit): the plant is
@@ -229,6 +230,7 @@ def simulate_mission(
         log.generation.append(gate.generation)
         log.cost.append(float(partition.cost))
         log.largest_distance.append(largest)
+        raise_if_interrupted()
         if on_step is not None:
             on_step(StepInfo(t, duration, float(partition.cost), gate.generation))
         if settled and log.settled_time is None:
