@@ -30,6 +30,7 @@ from coverage_fleet.control.frames import heading_index, steady_frame_error
 from coverage_fleet.control.limits import input_limits, state_limits, steady_limits
 from coverage_fleet.control.mpc import TrackingMpc, stage_weights
 from coverage_fleet.control.terminal import compute_terminal_ingredients
+from coverage_fleet.geometry.region import ConvexRegion
 from coverage_fleet.vehicles.loader import VehicleSpec, load_vehicle_file
 
 REPO = Path(__file__).resolve().parents[1]
@@ -38,17 +39,6 @@ REGION = np.array([(0.0, 0.0), (40.0, 0.0), (46.0, 22.0), (20.0, 34.0), (-4.0, 1
 START = (4.0, 4.0)
 #: Targets visited in turn (a new one every STEPS/4 samples), like gate openings.
 TARGETS = [(30.0, 20.0), (12.0, 22.0), (36.0, 8.0), (20.0, 12.0)]
-
-
-def halfspaces(vertices: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    rows, offsets = [], []
-    for k in range(len(vertices)):
-        p, q = vertices[k], vertices[(k + 1) % len(vertices)]
-        normal = np.array([q[1] - p[1], p[0] - q[0]])
-        normal /= np.linalg.norm(normal)
-        rows.append(normal)
-        offsets.append(normal @ p)
-    return np.array(rows), np.array(offsets)
 
 
 class OptiBaseline:
@@ -148,7 +138,7 @@ def run(path: Path, steps: int, solver: dict | None) -> dict[str, float | str | 
         spec = dataclasses.replace(spec, mpc=dataclasses.replace(spec.mpc, solver=solver))
     compiled_settings = dataclasses.replace(spec.mpc, solver={**spec.mpc.solver, "compile": True})
     terminal = compute_terminal_ingredients(spec.model, spec.mpc, spec.cache_key)
-    region = halfspaces(REGION)
+    region = ConvexRegion.from_vertices(REGION, source="benchmark").halfspaces()
     plain = TrackingMpc(spec.model, spec.mpc, region, terminal)
     compiled = TrackingMpc(spec.model, compiled_settings, region, terminal)
     baseline = OptiBaseline(spec, plain)

@@ -9,6 +9,7 @@ from __future__ import annotations
 import casadi as ca
 import numpy as np
 
+from coverage_fleet.geometry.region import ConvexRegion
 from coverage_fleet.vehicles.base import (
     CommandValues,
     OdometryValues,
@@ -82,12 +83,5 @@ ORCHARD_BLOCK = np.array([(0.0, 0.0), (12.0, 0.0), (14.0, 7.0), (6.0, 11.0), (-1
 
 
 def polygon_halfspaces(vertices: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """(A, b) with A p <= b inside a convex counter-clockwise polygon, unit-norm rows."""
-    rows, offsets = [], []
-    for k in range(len(vertices)):
-        p, q = vertices[k], vertices[(k + 1) % len(vertices)]
-        normal = np.array([q[1] - p[1], p[0] - q[0]])
-        normal /= np.linalg.norm(normal)
-        rows.append(normal)
-        offsets.append(float(normal @ p))
-    return np.array(rows), np.array(offsets)
+    """(A, b) with A p <= b inside a convex polygon, unit-norm rows (the region's own)."""
+    return ConvexRegion.from_vertices(vertices, source="test").halfspaces()
