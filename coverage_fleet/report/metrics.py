@@ -6,7 +6,7 @@ from typing import Any
 
 import numpy as np
 
-from coverage_fleet.fleet.trial import TrialLog
+from coverage_fleet.fleet.trial import RobotLog, TrialLog
 from coverage_fleet.geometry.density import Density
 from coverage_fleet.geometry.partition import compute_partition
 from coverage_fleet.geometry.region import ConvexRegion
@@ -23,20 +23,44 @@ def distances_to_centroids(
 def closest_approach(log: TrialLog, footprints: dict[str, float] | None = None) -> dict[str, Any]:
     """Smallest centre distance between any two robots over the run, and (with footprint
     radii) the smallest clearance between their footprint discs. The controllers do not
-    avoid each other, so this is worth a look before a real trial."""
+    avoid each other, so this is worth a look before a real trial.
+
+    Robots' rows need not share times (a recording of the ROS graph logs each robot as its
+    messages arrive): each pair is compared at the union of its sample times within the
+    span both cover, positions linearly interpolated between samples."""
     names = list(log.robots)
     if len(names) < 2:
         return {"closest_approach_m": None, "smallest_clearance_m": None}
-    tracks = np.stack([log.robots[n].positions() for n in names])  # (n, T, 2)
-    gaps = np.linalg.norm(tracks[:, None] - tracks[None, :], axis=3)  # (n, n, T)
-    upper = np.triu_indices(len(names), k=1)
-    pair_gaps = gaps[upper]  # (pairs, T)
-    result: dict[str, Any] = {"closest_approach_m": float(pair_gaps.min())}
+    radii = {n: 0.0 for n in names} if footprints is None else footprints
+    closest, clearance = np.inf, np.inf
+    for a_index, a in enumerate(names):
+        for b in names[a_index + 1:]:
+            gap = _pair_gaps(log.robots[a], log.robots[b])
+            if len(gap):
+                closest = min(closest, float(gap.min()))
+                clearance = min(clearance, float(gap.min()) - radii[a] - radii[b])
+    result: dict[str, Any] = {"closest_approach_m": float(closest) if np.isfinite(closest)
+                              else None}
     if footprints is not None:
-        radii = np.array([footprints[n] for n in names])
-        needed = (radii[:, None] + radii[None, :])[upper][:, None]
-        result["smallest_clearance_m"] = float((pair_gaps - needed).min())
+        result["smallest_clearance_m"] = float(clearance) if np.isfinite(clearance) else None
     return result
+
+
+def _pair_gaps(a: RobotLog, b: RobotLog) -> np.ndarray:
+    ta, tb = np.asarray(a.time, float), np.asarray(b.time, float)
+    pa, pb = a.positions(), b.positions()
+    if len(ta) == 0 or len(tb) == 0:
+        return np.zeros(0)
+    if len(ta) == len(tb) and np.array_equal(ta, tb):
+        return np.linalg.norm(pa - pb, axis=1)
+    start, stop = max(ta[0], tb[0]), min(ta[-1], tb[-1])
+    times = np.union1d(ta, tb)
+    times = times[(times >= start) & (times <= stop)]
+
+    def at(t: np.ndarray, p: np.ndarray) -> np.ndarray:
+        return np.column_stack([np.interp(times, t, p[:, 0]), np.interp(times, t, p[:, 1])])
+
+    return np.linalg.norm(at(ta, pa) - at(tb, pb), axis=1)
 
 
 def trial_metrics(
