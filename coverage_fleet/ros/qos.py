@@ -17,50 +17,31 @@ from rclpy.qos import (
     ReliabilityPolicy,
 )
 
-LATCHED = QoSProfile(
-    history=HistoryPolicy.KEEP_LAST,
-    depth=1,
-    reliability=ReliabilityPolicy.RELIABLE,
-    durability=DurabilityPolicy.TRANSIENT_LOCAL,
-)
+
+def _reliable(depth: int, latched: bool = False) -> QoSProfile:
+    """Every topic of the graph is reliable keep-last; they differ in depth and latching."""
+    return QoSProfile(
+        history=HistoryPolicy.KEEP_LAST,
+        depth=depth,
+        reliability=ReliabilityPolicy.RELIABLE,
+        durability=DurabilityPolicy.TRANSIENT_LOCAL if latched else DurabilityPolicy.VOLATILE,
+    )
+
+
+LATCHED = _reliable(1, latched=True)
 
 #: Gate openings: every opening matters to the recorder, and late joiners get the history.
-OPENINGS = QoSProfile(
-    history=HistoryPolicy.KEEP_LAST,
-    depth=1000,
-    reliability=ReliabilityPolicy.RELIABLE,
-    durability=DurabilityPolicy.TRANSIENT_LOCAL,
-)
+OPENINGS = _reliable(1000, latched=True)
 
-STATE = QoSProfile(
-    history=HistoryPolicy.KEEP_LAST,
-    depth=1,
-    reliability=ReliabilityPolicy.RELIABLE,
-    durability=DurabilityPolicy.VOLATILE,
-)
+STATE = _reliable(1)
 
 COMMAND = STATE
 
-REPORTS = QoSProfile(
-    history=HistoryPolicy.KEEP_LAST,
-    depth=10,
-    reliability=ReliabilityPolicy.RELIABLE,
-    durability=DurabilityPolicy.VOLATILE,
-)
+REPORTS = _reliable(10)
 
 #: Plans, cost, diagnostics: for people and tools watching; losing one is harmless.
-DISPLAY = QoSProfile(
-    history=HistoryPolicy.KEEP_LAST,
-    depth=1,
-    reliability=ReliabilityPolicy.RELIABLE,
-    durability=DurabilityPolicy.VOLATILE,
-)
+DISPLAY = _reliable(1)
 
 #: /clock as rclpy's time source subscribes to it (keep-last 1, best effort is accepted by
 #: a reliable publisher).
-CLOCK = QoSProfile(
-    history=HistoryPolicy.KEEP_LAST,
-    depth=1,
-    reliability=ReliabilityPolicy.RELIABLE,
-    durability=DurabilityPolicy.VOLATILE,
-)
+CLOCK = _reliable(1)
