@@ -103,7 +103,7 @@ def main() -> int:
     from coverage_fleet.fleet.mission import load_mission
 
     mission = load_mission(mission_path)
-    specs = fleet_nodes(mission_path, "realtime", stop_when_converged=False, duration=1e6)
+    specs = fleet_nodes(mission_path, "realtime", stop_when_settled=False, duration=1e6)
     graph = GraphProcesses(folder / "logs", env)
     rclpy.init(args=["ros_realtime_benchmark"])
     node = rclpy.create_node("ros_realtime_benchmark")

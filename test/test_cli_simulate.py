@@ -24,6 +24,8 @@ QUICK = Path(__file__).resolve().parents[1] / "config" / "missions" / "solar_row
 def noisy_mission(tmp_path_factory: pytest.TempPathFactory) -> Path:
     raw = yaml.safe_load(QUICK.read_text())
     raw["simulation"].update(measurement_noise_std=0.004, process_noise_std=0.002)
+    # The controllers chase the noise: a few times (4 + 2 mm) / 0.1 s (fleet/settling.py).
+    raw["settle"]["speed"] = 0.2
     path = tmp_path_factory.mktemp("mission") / "noisy_quick.yaml"
     path.write_text(yaml.safe_dump(raw, sort_keys=False))
     return path

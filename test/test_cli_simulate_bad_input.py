@@ -26,7 +26,8 @@ GOOD: dict[str, Any] = {
         {"name": "rover_b", "vehicle": "differential_drive", "initial_pose": [3.0, 1.0, 0.0]},
         {"name": "drone_c", "vehicle": "multirotor", "initial_pose": [1.0, 3.0, 0.0]},
     ],
-    "gate": {"noise_tolerance": 0.02, "progress_tolerance": 0.05, "settle_distance": 0.1},
+    "gate": {"noise_tolerance": 0.02, "progress_tolerance": 0.05},
+    "settle": {"distance": 0.1},
     "simulation": {"duration": 5.0, "seed": 1},
 }
 

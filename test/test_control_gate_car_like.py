@@ -23,7 +23,8 @@ MISSION = {
         {"name": "car", "vehicle": "car_like", "initial_pose": [6.0, 4.0, 0.0]},
         {"name": "rover", "vehicle": "differential_drive", "initial_pose": [10.0, 5.0, 3.14]},
     ],
-    "gate": {"noise_tolerance": 0.02, "progress_tolerance": 0.05, "settle_distance": 0.1},
+    "gate": {"noise_tolerance": 0.02, "progress_tolerance": 0.05},
+    "settle": {"distance": 0.1},
     "simulation": {"duration": 15.0},
 }
 

@@ -45,8 +45,8 @@ def test_batch_prints_a_table_and_writes_a_summary(
     out = capsys.readouterr().out
     assert status == 0
     lines = out.splitlines()
-    assert lines[0].split()[:3] == ["seed", "at", "rest"]
-    assert lines[1].split()[0] == "0" and lines[2].split()[0] == "1"
+    assert lines[0].split()[:2] == ["seed", "outcome"]
+    assert lines[1].split()[:2] == ["0", "settled"] and lines[2].split()[:2] == ["1", "settled"]
     document = json.loads(summary.read_text())
     assert [run["seed"] for run in document["runs"]] == [0, 1]
     for run in document["runs"]:

@@ -19,10 +19,11 @@ from coverage_fleet.report.metrics import trial_metrics
 
 COLUMNS = (
     ("seed", "seed", "{:>4}"),
-    ("settled", "at rest", "{!s:>7}"),
-    ("settled_time_s", "rest (s)", "{:>8.1f}"),
+    ("outcome", "outcome", "{:>16}"),
+    ("settled_time_s", "settled (s)", "{:>11.1f}"),
     ("generations", "gens", "{:>4}"),
     ("final_cost", "final cost", "{:>11.5g}"),
+    ("cvt_gap", "CVT gap", "{:>7.2%}"),
     ("final_largest_distance_to_centroid_m", "max dist (m)", "{:>12.3g}"),
     ("limit_violations", "limits", "{:>6}"),
     ("solver_failures", "fails", "{:>5}"),
@@ -33,6 +34,7 @@ SUMMARY_KEYS = (
     "settled_time_s",
     "generations",
     "final_cost",
+    "cvt_gap",
     "final_largest_distance_to_centroid_m",
     "limit_violations",
     "solver_failures",

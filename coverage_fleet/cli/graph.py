@@ -85,7 +85,7 @@ def controller_node_spec(
 
 
 def simulator_node_spec(
-    mission_file: str | Path, mode: SimulationMode, stop_when_converged: bool = True,
+    mission_file: str | Path, mode: SimulationMode, stop_when_settled: bool = True,
     duration: float = 0.0, recorded: bool = False,
 ) -> NodeSpec:
     """The headless simulator (the clock source: it never uses sim time itself). In
@@ -95,7 +95,7 @@ def simulator_node_spec(
         "simulator", "coverage_fleet_simulator", "simulator",
         mission_file=str(Path(mission_file).resolve()),
         mode=mode,
-        stop_when_converged=stop_when_converged,
+        stop_when_settled=stop_when_settled,
         duration=float(duration),
         odom_subscribers=3 if recorded else 2,
         use_sim_time=False,
@@ -107,7 +107,7 @@ def fleet_nodes(
     simulation: SimulationMode | None = "lockstep",
     vehicle_overrides: dict[str, str | Path] | None = None,
     duration: float = 0.0,
-    stop_when_converged: bool = True,
+    stop_when_settled: bool = True,
     recorded: bool = False,
 ) -> list[NodeSpec]:
     """The whole graph of a mission: base station, one controller per roster robot, and
@@ -139,7 +139,7 @@ def fleet_nodes(
     if simulation is not None and any(e.simulated for e in mission.roster):
         nodes.append(
             simulator_node_spec(
-                mission.source, simulation, stop_when_converged, duration, recorded
+                mission.source, simulation, stop_when_settled, duration, recorded
             )
         )
     return nodes

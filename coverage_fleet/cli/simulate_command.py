@@ -102,7 +102,7 @@ def simulate_to_trial(
                 log,
                 mission.region,
                 mission.density,
-                mission.gate.settle_distance,
+                mission.settle.distance,
                 footprints={e.name: e.footprint_radius for e in mission.roster},
             )
         )
@@ -113,15 +113,22 @@ def simulate_to_trial(
 
 
 def summary_lines(metrics: dict[str, Any]) -> list[str]:
-    settled = (
-        f"at rest after {metrics['settled_time_s']:.1f} s"
-        if metrics["settled"]
-        else f"NOT at rest after {metrics['simulated_time_s']:.1f} s"
-    )
+    outcome = metrics.get("outcome", "duration reached")
+    if outcome == "settled":
+        ending = f"settled within tolerance after {metrics['settled_time_s']:.1f} s"
+    elif outcome == "stuck":
+        ending = (
+            f"STUCK after {metrics['stuck_time_s']:.1f} s (gate shut, every robot still, "
+            "not all within the settle distance of their centroids)"
+        )
+    else:
+        ending = f"NOT settled: duration reached at {metrics['simulated_time_s']:.1f} s"
     return [
-        f"fleet {settled}; {metrics['generations']} generations",
+        f"fleet {ending}; {metrics['generations']} generations",
         f"final cost {metrics['final_cost']:.6g}; largest distance to a cell centroid "
         f"{metrics['final_largest_distance_to_centroid_m']:.3g} m",
+        f"CVT gap {100 * metrics['cvt_gap']:.3g} % (cost decrease Lloyd's iteration still "
+        "finds from the final positions; 0 at a centroidal Voronoi configuration)",
         f"limit violations {metrics['limit_violations']}; solver failures "
         f"{metrics['solver_failures']}",
         *_clearance_line(metrics),

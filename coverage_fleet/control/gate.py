@@ -12,7 +12,8 @@ With the partition W^k fixed, the coverage cost is H = sum_i [J_i(c_i) + M_i ||p
 (parallel-axis theorem), so the condition lowers H and re-partitioning lowers it again; the
 cost at successive openings therefore falls (Lloyd 1982; Cortes, Martinez, Karatas & Bullo,
 IEEE T-RA 20(2), 2004). At a centroidal Voronoi configuration nobody can get closer, so the
-gate stays shut and the fleet rests.
+gate stays shut. A shut gate alone does not mean the fleet is done (right after an opening
+nobody can be closer yet): whether it has settled is judged by fleet/settling.py.
 
 Robots are keyed by name so that the roster may change at run time: a robot that joins or
 leaves forces the next offer to be committed (reason "roster"); the cost is not comparable
@@ -41,13 +42,10 @@ class GateSettings:
         the masses of the cells differ wildly (keep it well below progress_tolerance).
     progress_tolerance: how much closer than its recorded distance a robot must be to count
         as "strictly closer" (so that noise alone never opens the gate).
-    settle_distance: the fleet is at rest (converged) when every robot is within this
-        distance of its committed target.
     """
 
     noise_tolerance: float = 0.02
     progress_tolerance: float = 0.05
-    settle_distance: float = 0.2
 
 
 @dataclass(frozen=True)
@@ -152,20 +150,6 @@ class ReferenceGate:
         return all(s.no_farther for s in standing.values()) and any(
             s.closer for s in standing.values()
         )
-
-    @property
-    def converged(self) -> bool:
-        """The fleet is at rest: every robot has reported for the current generation and is
-        within the settle distance of its target, and the gate is shut (nobody is closer by
-        the progress tolerance, so the targets are within settle_distance +
-        progress_tolerance of the centroids they were computed from)."""
-        if self.generation < 0 or self._roster_changed or not self._robots:
-            return False
-        settle = self.settings.settle_distance
-        near = all(
-            self._distance_now.get(name, np.inf) <= settle for name in self._distance_at_commit
-        )
-        return near and not self.ready_to_open()
 
     # --- opening ------------------------------------------------------------------------
 

@@ -12,7 +12,10 @@
                                        # config/vehicles (with or without .yaml)
           initial_pose: [x, y, heading]  # simulation only (m, m, rad)
           simulated: true              # false: a real robot (its state comes from the robot)
-    gate:       {noise_tolerance, progress_tolerance, settle_distance}  (metres)
+    gate:       {noise_tolerance, progress_tolerance}  (metres)
+    settle:     {distance (m), speed (m/s), dwell (s), stuck_timeout (s)}: when the fleet
+                counts as settled (fleet/settling.py); distance must be at least
+                progress_tolerance + noise_tolerance (+ 4 x measurement_noise_std)
     simulation: {duration, seed, process_noise_std, measurement_noise_std, plant_substeps,
                  step}
 
@@ -35,11 +38,14 @@ import yaml
 
 from coverage_fleet.control.gate import GateSettings
 from coverage_fleet.errors import ConfigError, Problem
+from coverage_fleet.fleet.settling import SettleSettings, settle_problems
 from coverage_fleet.geometry.density import Density, density_from_config
 from coverage_fleet.geometry.region import ConvexRegion
 from coverage_fleet.vehicles.loader import VehicleSpec, load_vehicle_file
 
-TOP_LEVEL_KEYS = ("name", "description", "region", "density", "roster", "gate", "simulation")
+TOP_LEVEL_KEYS = (
+    "name", "description", "region", "density", "roster", "gate", "settle", "simulation"
+)
 ROBOT_KEYS = ("name", "vehicle", "initial_pose", "simulated")
 REGION_KEYS = ("vertices",)
 
@@ -115,6 +121,7 @@ class Mission:
     simulation: SimulationSettings
     description: str = ""
     raw: dict[str, Any] = field(default_factory=dict)
+    settle: SettleSettings = field(default_factory=SettleSettings)
 
     @property
     def robot_names(self) -> tuple[str, ...]:
@@ -227,7 +234,12 @@ def _settings_from(
 GATE_CHECKS = {
     "noise_tolerance": (float, "non-negative"),
     "progress_tolerance": (float, "positive"),
-    "settle_distance": (float, "positive"),
+}
+SETTLE_CHECKS = {
+    "distance": (float, "positive"),
+    "speed": (float, "positive"),
+    "dwell": (float, "non-negative"),
+    "stuck_timeout": (float, "positive"),
 }
 SIMULATION_CHECKS = {
     "duration": (float, "positive"),
@@ -290,13 +302,24 @@ def mission_from_mapping(raw: Any, path: Path) -> Mission:
         except ConfigError as error:
             out.extend(error, prefix="density")
 
-    gate = _settings_from(GateSettings, raw.get("gate"), "gate", out, GATE_CHECKS)
+    gate_raw = raw.get("gate")
+    if isinstance(gate_raw, Mapping) and "settle_distance" in gate_raw:
+        # Its meaning changed (distance to the current cell's centroid, not to the target):
+        # refused with a pointer rather than silently reinterpreted.
+        out.add("gate.settle_distance", "moved to settle.distance (now measured from the "
+                "centroid of the robot's current cell)")
+        gate_raw = {k: v for k, v in gate_raw.items() if k != "settle_distance"}
+    gate = _settings_from(GateSettings, gate_raw, "gate", out, GATE_CHECKS)
+    settle = _settings_from(SettleSettings, raw.get("settle"), "settle", out, SETTLE_CHECKS)
     simulation = _settings_from(
         SimulationSettings, raw.get("simulation"), "simulation", out, SIMULATION_CHECKS
     )
     roster = _load_roster(raw.get("roster"), base_dir, region, out) if "roster" in raw else ()
     if roster and not out.problems:
         _check_sample_times(roster, simulation, out)
+    if roster and not out.problems:
+        for key, message in mission_settle_problems(roster, gate, settle, simulation):
+            out.add(f"settle.{key}", message)
 
     if out.problems:
         raise ConfigError(out.problems)
@@ -311,6 +334,7 @@ def mission_from_mapping(raw: Any, path: Path) -> Mission:
         simulation=simulation,
         description=description,
         raw=dict(raw),
+        settle=settle,
     )
 
 
@@ -478,6 +502,21 @@ def _check_sample_times(
                 f"sample time {entry.vehicle.mpc.sample_time:g} s of {entry.name!r} is not a "
                 f"whole multiple of the simulation step {step:g} s",
             )
+
+
+def mission_settle_problems(
+    roster: tuple[RobotEntry, ...] | list[RobotEntry],
+    gate: GateSettings,
+    settle: SettleSettings,
+    simulation: SimulationSettings,
+) -> list[tuple[str, str]]:
+    """settle_problems (fleet/settling.py) with the mission's gate, noise and sample times."""
+    return settle_problems(
+        settle, gate.noise_tolerance, gate.progress_tolerance,
+        measurement_noise_std=simulation.measurement_noise_std,
+        process_noise_std=simulation.process_noise_std,
+        sample_time=min(entry.vehicle.mpc.sample_time for entry in roster),
+    )
 
 
 def simulation_step(

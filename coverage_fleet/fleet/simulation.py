@@ -10,7 +10,8 @@ Each tick of `step` seconds:
  6. every plant advances by `step` with `plant_substeps` RK4 substeps (finer than the
     controllers' own discretisation), plus optional process noise on its position.
 
-The run stops when the gate reports the fleet at rest or the duration ends. Noise comes from
+After the gate, the settle monitor (fleet/settling.py) judges the tick: the run stops when
+the fleet has settled, when it is stuck, or when the duration ends. Noise comes from
 one numpy Generator seeded with the seed, so a run is deterministic for a given seed.
 """
 
@@ -26,6 +27,7 @@ from coverage_fleet.control.controller import RobotController
 from coverage_fleet.control.gate import ProgressReport, ReferenceGate
 from coverage_fleet.control.terminal import terminal_for_vehicle
 from coverage_fleet.fleet.mission import Mission, RobotEntry, simulation_step
+from coverage_fleet.fleet.settling import SettleMonitor
 from coverage_fleet.fleet.trial import LimitViolation, RobotLog, TrialLog
 from coverage_fleet.geometry.partition import compute_partition
 from coverage_fleet.interrupts import raise_if_interrupted
@@ -135,6 +137,13 @@ def limit_violations(
     return found
 
 
+def _planar_speed(robot: _SimulatedRobot, x: np.ndarray) -> float:
+    """Speed of the robot's reference point: its odometry twist for the state and the input
+    being applied (what the simulator node publishes on odom)."""
+    odometry = robot.entry.vehicle.model.odometry_from_state(x, robot.held_input)
+    return float(np.hypot(odometry.body_vx, odometry.body_vy))
+
+
 def simulate_mission(
     mission: Mission,
     seed: int | None = None,
@@ -148,7 +157,8 @@ def simulate_mission(
     seed and duration default to the mission's simulation settings; initial_poses (by robot
     name: a pose at rest, or odometry values for a robot already moving) default to the
     roster's poses at rest. With stop_at_rest=False the run goes on for the whole duration
-    (as the ROS graph does); settled_time is then the first time the fleet was at rest.
+    (as the ROS graph does); settled_time and stuck_time are then the first times the
+    settle monitor reported the fleet settled or stuck.
     """
     settings = mission.simulation
     seed = settings.seed if seed is None else int(seed)
@@ -158,6 +168,7 @@ def simulate_mission(
     rng = np.random.default_rng(seed)
     robots = [_build_robot(e, starts[e.name], mission, step) for e in mission.roster]
     gate = ReferenceGate(mission.gate)
+    monitor = SettleMonitor(mission.settle)
     for robot in robots:
         gate.add_robot(robot.entry.name)
     region_A, region_b = mission.region.halfspaces()
@@ -194,7 +205,10 @@ def simulate_mission(
             for name in names:
                 gate.report(ProgressReport(name, gate.generation, opening.distances[name]))
         standing = gate.progress()
-        settled = gate.converged
+        speeds = {
+            r.entry.name: _planar_speed(r, x) for r, x in zip(robots, measured, strict=True)
+        }
+        settling = monitor.update(t, positions, speeds, candidates, gate_shut=opening is None)
 
         largest = 0.0
         for robot, x in zip(robots, measured, strict=True):
@@ -233,9 +247,11 @@ def simulate_mission(
         raise_if_interrupted()
         if on_step is not None:
             on_step(StepInfo(t, duration, float(partition.cost), gate.generation))
-        if settled and log.settled_time is None:
+        if settling == "settled" and log.settled_time is None:
             log.settled_time = t
-        if settled and stop_at_rest:
+        if settling == "stuck" and log.stuck_time is None:
+            log.stuck_time = t
+        if settling != "moving" and stop_at_rest:
             break
 
         for robot in robots:

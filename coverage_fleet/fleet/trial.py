@@ -104,10 +104,22 @@ class TrialLog:
     robots: dict[str, RobotLog] = field(default_factory=dict)
     openings: list[GateOpening] = field(default_factory=list)
     violations: list[LimitViolation] = field(default_factory=list)
-    #: Simulated time at which the gate reported the fleet at rest, None if it never did.
+    #: Simulated time at which the settle monitor first reported the fleet settled within
+    #: tolerance (fleet/settling.py), None if it never did.
     settled_time: float | None = None
+    #: Simulated time at which it first reported the fleet stuck, None if it never did.
+    stuck_time: float | None = None
     #: Wall-clock seconds the run took (informative only).
     wall_time: float = 0.0
+
+    @property
+    def outcome(self) -> str:
+        """How the run ended: "settled", "stuck" or "duration reached"."""
+        if self.settled_time is not None:
+            return "settled"
+        if self.stuck_time is not None:
+            return "stuck"
+        return "duration reached"
 
     def final_positions(self) -> dict[str, np.ndarray]:
         return {name: log.positions()[-1] for name, log in self.robots.items()}

@@ -112,7 +112,8 @@ def plot_cost(path: Path, log: TrialLog) -> None:
     if min(log.cost, default=0.0) > 0:
         ax.set_yscale("log")
     if log.settled_time is not None:
-        ax.axvline(log.settled_time, color="#2e8b57", linestyle=":", label="fleet at rest")
+        ax.axvline(log.settled_time, color="#2e8b57", linestyle=":",
+                   label="fleet settled within tolerance")
     ax.set_xlabel("simulated time (s)")
     ax.set_ylabel("coverage cost H (log scale)")
     ax.set_title(f"{log.mission_name}: coverage cost ({len(log.openings)} generations)",
@@ -132,7 +133,7 @@ def plot_distances(path: Path, log: TrialLog, settle_distance: float) -> None:
         shown = np.maximum(np.asarray(robot.distance, float), floor)
         ax.plot(robot.time, shown, color=robot_colour(index), linewidth=1.3, label=name)
     ax.axhline(settle_distance, color="black", linestyle="--", linewidth=1,
-               label=f"settle distance {settle_distance:g} m")
+               label=f"settle distance {settle_distance:g} m (to the current cell's centroid)")
     ax.set_yscale("log")
     ax.set_ylim(bottom=floor)
     ax.set_xlabel("simulated time (s)")

@@ -6,6 +6,7 @@ from typing import Any
 
 import numpy as np
 
+from coverage_fleet.fleet.lloyd import lloyd
 from coverage_fleet.fleet.trial import RobotLog, TrialLog
 from coverage_fleet.geometry.density import Density
 from coverage_fleet.geometry.partition import compute_partition
@@ -18,6 +19,32 @@ def distances_to_centroids(
     """Each robot's distance to the centroid of its own cell, and the cost H, at `positions`."""
     partition = compute_partition(positions, region, density)
     return np.linalg.norm(positions - partition.centroids, axis=1), float(partition.cost)
+
+
+#: Lloyd's iteration for the CVT gap runs until no agent would move farther than this (m) ...
+CVT_GAP_STEP_TOLERANCE = 1e-6
+#: ... or this many iterations.
+CVT_GAP_MAX_ITERATIONS = 5000
+
+
+def cvt_gap(positions: np.ndarray, region: ConvexRegion, density: Density) -> dict[str, Any]:
+    """How far `positions` are from a centroidal Voronoi configuration, in cost: the
+    relative decrease (H_start - H_lloyd) / H_start that Lloyd's iteration achieves when
+    started from them (0 at a CVT, whose configurations are exactly Lloyd's fixed points:
+    Du, Faber & Gunzburger, SIAM Review 41(4), 1999, sec. 5.2). Lloyd converges to a
+    nearby CVT, not necessarily the best one, so this measures how unfinished the run is,
+    not how good its CVT is."""
+    result = lloyd(
+        positions, region, density,
+        max_iterations=CVT_GAP_MAX_ITERATIONS, tolerance=CVT_GAP_STEP_TOLERANCE,
+    )
+    start, end = float(result.costs[0]), float(np.min(result.costs))
+    return {
+        "cvt_gap": (start - end) / start if start > 0 else 0.0,
+        "lloyd_cost_from_final": end,
+        "lloyd_iterations": result.iterations,
+        "lloyd_converged": result.converged,
+    }
 
 
 def closest_approach(log: TrialLog, footprints: dict[str, float] | None = None) -> dict[str, Any]:
@@ -69,8 +96,9 @@ def trial_metrics(
     density: Density,
     footprints: dict[str, float] | None = None,
 ) -> dict[str, Any]:
-    """final_cost, final_largest_distance_to_centroid, generations, settled_time,
-    limit_violations, solver_failures, solve-time statistics and the opening costs."""
+    """outcome (settled / stuck / duration reached) and its time, final_cost, the CVT gap,
+    final_largest_distance_to_centroid, generations, limit_violations, solver_failures,
+    solve-time statistics and the opening costs."""
     names = list(log.robots)
     final = np.array([log.robots[n].positions()[-1] for n in names])
     to_centroid, final_cost = distances_to_centroids(final, region, density)
@@ -88,9 +116,12 @@ def trial_metrics(
         "seed": log.seed,
         "simulated_time_s": float(log.time[-1]) if log.time else 0.0,
         "duration_s": log.duration,
+        "outcome": log.outcome,
         "settled": log.settled_time is not None,
         "settled_time_s": log.settled_time,
+        "stuck_time_s": log.stuck_time,
         "final_cost": final_cost,
+        **cvt_gap(final, region, density),
         "final_largest_distance_to_centroid_m": float(np.max(to_centroid)),
         "final_distance_to_centroid_m": {
             n: float(d) for n, d in zip(names, to_centroid, strict=True)

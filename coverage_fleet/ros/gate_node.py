@@ -4,7 +4,7 @@ Holds the generations of committed targets (coverage_fleet.control.gate.Referenc
 `coverage/candidates` message is offered to the gate; when the monotone-progress condition
 holds it commits them and publishes every robot's `<robot>/coverage/target` (reliable,
 transient-local; the header stamp identifies the generation), `coverage/generation`,
-`coverage/openings` and `coverage/converged`.
+`coverage/openings` and `coverage/settling`.
 
 Progress reports name their generation by the stamp of the target they refer to. A robot
 counts for the current generation only once its newest report names it: a report with an
@@ -17,17 +17,27 @@ report is the controller's own view, for monitoring.)
 
 The robots in a candidates message are the gate's roster: robots the partition left out
 leave the gate, and the next offer is committed for the remaining ones.
+
+After every offer the settle monitor (coverage_fleet.fleet.settling, the object the offline
+simulation uses) judges the fleet from the candidates message (positions and the centroids
+of the current cells, at the partition's time) and each robot's latest `odom` twist (its
+planar speed, as the robot's localisation reports it: no differencing of noisy positions).
+Its status, "moving", "settled" or "stuck", goes out on `coverage/settling` (latched)
+whenever it changes.
 """
 
 from __future__ import annotations
 
 import numpy as np
 from geometry_msgs.msg import PointStamped, Vector3Stamped
+from nav_msgs.msg import Odometry
 from rclpy.node import Node
-from std_msgs.msg import Bool, Float64MultiArray, UInt32
+from std_msgs.msg import Float64MultiArray, String, UInt32
 
 from coverage_fleet.control.gate import GateSettings, ProgressReport, ReferenceGate
-from coverage_fleet.fleet.mission import load_mission
+from coverage_fleet.errors import ConfigError, Problem
+from coverage_fleet.fleet.mission import load_mission, mission_settle_problems
+from coverage_fleet.fleet.settling import SettleMonitor, SettleSettings
 
 from . import qos, topics
 from .conversions import (
@@ -61,20 +71,52 @@ class GateNode(Node):
                 "Metres closer than at the commit a robot must be to count as strictly "
                 "closer (default: the mission's gate.progress_tolerance).", (1e-6, 100.0),
             ),
-            settle_distance=declare(
-                self, "settle_distance", float(defaults.settle_distance),
-                "The fleet is at rest when every robot is this close to its target "
-                "(default: the mission's gate.settle_distance).", (1e-6, 100.0),
+        )
+        settle_defaults = mission.settle
+        settle = SettleSettings(
+            distance=declare(
+                self, "settle_distance", float(settle_defaults.distance),
+                "Metres from the centroid of its current cell within which a robot counts "
+                "as settled (default: the mission's settle.distance).", (1e-6, 100.0),
+            ),
+            speed=declare(
+                self, "settle_speed", float(settle_defaults.speed),
+                "Planar speed (m/s, from odom) below which a robot counts as still "
+                "(default: the mission's settle.speed).", (1e-6, 100.0),
+            ),
+            dwell=declare(
+                self, "settle_dwell", float(settle_defaults.dwell),
+                "Seconds the settled condition must hold (default: the mission's "
+                "settle.dwell).", (0.0, 3600.0),
+            ),
+            stuck_timeout=declare(
+                self, "stuck_timeout", float(settle_defaults.stuck_timeout),
+                "Seconds of a shut gate and a still fleet, not settled, before it is "
+                "reported stuck (default: the mission's settle.stuck_timeout).",
+                (1e-6, 3600.0),
             ),
         )
+        problems = mission_settle_problems(mission.roster, settings, settle, mission.simulation)
+        if problems:
+            names = {
+                "distance": "settle_distance", "speed": "settle_speed",
+                "stuck_timeout": "stuck_timeout",
+            }
+            raise ConfigError([
+                Problem("reference_gate parameters", names[key], message)
+                for key, message in problems
+            ])
         self.gate = ReferenceGate(settings)
+        self.monitor = SettleMonitor(settle)
+        #: robot -> planar speed from its latest odometry (m/s)
+        self.speeds: dict[str, float] = {}
         self.names = list(mission.robot_names)
         self.generation_of_stamp: dict[int, int] = {}
         #: robot -> generation its newest progress report names
         self.acknowledged: dict[str, int] = {}
         self.last_stamp_ns = 0
         self.ignored_reports = 0
-        self.converged = False
+        self.settling = "moving"
         self.target_pubs = {
             name: self.create_publisher(
                 PointStamped, topics.robot_topic(name, topics.TARGET), qos.LATCHED
@@ -86,6 +128,10 @@ class GateNode(Node):
                 Vector3Stamped, topics.robot_topic(name, topics.PROGRESS),
                 lambda msg, n=name: self._on_progress(n, msg), qos.REPORTS,
             )
+            self.create_subscription(
+                Odometry, topics.robot_topic(name, topics.ODOM),
+                lambda msg, n=name: self._on_odom(n, msg), qos.STATE,
+            )
         self.create_subscription(
             Float64MultiArray, topics.CANDIDATES, self._on_candidates, qos.REPORTS
         )
@@ -93,8 +139,12 @@ class GateNode(Node):
         self.openings_pub = self.create_publisher(
             Float64MultiArray, topics.OPENINGS, qos.OPENINGS
         )
-        self.converged_pub = self.create_publisher(Bool, topics.CONVERGED, qos.LATCHED)
-        self.converged_pub.publish(Bool(data=False))
+        self.settling_pub = self.create_publisher(String, topics.SETTLING, qos.LATCHED)
+        self.settling_pub.publish(String(data=self.settling))
+
+    def _on_odom(self, name: str, msg: Odometry) -> None:
+        linear = msg.twist.twist.linear
+        self.speeds[name] = float(np.hypot(linear.x, linear.y))
 
     def _on_progress(self, name: str, msg: Vector3Stamped) -> None:
         report = progress_from_msg(msg)
@@ -130,7 +180,7 @@ class GateNode(Node):
         )
         if opening is not None:
             self._publish_opening(opening, by_name)
-        self._update_converged()
+        self._update_settling(candidates, by_name, gate_shut=opening is None)
 
     def _publish_opening(self, opening, by_name: dict[str, int]) -> None:
         # The commit stamp names the generation: unique, increasing and never zero (zero
@@ -160,15 +210,27 @@ class GateNode(Node):
             f"t = {opening.time:.2f} s, cost {opening.cost:.4g}"
         )
 
-    def _update_converged(self) -> None:
-        converged = bool(self.gate.converged)
-        if converged != self.converged:
-            self.converged = converged
-            self.converged_pub.publish(Bool(data=converged))
-            if converged:
+    def _update_settling(self, candidates, by_name: dict[str, int], gate_shut: bool) -> None:
+        status = self.monitor.update(
+            candidates.time,
+            {n: candidates.positions[i] for n, i in by_name.items()},
+            # A robot whose odometry the gate has not heard yet counts as moving.
+            {n: self.speeds.get(n, np.inf) for n in by_name},
+            {n: candidates.centroids[i] for n, i in by_name.items()},
+            gate_shut,
+        )
+        if status != self.settling:
+            self.settling = status
+            self.settling_pub.publish(String(data=status))
+            if status == "settled":
                 self.get_logger().info(
-                    f"fleet at rest in generation {self.gate.generation} "
-                    "(every robot within the settle distance)"
+                    f"fleet settled within tolerance in generation {self.gate.generation}"
+                )
+            elif status == "stuck":
+                self.get_logger().warning(
+                    f"fleet stuck in generation {self.gate.generation}: gate shut, every "
+                    "robot still, not all within the settle distance of their centroids "
+                    f"(largest {self.monitor.largest_distance:.3g} m)"
                 )
 
 

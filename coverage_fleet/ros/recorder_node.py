@@ -24,7 +24,7 @@ from diagnostic_msgs.msg import DiagnosticArray
 from geometry_msgs.msg import PointStamped
 from nav_msgs.msg import Odometry
 from rclpy.node import Node
-from std_msgs.msg import Bool, Float64MultiArray, UInt32
+from std_msgs.msg import Float64MultiArray, String, UInt32
 
 from coverage_fleet.control.gate import GateOpening
 from coverage_fleet.fleet.mission import Mission, load_mission, mission_as_run
@@ -100,12 +100,13 @@ class RecorderNode(Node):
         )
         self.create_subscription(Float64MultiArray, topics.OPENINGS, self._on_opening, qos.OPENINGS)
         self.create_subscription(UInt32, topics.GENERATION, self._on_generation, qos.LATCHED)
-        self.create_subscription(Bool, topics.CONVERGED, self._on_converged, qos.LATCHED)
+        self.create_subscription(String, topics.SETTLING, self._on_settling, qos.LATCHED)
         self.create_subscription(
             DiagnosticArray, topics.DIAGNOSTICS, self._on_diagnostics, qos.REPORTS
         )
         self.solver_samples: dict[str, tuple[float, str, bool]] = {}
         self.settled_time: float | None = None
+        self.stuck_time: float | None = None
         self.time_origin: float | None = None
 
     # --- callbacks ----------------------------------------------------------------------
@@ -148,13 +149,16 @@ class RecorderNode(Node):
                 with self.lock:
                     self.solver_samples[status.hardware_id] = sample
 
-    def _on_converged(self, msg: Bool) -> None:
-        # The first time the gate reports the fleet at rest, as the offline log keeps it (the
-        # simulator stops there; a gate that opens again a moment later does not undo it).
+    def _on_settling(self, msg: String) -> None:
+        # The first time the gate node reports the fleet settled (or stuck), as the offline
+        # log keeps it (the simulator stops there; a later change does not undo it).
         with self.lock:
-            if msg.data and self.settled_time is None:
-                times = [r.time[-1] for r in self.log.robots.values() if r.time]
-                self.settled_time = max(times) if times else 0.0
+            times = [r.time[-1] for r in self.log.robots.values() if r.time]
+            now = max(times) if times else 0.0
+            if msg.data == "settled" and self.settled_time is None:
+                self.settled_time = now
+            elif msg.data == "stuck" and self.stuck_time is None:
+                self.stuck_time = now
 
     def _on_odom(self, entry, msg: Odometry) -> None:
         model = entry.vehicle.model
@@ -230,6 +234,7 @@ class RecorderNode(Node):
             steps = [np.diff(r.time) for r in log.robots.values() if len(r.time) > 1]
             log.step = float(np.median(np.concatenate(steps))) if steps else 0.0
             log.settled_time = self.settled_time
+            log.stuck_time = self.stuck_time
             log.wall_time = wall_time
             # Checked once the rows are final: a row's input is the command that answered
             # its state, which arrives after the state.
@@ -255,7 +260,7 @@ class RecorderNode(Node):
             metrics.update(
                 write_report(
                     folder, log, self.mission.region, self.mission.density,
-                    self.mission.gate.settle_distance,
+                    self.mission.settle.distance,
                 )
             )
 

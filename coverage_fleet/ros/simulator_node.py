@@ -29,7 +29,7 @@ from geometry_msgs.msg import Vector3Stamped
 from nav_msgs.msg import Odometry
 from rclpy.node import Node
 from rosgraph_msgs.msg import Clock
-from std_msgs.msg import Bool
+from std_msgs.msg import String
 
 from coverage_fleet.errors import ConfigError
 from coverage_fleet.fleet.mission import RobotEntry, load_mission, simulation_step
@@ -89,9 +89,10 @@ class SimulatorNode(Node):
             "Simulated seconds to run, then exit 0; 0 = the mission's simulation.duration.",
             (0.0, 1e7),
         )
-        self.stop_when_converged = declare(
-            self, "stop_when_converged", True,
-            "Exit 0 once the gate reports the fleet at rest (coverage/converged).",
+        self.stop_when_settled = declare(
+            self, "stop_when_settled", True,
+            "Exit 0 once the gate node reports the fleet settled or stuck "
+            "(coverage/settling).",
         )
         self.lockstep_timeout = declare(
             self, "lockstep_timeout", 3.0,
@@ -135,7 +136,7 @@ class SimulatorNode(Node):
         self.rng = np.random.default_rng(mission.simulation.seed)
         self.time = 0.0
         self.measured: dict[str, np.ndarray] = {}
-        self.converged = False
+        self.settling = "moving"
         self.robots: dict[str, SimulatedRobot] = {}
         for entry in mission.roster:
             if not entry.simulated:
@@ -143,7 +144,7 @@ class SimulatorNode(Node):
                 continue
             self.robots[entry.name] = self._add_robot(entry)
         self.clock_pub = self.create_publisher(Clock, topics.CLOCK, qos.CLOCK)
-        self.create_subscription(Bool, topics.CONVERGED, self._on_converged, qos.LATCHED)
+        self.create_subscription(String, topics.SETTLING, self._on_settling, qos.LATCHED)
         self.started_wall = wallclock.monotonic()
         self.get_logger().info(
             f"simulating {len(self.robots)} robots of mission {mission.name!r} in {self.mode} "
@@ -213,8 +214,8 @@ class SimulatorNode(Node):
                 robot.revived_wall = wallclock.monotonic()
             robot.liveness = "live"
 
-    def _on_converged(self, msg: Bool) -> None:
-        self.converged = bool(msg.data)
+    def _on_settling(self, msg: String) -> None:
+        self.settling = str(msg.data)
 
     # --- stepping -----------------------------------------------------------------------
 
@@ -258,8 +259,9 @@ class SimulatorNode(Node):
         if self.time >= self.end_time - SAME_TIME:
             self.get_logger().info(f"run over at t = {self.time:.2f} s (duration reached)")
             raise RunFinished(0)
-        if self.stop_when_converged and self.converged:
-            self.get_logger().info(f"run over at t = {self.time:.2f} s (fleet at rest)")
+        if self.stop_when_settled and self.settling in ("settled", "stuck"):
+            ending = "settled within tolerance" if self.settling == "settled" else "stuck"
+            self.get_logger().info(f"run over at t = {self.time:.2f} s (fleet {ending})")
             raise RunFinished(0)
 
     def _realtime_tick(self) -> None:

@@ -16,7 +16,8 @@ COST = "/coverage/cost"
 CANDIDATES = "/coverage/candidates"
 GENERATION = "/coverage/generation"
 OPENINGS = "/coverage/openings"
-CONVERGED = "/coverage/converged"
+#: "moving", "settled" or "stuck" (fleet/settling.py), latched.
+SETTLING = "/coverage/settling"
 DIAGNOSTICS = "/diagnostics"
 CLOCK = "/clock"
 
