@@ -25,7 +25,7 @@ if TYPE_CHECKING:
 
 EXIT_NODE_DIED = 1
 EXIT_INTERRUPTED = 130
-#: Simulator exit status 0 means its run is over (duration reached or fleet at rest).
+#: Simulator exit status 0 means its run is over (duration reached, fleet settled or stuck).
 SIMULATOR_ROLE = "simulator"
 
 
