@@ -63,7 +63,7 @@ def drop_key(key: str) -> Callable[[dict], None]:
 # (id, mutation of GOOD, key path in the message, words in the message)
 FAULTS = [
     ("unknown-top-level-key", set_key("regoin", {}), "regoin", "unknown key"),
-    ("missing-region", drop_key("region"), "region", "missing (required)"),
+    ("missing-region", drop_key("region"), "region", "is required"),
     (
         "non-convex-region",
         set_key("region.vertices", [[0, 0], [12, 0], [6, 2], [12, 8], [0, 8]]),
@@ -81,7 +81,7 @@ FAULTS = [
     ("gate-wrong-type", set_key("gate.noise_tolerance", "small"), "gate.noise_tolerance",
      "must be a number"),
     ("negative-duration", set_key("simulation.duration", -5.0), "simulation.duration",
-     "must be > 0"),
+     "must be greater than 0, got -5"),
     ("unknown-simulation-key", set_key("simulation.speedup", 2), "simulation.speedup",
      "unknown key"),
     ("not-a-ros-name", set_key("roster[1].name", "rover-b"), "roster[1].name",
@@ -97,7 +97,7 @@ FAULTS = [
     ("footprints-overlap", set_key("roster[1].initial_pose", [1.4, 1.0, 0.0]),
      "roster[1].initial_pose", "footprints need at least 0.7 m"),
     ("pose-wrong-length", set_key("roster[0].initial_pose", [1.0, 1.0]), "roster[0].initial_pose",
-     "three numbers"),
+     "must be a list of 3 numbers"),
     ("simulated-not-bool", set_key("roster[0].simulated", "yes"), "roster[0].simulated",
      "true or false"),
     ("unknown-robot-key", set_key("roster[0].colour", "red"), "roster[0].colour", "unknown key"),
@@ -174,7 +174,7 @@ def test_not_yaml_and_missing_file(tmp_path: Path, capsys: pytest.CaptureFixture
     status, err = run_cli(["simulate", str(broken), "--out", str(tmp_path / "trial")], capsys)
     assert status == 2 and f"{broken}: not valid YAML (line" in err
     status, err = run_cli(["simulate", str(tmp_path / "nowhere.yaml")], capsys)
-    assert status == 2 and "cannot read mission file" in err
+    assert status == 2 and f"{tmp_path / 'nowhere.yaml'}: file not found" in err
     assert_nothing_written(tmp_path)
 
 

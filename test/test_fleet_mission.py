@@ -1,5 +1,5 @@
-"""Mission files: the demo missions load, robot names follow the ROS rules, vehicle files are
-found by bare name, and the mission as run reloads to the same mission."""
+"""Mission files: the demo missions load, vehicle files are found by bare name, and the
+mission as run reloads to the same mission (robot-name rules: test_inputs_names.py)."""
 
 from __future__ import annotations
 
@@ -8,12 +8,8 @@ from pathlib import Path
 import numpy as np
 import pytest
 import yaml
-from hypothesis import given, settings
-from hypothesis import strategies as st
-from rclpy.validate_namespace import validate_namespace
-from rclpy.validate_node_name import validate_node_name
 
-from coverage_fleet.fleet.mission import load_mission, mission_as_run, ros_name_problem
+from coverage_fleet.fleet.mission import load_mission, mission_as_run
 
 MISSIONS = Path(__file__).resolve().parents[1] / "config" / "missions"
 
@@ -35,28 +31,6 @@ def test_quick_mission_is_small_and_uniform() -> None:
     values = mission.density.evaluate(np.array([[1.0, 1.0], [6.0, 4.0], [11.0, 7.0]]))
     assert np.ptp(values) == 0.0
     assert "invented" in (MISSIONS / "solar_row_quick_check.yaml").read_text().lower()
-
-
-def rclpy_accepts(name: str) -> bool:
-    """The reference: rclpy's own node-name and namespace validation (ROS 2 Kilted)."""
-    try:
-        validate_node_name(name)
-        validate_namespace("/" + name)
-    except Exception:
-        return False
-    return True
-
-
-@settings(max_examples=300, deadline=None)
-@given(st.text(alphabet="ab_Z09-/. ~é", min_size=0, max_size=12))
-def test_robot_names_follow_the_ros_rules(name: str) -> None:
-    assert (ros_name_problem(name) is None) == rclpy_accepts(name)
-
-
-@pytest.mark.parametrize("length", [243, 244, 245, 256])
-def test_robot_name_length_limit_matches_ros(length: int) -> None:
-    name = "r" * length
-    assert (ros_name_problem(name) is None) == rclpy_accepts(name)
 
 
 def test_vehicle_found_by_relative_path_or_bare_name(tmp_path: Path) -> None:

@@ -88,7 +88,7 @@ def test_mpc_section_may_be_left_out_and_defaults_are_documented_values(tmp_path
 
 
 def test_missing_file(tmp_path: Path) -> None:
-    assert problems_of(tmp_path / "absent.yaml") == [("", "vehicle file not found")]
+    assert problems_of(tmp_path / "absent.yaml") == [("", "file not found")]
 
 
 def test_bad_yaml_names_line(tmp_path: Path) -> None:
@@ -153,16 +153,18 @@ def test_all_problems_are_collected_together(tmp_path: Path) -> None:
         "solver_name": "ipopt",
     }
     found = dict(problems_of(write_vehicle(tmp_path, vehicle, mpc)))
-    assert found["vehicle.max_speed"] == "must be a positive number, got -1"
-    assert found["vehicle.max_yaw_rate"] == "must be a positive number, got 'fast'"
+    assert found["vehicle.max_speed"] == "must be greater than 0, got -1"
+    assert found["vehicle.max_yaw_rate"] == "must be a number, got 'fast'"
     assert found["vehicle.footprint_radius"] == "is required"
-    assert found["vehicle.wheel_count"] == "unknown key for this model"
+    assert found["vehicle.wheel_count"] == (
+        "unknown key (allowed: footprint_radius, max_reverse_speed, max_speed, max_yaw_rate)")
     assert found["mpc.horizon"] == "must be at least 1, got 0"
-    assert found["mpc.sample_time"] == "must be a finite number, got True"
+    assert found["mpc.sample_time"] == "must be a number, got True"
+    assert "not stabilisable at rest" in found["mpc.terminal"]
     assert "use 'equality'" in found["mpc.terminal"]
-    assert found["mpc.state_weights"] == "needs 3 entries (x, y, yaw), got 2"
+    assert found["mpc.state_weights"] == "must be a list of 3 numbers (x, y, yaw), got [1.0, 1.0]"
     assert "mixes integers and reals" in found["mpc.input_weights"]
-    assert found["mpc.solver_name"].startswith("unknown MPC setting")
+    assert found["mpc.solver_name"].startswith("unknown key (allowed: horizon, ")
     assert len(found) == 10
 
 
@@ -179,11 +181,10 @@ def test_mpc_value_rules(tmp_path: Path) -> None:
     found = dict(problems_of(write_vehicle(tmp_path, ROVER, mpc)))
     assert found == {
         "mpc.substeps": "must be an integer, got 2.5",
-        "mpc.input_weights": "every entry must be positive (R must be positive definite), "
-        "got [0.0, 1.0]",
-        "mpc.offset_weight": "must be a positive number, got -3",
-        "mpc.steady_state_margin": "must be in [0, 1), got 1",
-        "mpc.terminal_shrink": "must be in (0, 1], got 0",
+        "mpc.input_weights[0]": "must be greater than 0, got 0",
+        "mpc.offset_weight": "must be greater than 0, got -3",
+        "mpc.steady_state_margin": "must be less than 1, got 1",
+        "mpc.terminal_shrink": "must be greater than 0, got 0",
         "mpc.solver": "must be a mapping, got [1, 2]",
         "mpc.state_weights": "is empty; leave the key out to use the default (a ROS 2 "
         "parameter file cannot type an empty list)",
@@ -241,8 +242,8 @@ def test_unknown_section_and_missing_vehicle(tmp_path: Path) -> None:
     path = tmp_path / "v.yaml"
     path.write_text(yaml.safe_dump({"/**": {"ros__parameters": {"mpc": {}, "robot": {}}}}))
     found = dict(problems_of(path))
-    assert found["robot"].startswith("unknown section")
-    assert found["vehicle"].startswith("missing section")
+    assert found["robot"] == "unknown key (allowed: mpc, vehicle)"
+    assert found["vehicle"] == "is required"
     assert found["vehicle.model"].startswith("is required")
 
 
@@ -375,4 +376,15 @@ def test_describe_prints_limits_or_problems(tmp_path: Path, capsys) -> None:
     bad = write_vehicle(tmp_path, {**ROVER, "max_speed": -1})
     assert main([str(bad)]) == 2
     err = capsys.readouterr().err
-    assert f"{bad}: vehicle.max_speed: must be a positive number, got -1" in err
+    assert f"{bad}: vehicle.max_speed: must be greater than 0, got -1" in err
+
+
+def test_solver_vocabulary_matches_the_mpc() -> None:
+    """The loader checks `mpc.solver` against settings.SOLVER_PLUGINS / SOLVER_KEYS; the MPC
+    must offer exactly those, or a file the loader accepts would fail later."""
+    from coverage_fleet.control import mpc
+    from coverage_fleet.vehicles.settings import SOLVER_KEYS, SOLVER_PLUGINS
+
+    assert set(mpc.SOLVER_DEFAULTS) == set(SOLVER_PLUGINS)
+    assert mpc.DEFAULT_PLUGIN in SOLVER_PLUGINS
+    assert set(mpc.SOLVER_KEYS) == set(SOLVER_KEYS)

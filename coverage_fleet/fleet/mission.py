@@ -1,6 +1,7 @@
 """Mission files: one YAML file describes a deployment.
 
-    name: orchard_frost_watch          # optional, default: the file name without suffix
+    name: orchard_frost_watch          # optional, default: the file name without suffix;
+                                       # a safe file name (it names the trial folder)
     description: ...                   # optional free text
     region:   {vertices: [[x, y], ...]}  (metres, map frame, convex)
     density:  the geometry's density mapping (uniform, gaussian bumps, raster file path
@@ -20,54 +21,52 @@
                  step}
 
 Validation collects every problem (file, dotted key path, what is wrong) before raising one
-ConfigError. The roster is a list of independent entries so that robots can be marked real
-or join and leave later; nothing downstream assumes a fixed roster.
+ConfigError; reading, YAML and the wording of each fault are the package's one path
+(coverage_fleet.inputs). Bounds (refused beyond; no deployment needs more, and larger values
+hang or overflow the simulation): distances of the gate and settle sections up to 1000 m,
+settle speed up to 100 m/s, dwell and stuck_timeout up to one day, duration up to one day
+(86400 s), step from 0.001 s to 10 s, plant_substeps up to 1000, noise standard deviations
+up to 10 (SI units of each state), seed from 0 to 2**32 - 1.
+
+The roster is a list of independent entries so that robots can be marked real or join and
+leave later; nothing downstream assumes a fixed roster.
 """
 
 from __future__ import annotations
 
 import math
-import re
 from collections.abc import Mapping
-from dataclasses import dataclass, field, fields
+from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
 import numpy as np
-import yaml
 
 from coverage_fleet.control.gate import GateSettings
-from coverage_fleet.errors import ConfigError, Problem
+from coverage_fleet.errors import ConfigError
 from coverage_fleet.fleet.settling import SettleSettings, settle_problems
 from coverage_fleet.geometry.density import Density, density_from_config
 from coverage_fleet.geometry.region import ConvexRegion
+from coverage_fleet.inputs.fields import (
+    REQUIRED,
+    Collector,
+    FieldReader,
+    required_message,
+    type_message,
+)
+from coverage_fleet.inputs.names import file_name_problem, robot_name_problem
+from coverage_fleet.inputs.reader import read_yaml_file, require_mapping
 from coverage_fleet.vehicles.loader import VehicleSpec, load_vehicle_file
 
-TOP_LEVEL_KEYS = (
-    "name", "description", "region", "density", "roster", "gate", "settle", "simulation"
-)
-ROBOT_KEYS = ("name", "vehicle", "initial_pose", "simulated")
-REGION_KEYS = ("vertices",)
-
-# ROS 2 names (rmw name validation, as rclpy.validate_node_name / validate_namespace apply
-# it): a robot name is used as node name and as namespace token, so it holds only letters,
-# digits and underscores, does not start with a digit, and "/" + name fits the namespace
-# length limit (245 characters in Kilted; test_fleet_mission checks this against rclpy).
-_ROS_TOKEN = re.compile(r"^[A-Za-z_][A-Za-z0-9_]*$")
-_ROS_NAME_MAX = 244
-
-
-def ros_name_problem(name: str) -> str | None:
-    """Why `name` cannot be a ROS node name and namespace, or None when it can."""
-    if not name:
-        return "is empty"
-    if len(name) > _ROS_NAME_MAX:
-        return f"is longer than {_ROS_NAME_MAX} characters"
-    if name[0].isdigit():
-        return "starts with a digit"
-    if not _ROS_TOKEN.match(name):
-        return "may hold only letters, digits and underscores"
-    return None
+#: Bounds of the gate, settle and simulation sections (see the module docstring).
+DISTANCE_MAX = 1000.0
+SPEED_MAX = 100.0
+DURATION_MAX = 86400.0
+STEP_MIN = 0.001
+STEP_MAX = 10.0
+PLANT_SUBSTEPS_MAX = 1000
+NOISE_STD_MAX = 10.0
+SEED_MAX = 2**32 - 1
 
 
 @dataclass(frozen=True)
@@ -145,9 +144,11 @@ def package_config_dir() -> Path | None:
 
 
 def resolve_vehicle_path(value: str, base_dir: Path) -> Path | None:
-    """A vehicle file relative to the mission, else a bare name in config/vehicles."""
+    """A vehicle file relative to the mission, else a bare name in config/vehicles. A path
+    that exists but is no regular file is returned too when it names a .yaml file, so the
+    reader reports what it is (a directory, ...) instead of "not found"."""
     direct = (base_dir / value).expanduser()
-    if direct.is_file():
+    if direct.is_file() or (direct.exists() and value.endswith((".yaml", ".yml"))):
         return direct.resolve()
     config = package_config_dir()
     if config is not None and "/" not in value:
@@ -158,116 +159,55 @@ def resolve_vehicle_path(value: str, base_dir: Path) -> Path | None:
     return None
 
 
-class _Collector:
-    """Gathers problems against one source file."""
-
-    def __init__(self, source: str) -> None:
-        self.source = source
-        self.problems: list[Problem] = []
-
-    def add(self, key: str, message: str) -> None:
-        self.problems.append(Problem(self.source, key, message))
-
-    def extend(self, error: ConfigError, prefix: str = "") -> None:
-        for p in error.problems:
-            key = p.key
-            if prefix and p.source == self.source and not key.startswith(prefix):
-                key = f"{prefix}.{key}" if key else prefix
-            self.problems.append(Problem(p.source, key, p.message))
-
-    def unknown_keys(self, mapping: Mapping[str, Any], allowed: tuple[str, ...], where: str):
-        for key in mapping:
-            if key not in allowed:
-                path = f"{where}.{key}" if where else str(key)
-                self.add(path, f"unknown key (allowed: {', '.join(allowed)})")
+def _read_gate(read: FieldReader) -> GateSettings:
+    d = GateSettings()
+    settings = GateSettings(
+        noise_tolerance=read.non_negative("noise_tolerance", d.noise_tolerance,
+                                          maximum=DISTANCE_MAX),
+        progress_tolerance=read.positive("progress_tolerance", d.progress_tolerance,
+                                         maximum=DISTANCE_MAX),
+    )
+    # Its meaning changed (distance to the current cell's centroid, not to the target):
+    # refused with a pointer rather than silently reinterpreted.
+    read.retired("settle_distance", "moved to settle.distance (now measured from the "
+                 "centroid of the robot's current cell)")
+    read.check_unknown()
+    return settings
 
 
-def _is_number(value: Any) -> bool:
-    return isinstance(value, int | float) and not isinstance(value, bool) and math.isfinite(value)
+def _read_settle(read: FieldReader) -> SettleSettings:
+    d = SettleSettings()
+    settings = SettleSettings(
+        distance=read.positive("distance", d.distance, maximum=DISTANCE_MAX),
+        speed=read.positive("speed", d.speed, maximum=SPEED_MAX),
+        dwell=read.non_negative("dwell", d.dwell, maximum=DURATION_MAX),
+        stuck_timeout=read.positive("stuck_timeout", d.stuck_timeout, maximum=DURATION_MAX),
+    )
+    read.check_unknown()
+    return settings
 
 
-def _settings_from(
-    cls: type,
-    mapping: Any,
-    where: str,
-    out: _Collector,
-    checks: Mapping[str, tuple[type, str]],
-) -> Any:
-    """Fill a frozen settings dataclass from a mapping, checking each value.
-
-    checks: key -> (type, condition) where condition is one of "positive", "non-negative",
-    "any", "positive-or-null".
-    """
-    if mapping is None:
-        return cls()
-    if not isinstance(mapping, Mapping):
-        out.add(where, f"must be a mapping, got {type(mapping).__name__}")
-        return cls()
-    allowed = tuple(f.name for f in fields(cls))
-    out.unknown_keys(mapping, allowed, where)
-    values = {}
-    for key, (kind, condition) in checks.items():
-        if key not in mapping:
-            continue
-        value = mapping[key]
-        path = f"{where}.{key}"
-        if value is None and condition == "positive-or-null":
-            values[key] = None
-            continue
-        if kind is int:
-            if not isinstance(value, int) or isinstance(value, bool):
-                out.add(path, f"must be an integer, got {value!r}")
-                continue
-        elif not _is_number(value):
-            out.add(path, f"must be a number, got {value!r}")
-            continue
-        if condition.startswith("positive") and value <= 0:
-            out.add(path, f"must be > 0, got {value!r}")
-            continue
-        if condition == "non-negative" and value < 0:
-            out.add(path, f"must be >= 0, got {value!r}")
-            continue
-        values[key] = kind(value)
-    return cls(**values)
-
-
-GATE_CHECKS = {
-    "noise_tolerance": (float, "non-negative"),
-    "progress_tolerance": (float, "positive"),
-}
-SETTLE_CHECKS = {
-    "distance": (float, "positive"),
-    "speed": (float, "positive"),
-    "dwell": (float, "non-negative"),
-    "stuck_timeout": (float, "positive"),
-}
-SIMULATION_CHECKS = {
-    "duration": (float, "positive"),
-    "seed": (int, "non-negative"),
-    "process_noise_std": (float, "non-negative"),
-    "measurement_noise_std": (float, "non-negative"),
-    "plant_substeps": (int, "positive"),
-    "step": (float, "positive-or-null"),
-}
+def _read_simulation(read: FieldReader) -> SimulationSettings:
+    d = SimulationSettings()
+    settings = SimulationSettings(
+        duration=read.positive("duration", d.duration, maximum=DURATION_MAX),
+        seed=read.integer("seed", d.seed, minimum=0, maximum=SEED_MAX),
+        process_noise_std=read.non_negative("process_noise_std", d.process_noise_std,
+                                            maximum=NOISE_STD_MAX),
+        measurement_noise_std=read.non_negative(
+            "measurement_noise_std", d.measurement_noise_std, maximum=NOISE_STD_MAX),
+        plant_substeps=read.integer("plant_substeps", d.plant_substeps, minimum=1,
+                                    maximum=PLANT_SUBSTEPS_MAX),
+        step=read.number("step", d.step, minimum=STEP_MIN, maximum=STEP_MAX, nullable=True),
+    )
+    read.check_unknown()
+    return settings
 
 
 def load_mission(path: str | Path) -> Mission:
     """Read and validate a mission file; raises ConfigError listing every problem."""
     path = Path(path)
-    source = str(path)
-    try:
-        text = path.read_text()
-    except OSError as error:
-        raise ConfigError.single(
-            source, "", f"cannot read mission file: {error.strerror}"
-        ) from None
-    try:
-        raw = yaml.safe_load(text)
-    except yaml.YAMLError as error:
-        mark = getattr(error, "problem_mark", None)
-        where = f" (line {mark.line + 1}, column {mark.column + 1})" if mark else ""
-        problem = getattr(error, "problem", None) or "invalid YAML"
-        raise ConfigError.single(source, "", f"not valid YAML{where}: {problem}") from None
+    raw, _ = read_yaml_file(path)
     return mission_from_mapping(raw, path)
 
 
@@ -275,54 +215,47 @@ def mission_from_mapping(raw: Any, path: Path) -> Mission:
     """Validate an already parsed mission (`path` names it and anchors relative paths)."""
     source = str(path)
     base_dir = path.resolve().parent
-    out = _Collector(source)
-    if not isinstance(raw, Mapping):
-        raise ConfigError.single(source, "", "a mission file must be a mapping of keys")
-    out.unknown_keys(raw, TOP_LEVEL_KEYS, "")
-    for key in ("region", "density", "roster"):
-        if key not in raw:
-            out.add(key, "missing (required)")
+    raw = require_mapping(raw, source, "a mission: region, density, roster, ...")
+    out = Collector(source)
+    top = out.fields(raw, "")
 
-    name = raw.get("name", path.stem)
-    if not isinstance(name, str) or not name:
-        out.add("name", f"must be a non-empty string, got {name!r}")
-        name = path.stem
+    name = top.text("name", path.stem)
+    fault = file_name_problem(name) if name else None
+    if fault:
+        top.problem("name", fault if "name" in raw else
+                    f"{fault} (the default is the file name; give a `name`)")
     description = raw.get("description", "")
+    top.raw("description")
     if not isinstance(description, str):
-        out.add("description", "must be a string")
+        top.problem("description", type_message("a string", description))
         description = ""
 
-    region = _load_region(raw.get("region"), out) if "region" in raw else None
+    region = _load_region(top.raw("region"), out) if top.has("region") else None
     density = None
-    if "density" in raw:
+    if top.has("density"):
         try:
             density = density_from_config(
-                raw["density"], source, base_dir, region=region, key="density"
+                top.raw("density"), source, base_dir, region=region, key="density"
             )
         except ConfigError as error:
-            out.extend(error, prefix="density")
-
-    gate_raw = raw.get("gate")
-    if isinstance(gate_raw, Mapping) and "settle_distance" in gate_raw:
-        # Its meaning changed (distance to the current cell's centroid, not to the target):
-        # refused with a pointer rather than silently reinterpreted.
-        out.add("gate.settle_distance", "moved to settle.distance (now measured from the "
-                "centroid of the robot's current cell)")
-        gate_raw = {k: v for k, v in gate_raw.items() if k != "settle_distance"}
-    gate = _settings_from(GateSettings, gate_raw, "gate", out, GATE_CHECKS)
-    settle = _settings_from(SettleSettings, raw.get("settle"), "settle", out, SETTLE_CHECKS)
-    simulation = _settings_from(
-        SimulationSettings, raw.get("simulation"), "simulation", out, SIMULATION_CHECKS
-    )
-    roster = _load_roster(raw.get("roster"), base_dir, region, out) if "roster" in raw else ()
+            out.extend(error)
+    gate = _read_gate(out.fields(top.raw("gate"), "gate", optional=True))
+    settle = _read_settle(out.fields(top.raw("settle"), "settle", optional=True))
+    simulation = _read_simulation(out.fields(top.raw("simulation"), "simulation",
+                                             optional=True))
+    roster = (_load_roster(top.raw("roster"), base_dir, region, out)
+              if top.has("roster") else [])
+    for key in ("region", "density", "roster"):
+        if not top.has(key):
+            top.problem(key, required_message())
+    top.check_unknown()
     if roster and not out.problems:
         _check_sample_times(roster, simulation, out)
     if roster and not out.problems:
         for key, message in mission_settle_problems(roster, gate, settle, simulation):
             out.add(f"settle.{key}", message)
 
-    if out.problems:
-        raise ConfigError(out.problems)
+    out.raise_if_any()
     assert region is not None and density is not None
     return Mission(
         name=name,
@@ -338,87 +271,66 @@ def mission_from_mapping(raw: Any, path: Path) -> Mission:
     )
 
 
-def _load_region(value: Any, out: _Collector) -> ConvexRegion | None:
-    if not isinstance(value, Mapping):
-        out.add("region", "must be a mapping with key 'vertices'")
-        return None
-    out.unknown_keys(value, REGION_KEYS, "region")
-    if "vertices" not in value:
-        out.add("region.vertices", "missing (required): polygon vertices [[x, y], ...] in metres")
+def _load_region(value: Any, out: Collector) -> ConvexRegion | None:
+    read = out.fields(value, "region")
+    vertices = read.raw("vertices", REQUIRED)
+    read.check_unknown()
+    if vertices is REQUIRED:
+        read.problem("vertices", required_message("polygon vertices [[x, y], ...] in metres"))
         return None
     try:
-        return ConvexRegion.from_vertices(
-            value["vertices"], source=out.source, key="region.vertices"
-        )
+        return ConvexRegion.from_vertices(vertices, source=out.source, key="region.vertices")
     except ConfigError as error:
-        out.extend(error, prefix="region.vertices")
-    except (TypeError, ValueError) as error:
-        out.add("region.vertices", f"not a list of [x, y] points: {error}")
+        out.extend(error)
     return None
 
 
 def _load_roster(
-    value: Any, base_dir: Path, region: ConvexRegion | None, out: _Collector
+    value: Any, base_dir: Path, region: ConvexRegion | None, out: Collector
 ) -> list[RobotEntry]:
     if not isinstance(value, list) or not value:
-        out.add("roster", "must be a non-empty list of robots")
+        out.add("roster", type_message("a non-empty list of robots", value))
         return []
     entries: list[RobotEntry] = []
     seen: dict[str, int] = {}
     for index, item in enumerate(value):
         where = f"roster[{index}]"
-        if not isinstance(item, Mapping):
-            out.add(where, "must be a mapping with keys name, vehicle, initial_pose")
+        before = len(out.problems)
+        read = out.fields(item, where)
+        if len(out.problems) > before:
             continue
-        out.unknown_keys(item, ROBOT_KEYS, where)
-        entry_ok = True
 
-        name = item.get("name")
-        if name is None:
-            out.add(f"{where}.name", "missing (required)")
-            entry_ok = False
-        elif not isinstance(name, str):
-            out.add(f"{where}.name", f"must be a string, got {name!r}")
-            entry_ok = False
+        name = read.raw("name", REQUIRED)
+        if name is REQUIRED:
+            read.problem("name", required_message())
         else:
-            reason = ros_name_problem(name)
-            if reason:
-                out.add(f"{where}.name", f"{name!r} is not a valid ROS name: it {reason}")
-                entry_ok = False
+            fault = robot_name_problem(name)
+            if fault:
+                read.problem("name", fault)
             elif name in seen:
-                out.add(
-                    f"{where}.name", f"duplicate robot name {name!r} (also roster[{seen[name]}])"
-                )
-                entry_ok = False
+                read.problem("name", f"duplicate robot name {name!r} (also roster[{seen[name]}])")
             else:
                 seen[name] = index
-
-        simulated = item.get("simulated", True)
-        if not isinstance(simulated, bool):
-            out.add(f"{where}.simulated", f"must be true or false, got {simulated!r}")
-            entry_ok = False
-
-        pose = _load_pose(item.get("initial_pose"), f"{where}.initial_pose", out)
-        spec, vehicle_path = _load_vehicle(item.get("vehicle"), f"{where}.vehicle", base_dir, out)
-        if pose is None or spec is None:
-            entry_ok = False
+        simulated = read.boolean("simulated", True)
+        pose = read.numbers("initial_pose", length=3, hint="x, y, heading in metres and radians")
+        spec, vehicle_path = _load_vehicle(read.raw("vehicle", REQUIRED), f"{where}.vehicle",
+                                           base_dir, out)
+        read.check_unknown()
         if pose is not None and region is not None:
             radius = float(spec.model.footprint_radius) if spec is not None else 0.0
             if not inside_with_footprint(region, pose[:2], radius):
-                out.add(
-                    f"{where}.initial_pose",
+                read.problem(
+                    "initial_pose",
                     f"position ({pose[0]:g}, {pose[1]:g}) is outside the region"
                     + (f" (the footprint, radius {radius:g} m, must fit inside)" if radius else ""),
                 )
-                entry_ok = False
-
-        if entry_ok:
+        if len(out.problems) == before and spec is not None and pose is not None:
             entries.append(
                 RobotEntry(
                     name=name,
                     vehicle_path=vehicle_path,
                     vehicle=spec,
-                    initial_pose=pose,
+                    initial_pose=(pose[0], pose[1], pose[2]),
                     simulated=simulated,
                 )
             )
@@ -434,36 +346,19 @@ def inside_with_footprint(region: ConvexRegion, point, radius: float) -> bool:
     return bool(np.all(A @ np.asarray(point, float) <= b - radius + 1e-9))
 
 
-def _load_pose(value: Any, where: str, out: _Collector) -> tuple[float, float, float] | None:
-    if value is None:
-        out.add(where, "missing (required): [x, y, heading] in metres and radians")
-        return None
-    if (
-        not isinstance(value, list | tuple)
-        or len(value) != 3
-        or not all(_is_number(v) for v in value)
-    ):
-        out.add(where, f"must be [x, y, heading] (three numbers), got {value!r}")
-        return None
-    return (float(value[0]), float(value[1]), float(value[2]))
-
-
 def _load_vehicle(
-    value: Any, where: str, base_dir: Path, out: _Collector
+    value: Any, where: str, base_dir: Path, out: Collector
 ) -> tuple[VehicleSpec | None, Path | None]:
-    if value is None:
-        out.add(where, "missing (required): path of a vehicle parameter file")
+    if value is REQUIRED:
+        out.add(where, required_message("path of a vehicle parameter file"))
         return None, None
     if not isinstance(value, str) or not value:
-        out.add(where, f"must be a file path, got {value!r}")
+        out.add(where, type_message("a file path", value))
         return None, None
     path = resolve_vehicle_path(value, base_dir)
     if path is None:
-        out.add(
-            where,
-            f"vehicle file {value!r} not found (looked in {base_dir} and the package's "
-            "config/vehicles)",
-        )
+        out.add(where, f"file not found ({value!r}; looked in {base_dir} and the package's "
+                "config/vehicles)")
         return None, None
     try:
         return load_vehicle_file(path), path
@@ -471,11 +366,11 @@ def _load_vehicle(
         out.add(
             where, f"vehicle file {path} does not load ({len(error.problems)} problem(s) below)"
         )
-        out.problems.extend(error.problems)
+        out.extend(error)
     return None, path
 
 
-def _check_separation(entries: list[RobotEntry], out: _Collector) -> None:
+def _check_separation(entries: list[RobotEntry], out: Collector) -> None:
     """Two robots whose footprints overlap at their initial poses cannot both be there."""
     for i, first in enumerate(entries):
         for j in range(i + 1, len(entries)):
@@ -491,7 +386,7 @@ def _check_separation(entries: list[RobotEntry], out: _Collector) -> None:
 
 
 def _check_sample_times(
-    roster: list[RobotEntry], simulation: SimulationSettings, out: _Collector
+    roster: list[RobotEntry], simulation: SimulationSettings, out: Collector
 ) -> None:
     step = simulation_step(roster, simulation)
     for index, entry in enumerate(roster):

@@ -17,9 +17,10 @@ row of the file is the largest y, like a map image (the ROS map_server conventio
 
 from __future__ import annotations
 
+import io
 import math
 from abc import ABC, abstractmethod
-from collections.abc import Mapping, Sequence
+from collections.abc import Sequence
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -30,6 +31,15 @@ from coverage_fleet.errors import ConfigError, Problem
 from coverage_fleet.geometry.polygon import clip_halfplane
 from coverage_fleet.geometry.quadrature import fan_quadrature
 from coverage_fleet.geometry.region import ConvexRegion
+from coverage_fleet.inputs.fields import (
+    Collector,
+    FieldReader,
+    number_fault,
+    number_text,
+    required_message,
+    type_message,
+)
+from coverage_fleet.inputs.reader import decode_text, read_bytes
 
 #: Quadrature piece size in standard deviations of a bump. With the degree-6 rule this
 #: gives relative errors below 1e-9 on mass and moments (test_geometry_density measures it
@@ -440,7 +450,12 @@ class RasterDensity(Density):
 
 
 def read_pgm(path: Path) -> tuple[np.ndarray, int]:
-    """Read a PGM image (binary P5 or plain P2, 8 or 16 bit) as written, first row = top.
+    """parse_pgm of a file's bytes."""
+    return parse_pgm(read_bytes(path))
+
+
+def parse_pgm(data: bytes) -> tuple[np.ndarray, int]:
+    """Parse a PGM image (binary P5 or plain P2, 8 or 16 bit) as written, first row = top.
 
     Format: Netpbm PGM specification (netpbm.sourceforge.net/doc/pgm.html): magic, width,
     height, maxval as ASCII decimals separated by whitespace, '#' comments to end of line
@@ -448,7 +463,6 @@ def read_pgm(path: Path) -> tuple[np.ndarray, int]:
     else 2 bytes, most significant first); P2 samples are ASCII decimals.
     Raises ValueError with a plain description on malformed files.
     """
-    data = Path(path).read_bytes()
     magic = data[:2]
     if magic not in (b"P5", b"P2"):
         raise ValueError("not a PGM image (expected magic P5 or P2)")
@@ -502,37 +516,40 @@ def read_pgm(path: Path) -> tuple[np.ndarray, int]:
 
 
 def load_raster_values(path: Path) -> np.ndarray:
-    """Values of a raster file as written (first row = north): .npy (2-D numeric array),
-    .csv (comma-separated rows, '#' comments) or .pgm (pixels / maxval, so 0..1).
-    Raises ValueError with a plain description on unreadable or malformed files."""
+    """Values of a raster file as written (first row = north); see raster_values."""
     path = Path(path)
-    suffix = path.suffix.lower()
-    if not path.is_file():
-        raise ValueError(f"file not found: {path}")
+    return raster_values(read_bytes(path), path.suffix, str(path))
+
+
+def raster_values(data: bytes, suffix: str, source: str) -> np.ndarray:
+    """Values of raster file content as written (first row = north): .npy (2-D numeric
+    array), .csv (comma-separated rows, '#' comments) or .pgm (pixels / maxval, so 0..1).
+    Raises ValueError with a plain description on malformed content (ConfigError for text
+    that is not UTF-8)."""
+    suffix = suffix.lower()
     if suffix == ".npy":
         try:
-            values = np.load(path, allow_pickle=False)
-        except (ValueError, OSError) as exc:
-            raise ValueError(f"cannot read {path} as .npy: {exc}") from None
-        if values.dtype.kind not in "biuf":
-            raise ValueError(f"{path}: the array must be numeric, got dtype {values.dtype}")
+            values = np.load(io.BytesIO(data), allow_pickle=False)
+        except (ValueError, OSError, EOFError) as exc:
+            raise ValueError(f"cannot read it as .npy: {exc}") from None
+        if not isinstance(values, np.ndarray) or values.dtype.kind not in "biuf":
+            raise ValueError(f"the array must be numeric, got dtype "
+                             f"{getattr(values, 'dtype', type(values).__name__)}")
     elif suffix == ".csv":
+        text = decode_text(data, source)
         try:
-            values = np.loadtxt(path, delimiter=",", comments="#", ndmin=2, dtype=float)
+            values = np.loadtxt(io.StringIO(text), delimiter=",", comments="#", ndmin=2,
+                                dtype=float)
         except ValueError as exc:
-            raise ValueError(f"cannot read {path} as CSV numbers: {exc}") from None
+            raise ValueError(f"cannot read it as CSV numbers: {exc}") from None
     elif suffix == ".pgm":
-        try:
-            samples, maxval = read_pgm(path)
-        except ValueError as exc:
-            raise ValueError(f"{path}: {exc}") from None
+        samples, maxval = parse_pgm(data)
         values = samples / float(maxval)
     else:
-        raise ValueError(f"{path}: unknown raster file type {suffix!r} (use .npy, .csv, .pgm)")
+        raise ValueError(f"unknown raster file type {suffix!r} (use .npy, .csv, .pgm)")
     values = np.asarray(values, dtype=float)
     if values.ndim != 2 or values.size == 0:
-        raise ValueError(f"{path}: the raster must be a non-empty 2-D array, got "
-                         f"shape {values.shape}")
+        raise ValueError(f"the raster must be a non-empty 2-D array, got shape {values.shape}")
     return values
 
 
@@ -540,152 +557,122 @@ def load_raster_values(path: Path) -> np.ndarray:
 # Construction from a mission file's mapping
 
 
-def _number(
-    mapping: Mapping[str, Any], name: str, source: str, key: str, problems: list[Problem],
-    *, minimum: float | None = None, strictly: bool = False, default: float | None = None,
-) -> float | None:
-    if name not in mapping:
-        if default is None:
-            problems.append(Problem(source, f"{key}.{name}", "is required"))
-        return default
-    value = mapping[name]
-    if isinstance(value, bool) or not isinstance(value, int | float) or not math.isfinite(value):
-        problems.append(Problem(source, f"{key}.{name}", f"must be a finite number, got "
-                                f"{value!r}"))
-        return None
-    if minimum is not None and (value <= minimum if strictly else value < minimum):
-        relation = "greater than" if strictly else "at least"
-        problems.append(Problem(source, f"{key}.{name}", f"must be {relation} {minimum:g}, got "
-                                f"{value!r}"))
-        return None
-    return float(value)
+#: Bounds of density inputs (values beyond them overflow the moments or are typing
+#: mistakes): densities, bump weights and scales up to 1e12 (any unit; only ratios matter),
+#: coordinates within 1e7 m of the map origin (a continent), variances from 1e-6 m^2
+#: (a 1 mm spread) to 1e12 m^2, raster cells from 1 mm to 10 km.
+DENSITY_VALUE_MAX = 1e12
+COORDINATE_MAX = 1e7
+VARIANCE_MIN = 1e-6
+VARIANCE_MAX = 1e12
+RESOLUTION_MIN = 1e-3
+RESOLUTION_MAX = 1e4
 
 
-def _array(
-    value: Any, shape: tuple[int, ...], source: str, key: str, problems: list[Problem]
-) -> np.ndarray | None:
-    try:
-        array = np.asarray(value, dtype=float)
-    except (TypeError, ValueError):
-        problems.append(Problem(source, key, f"must be numbers of shape {list(shape)}"))
-        return None
-    if array.shape != shape:
-        problems.append(Problem(source, key, f"must have shape {list(shape)}, got "
-                                f"{list(array.shape)}"))
-        return None
-    if not np.all(np.isfinite(array)):
-        problems.append(Problem(source, key, "values must be finite"))
-        return None
-    return array
+def _point(read: FieldReader, name: str, hint: str) -> tuple[float, ...] | None:
+    return read.numbers(name, length=2, hint=hint, minimum=-COORDINATE_MAX,
+                        maximum=COORDINATE_MAX)
 
 
-def _unknown_keys(mapping: Mapping[str, Any], allowed: set[str], source: str, key: str,
-                  problems: list[Problem]) -> None:
-    for name in sorted(set(mapping) - allowed, key=str):
-        problems.append(Problem(source, f"{key}.{name}", "unknown key (allowed: "
-                                f"{', '.join(sorted(allowed))})"))
-
-
-def _gaussian_bumps(mapping: Mapping[str, Any], source: str, key: str,
-                    problems: list[Problem]) -> GaussianBumpsDensity | None:
-    background = _number(mapping, "background", source, key, problems, minimum=0.0,
-                         default=0.0)
-    bumps_value = mapping.get("bumps")
+def _gaussian_bumps(read: FieldReader, out: Collector) -> GaussianBumpsDensity | None:
+    background = read.non_negative("background", 0.0, maximum=DENSITY_VALUE_MAX)
+    bumps_value = read.raw("bumps")
     if not isinstance(bumps_value, list) or not bumps_value:
-        problems.append(Problem(source, f"{key}.bumps", "must be a non-empty list of "
-                                "{weight, mean, covariance}"))
+        read.problem("bumps", required_message("a non-empty list of {weight, mean, covariance}")
+                     if bumps_value is None else type_message(
+                         "a non-empty list of {weight, mean, covariance}", bumps_value))
         return None
     bumps = []
     for index, item in enumerate(bumps_value):
-        where = f"{key}.bumps[{index}]"
-        if not isinstance(item, Mapping):
-            problems.append(Problem(source, where, "must be a mapping with weight, mean, "
-                                    "covariance"))
-            continue
-        _unknown_keys(item, {"weight", "mean", "covariance"}, source, where, problems)
-        weight = _number(item, "weight", source, where, problems, minimum=0.0, strictly=True)
-        mean = cov = None
-        if "mean" not in item:
-            problems.append(Problem(source, f"{where}.mean", "is required"))
-        else:
-            mean = _array(item["mean"], (2,), source, f"{where}.mean", problems)
-        if "covariance" not in item:
-            problems.append(Problem(source, f"{where}.covariance", "is required"))
-        else:
-            cov = _array(item["covariance"], (2, 2), source, f"{where}.covariance", problems)
-            if cov is not None:
-                if abs(cov[0, 1] - cov[1, 0]) > 1e-12 * max(1.0, float(np.abs(cov).max())):
-                    problems.append(Problem(source, f"{where}.covariance", "must be symmetric"))
+        bump = out.fields(item, f"{read.key('bumps')}[{index}]")
+        weight = bump.positive("weight", maximum=DENSITY_VALUE_MAX)
+        mean = _point(bump, "mean", "x, y in metres")
+        cov = bump.matrix("covariance", 2, 2, hint="[[sxx, sxy], [sxy, syy]] in m^2")
+        bump.check_unknown()
+        if cov is not None:
+            matrix = np.asarray(cov)
+            if abs(matrix[0, 1] - matrix[1, 0]) > 1e-12 * max(1.0, float(np.abs(matrix).max())):
+                bump.problem("covariance", "must be symmetric")
+                cov = None
+            else:
+                low, high = np.linalg.eigvalsh(matrix)
+                if low <= 0.0:
+                    bump.problem("covariance", "must be positive definite (variances in m^2, "
+                                 "|rho| < 1)")
                     cov = None
-                elif np.linalg.eigvalsh(cov).min() <= 0.0:
-                    problems.append(Problem(source, f"{where}.covariance", "must be positive "
-                                            "definite (variances in m^2, |rho| < 1)"))
+                elif low < VARIANCE_MIN or high > VARIANCE_MAX:
+                    bump.problem("covariance", f"variances must lie in [{VARIANCE_MIN:g}, "
+                                 f"{VARIANCE_MAX:g}] m^2, got eigenvalues {low:g} and {high:g}")
                     cov = None
-        if weight is not None and mean is not None and cov is not None:
-            bumps.append(GaussianBump(weight, mean, cov))
-    if problems or background is None:
+        if not bump.problems and cov is not None and mean is not None:
+            bumps.append(GaussianBump(weight, np.asarray(mean), np.asarray(cov)))
+    if out.problems:
         return None
     return GaussianBumpsDensity(bumps, background)
 
 
-def _raster(mapping: Mapping[str, Any], source: str, key: str, base_dir: Path | None,
-            problems: list[Problem]) -> RasterDensity | None:
-    resolution = _number(mapping, "resolution", source, key, problems, minimum=0.0,
-                         strictly=True)
-    scale = _number(mapping, "scale", source, key, problems, minimum=0.0, strictly=True,
-                    default=1.0)
-    fill_value = None
-    if "fill_value" in mapping:
-        fill_value = _number(mapping, "fill_value", source, key, problems, minimum=0.0)
-    origin = None
-    if "origin" not in mapping:
-        problems.append(Problem(source, f"{key}.origin", "is required ([x, y] of the "
-                                "south-west corner, metres)"))
-    else:
-        origin = _array(mapping["origin"], (2,), source, f"{key}.origin", problems)
+def _raster(read: FieldReader, out: Collector, base_dir: Path | None) -> RasterDensity | None:
+    resolution = read.number("resolution", minimum=RESOLUTION_MIN, maximum=RESOLUTION_MAX,
+                             hint="metres per cell (square cells)")
+    scale = read.positive("scale", 1.0, maximum=DENSITY_VALUE_MAX)
+    fill_value = read.non_negative("fill_value", None, maximum=DENSITY_VALUE_MAX)
+    origin = _point(read, "origin", "x, y of the south-west corner, metres")
     values = None
-    if ("file" in mapping) == ("values" in mapping):
-        problems.append(Problem(source, key, "give exactly one of 'file' (a .npy, .csv or .pgm "
-                                "path) or 'values' (rows of numbers, north first)"))
-    elif "file" in mapping:
-        name = mapping["file"]
-        if not isinstance(name, str) or not name:
-            problems.append(Problem(source, f"{key}.file", "must be a file path"))
-        else:
+    where = read.key("file" if read.has("file") else "values")
+    if read.has("file") == read.has("values"):
+        read.raw("file")
+        read.raw("values")
+        out.add(read.section, "give exactly one of 'file' (a .npy, .csv or .pgm path) or "
+                "'values' (rows of numbers, north first)")
+    elif read.has("file"):
+        name = read.text("file")
+        if name:
             path = Path(name)
             if not path.is_absolute() and base_dir is not None:
                 path = Path(base_dir) / path
             try:
-                values = load_raster_values(path)
-            except ValueError as exc:
-                problems.append(Problem(source, f"{key}.file", str(exc)))
+                data = read_bytes(path, source=out.source, key=where)
+            except ConfigError as error:
+                out.extend(error)
+            else:
+                try:
+                    values = raster_values(data, path.suffix, str(path))
+                except ConfigError as error:  # about the raster file: say so at the key
+                    for problem in error.problems:
+                        out.add(where, f"{problem.message} ({path})")
+                except ValueError as exc:
+                    out.add(where, f"{exc} ({path})")
     else:
-        try:
-            values = np.asarray(mapping["values"], dtype=float)
-        except (TypeError, ValueError):
-            problems.append(Problem(source, f"{key}.values", "must be rows of numbers"))
+        rows = read.raw("values")
+        shape_ok = (isinstance(rows, list) and rows and all(isinstance(r, list) and r for r in rows)
+                    and len({len(r) for r in rows}) == 1)
+        if not shape_ok:
+            out.add(where, type_message("a non-empty list of equal-length rows of numbers",
+                                        rows))
         else:
-            if values.ndim != 2 or values.size == 0:
-                problems.append(Problem(source, f"{key}.values", "must be a non-empty list of "
-                                        "equal-length rows"))
-                values = None
+            faults = [(i, j, number_fault(v)) for i, row in enumerate(rows)
+                      for j, v in enumerate(row)]
+            faults = [f for f in faults if f[2]]
+            for i, j, fault in faults[:5]:
+                out.add(f"{where}[{i}][{j}]", fault)
+            if not faults:
+                values = np.asarray(rows, dtype=float)
     if values is not None:
-        where = f"{key}.file" if "file" in mapping else f"{key}.values"
         if not np.all(np.isfinite(values)):
-            problems.append(Problem(source, where, "raster values must be finite"))
+            out.add(where, "raster values must be finite")
         elif values.min() < 0.0:
-            problems.append(Problem(source, where, "raster values must be non-negative"))
-    if problems:
+            out.add(where, "raster values must be non-negative")
+        elif math.isfinite(scale) and values.max() * scale > DENSITY_VALUE_MAX:
+            out.add(where, f"scaled raster values must be at most "
+                    f"{number_text(DENSITY_VALUE_MAX)}, got {number_text(values.max() * scale)}")
+    read.check_unknown()
+    if out.problems:
         return None
-    assert values is not None and origin is not None and resolution is not None
+    assert values is not None and origin is not None
     return RasterDensity(values[::-1] * scale, origin, resolution, fill_value)
 
 
-DENSITY_KEYS = {
-    "uniform": {"kind", "value"},
-    "gaussian_bumps": {"kind", "background", "bumps"},
-    "raster": {"kind", "file", "values", "origin", "resolution", "scale", "fill_value"},
-}
+DENSITY_KINDS = ("uniform", "gaussian_bumps", "raster")
 
 
 def density_from_config(
@@ -716,26 +703,23 @@ def density_from_config(
                               cover the region
     """
     base = None if base_dir is None else Path(base_dir)
-    if not isinstance(mapping, Mapping):
-        raise ConfigError.single(source, key, "must be a mapping with a 'kind' "
-                                 "(uniform, gaussian_bumps or raster)")
-    kind = mapping.get("kind")
-    if kind not in DENSITY_KEYS:
-        raise ConfigError.single(source, f"{key}.kind", f"must be one of "
-                                 f"{', '.join(DENSITY_KEYS)}, got {kind!r}")
-    problems: list[Problem] = []
-    _unknown_keys(mapping, DENSITY_KEYS[kind], source, key, problems)
+    out = Collector(source)
+    read = out.fields(mapping, key)
+    out.raise_if_any()
+    kind = read.choice("kind", DENSITY_KINDS)
+    out.raise_if_any()
     density: Density | None
     if kind == "uniform":
-        value = _number(mapping, "value", source, key, problems, minimum=0.0, strictly=True,
-                        default=1.0)
-        density = None if value is None else UniformDensity(value)
+        value = read.positive("value", 1.0, maximum=DENSITY_VALUE_MAX)
+        read.check_unknown()
+        density = UniformDensity(value)
     elif kind == "gaussian_bumps":
-        density = _gaussian_bumps(mapping, source, key, problems)
+        density = _gaussian_bumps(read, out)
+        read.check_unknown()
     else:
-        density = _raster(mapping, source, key, base, problems)
-    if problems or density is None:
-        raise ConfigError(problems or [Problem(source, key, "invalid density")])
+        density = _raster(read, out, base)
+    out.raise_if_any()
+    assert density is not None
     if region is not None:
         problems = density.check_region(region, source, key)
         if problems:

@@ -33,7 +33,12 @@ from coverage_fleet.vehicles.base import (
     SteadyStateFamily,
     VehicleModel,
 )
-from coverage_fleet.vehicles.parameters import ParameterReader
+from coverage_fleet.vehicles.parameters import (
+    ACCELERATION_MAX,
+    LENGTH_MAX,
+    SPEED_MAX,
+    ParameterReader,
+)
 from coverage_fleet.vehicles.planar import wrap_angle
 
 #: Below this commanded speed (m/s) the steering angle cannot be read from a Twist.
@@ -51,13 +56,13 @@ class CarLikeModel(VehicleModel):
     def __init__(self, params: Mapping[str, Any], source: str) -> None:
         super().__init__(params, source)
         read = ParameterReader(params, source)
-        self.wheelbase = read.positive("wheelbase")
-        self.max_speed = read.positive("max_speed")
-        self.max_reverse_speed = read.non_negative("max_reverse_speed", 0.0)
+        self.wheelbase = read.positive("wheelbase", maximum=LENGTH_MAX)
+        self.max_speed = read.positive("max_speed", maximum=SPEED_MAX)
+        self.max_reverse_speed = read.non_negative("max_reverse_speed", 0.0, maximum=SPEED_MAX)
         self.max_steering_angle = read.positive("max_steering_angle", maximum=1.4)
-        self.max_acceleration = read.positive("max_acceleration")
-        self.max_deceleration = read.positive("max_deceleration")
-        self._footprint_radius = read.positive("footprint_radius")
+        self.max_acceleration = read.positive("max_acceleration", maximum=ACCELERATION_MAX)
+        self.max_deceleration = read.positive("max_deceleration", maximum=ACCELERATION_MAX)
+        self._footprint_radius = read.positive("footprint_radius", maximum=LENGTH_MAX)
         read.finish()
 
     @property

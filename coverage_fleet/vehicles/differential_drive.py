@@ -22,7 +22,12 @@ from coverage_fleet.vehicles.base import (
     SteadyStateFamily,
     VehicleModel,
 )
-from coverage_fleet.vehicles.parameters import ParameterReader
+from coverage_fleet.vehicles.parameters import (
+    LENGTH_MAX,
+    SPEED_MAX,
+    YAW_RATE_MAX,
+    ParameterReader,
+)
 from coverage_fleet.vehicles.planar import wrap_angle
 
 
@@ -37,10 +42,10 @@ class DifferentialDriveModel(VehicleModel):
     def __init__(self, params: Mapping[str, Any], source: str) -> None:
         super().__init__(params, source)
         read = ParameterReader(params, source)
-        self.max_speed = read.positive("max_speed")
-        self.max_reverse_speed = read.non_negative("max_reverse_speed", 0.0)
-        self.max_yaw_rate = read.positive("max_yaw_rate")
-        self._footprint_radius = read.positive("footprint_radius")
+        self.max_speed = read.positive("max_speed", maximum=SPEED_MAX)
+        self.max_reverse_speed = read.non_negative("max_reverse_speed", 0.0, maximum=SPEED_MAX)
+        self.max_yaw_rate = read.positive("max_yaw_rate", maximum=YAW_RATE_MAX)
+        self._footprint_radius = read.positive("footprint_radius", maximum=LENGTH_MAX)
         read.finish()
 
     @property

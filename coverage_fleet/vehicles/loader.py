@@ -11,28 +11,47 @@ so the same file applies to the controller node in any robot namespace):
 `vehicle.model` is a built-in name (BUILTIN_MODELS) or an import path
 "package.module:ClassName" of a VehicleModel subclass, so a user adds a model without
 editing this package. The remaining `vehicle` keys go to the model's constructor. `mpc`
-fills MpcSettings field by field (unknown keys, wrong types and bad values are problems).
-The model is then checked (checks.check_model: shapes, steady states, position invariance).
+fills MpcSettings field by field (unknown keys, wrong types, bad values, the bounds in
+settings.py and the rules that depend on the model are problems), so the control layer may
+take a VehicleSpec's settings as valid. The model is then checked (checks.check_model:
+shapes, steady states, position invariance). File reading, YAML and the wording of every
+fault are the package's one path (coverage_fleet.inputs).
 """
 
 from __future__ import annotations
 
-import dataclasses
 import hashlib
 import importlib
-import math
 import sys
-import typing
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
-import yaml
-
-from coverage_fleet.errors import ConfigError, Problem
+from coverage_fleet.errors import ConfigError
+from coverage_fleet.inputs.fields import (
+    REQUIRED,
+    Collector,
+    FieldReader,
+    is_number,
+    required_message,
+    type_message,
+)
+from coverage_fleet.inputs.reader import decode_text, parse_yaml, read_yaml_file, require_mapping
 from coverage_fleet.vehicles.base import CommandKind, VehicleModel
 from coverage_fleet.vehicles.checks import check_model
-from coverage_fleet.vehicles.settings import MpcSettings
+from coverage_fleet.vehicles.settings import (
+    HORIZON_MAX,
+    MAX_ITER_MAX,
+    SAMPLE_TIME_MAX,
+    SAMPLE_TIME_MIN,
+    SOLVER_KEYS,
+    SOLVER_PLUGINS,
+    SUBSTEPS_MAX,
+    TERMINAL_KINDS,
+    WEIGHT_MAX,
+    MpcSettings,
+    not_stabilisable_reason,
+)
 
 BUILTIN_MODELS: dict[str, str] = {
     "differential_drive": "coverage_fleet.vehicles.differential_drive:DifferentialDriveModel",
@@ -62,57 +81,44 @@ class VehicleSpec:
 
 
 def load_vehicle_file(path: str | Path) -> VehicleSpec:
+    """Read and check a vehicle file; raises ConfigError listing every problem."""
     source = str(path)
-    try:
-        data = Path(path).read_bytes()
-    except FileNotFoundError:
-        raise ConfigError.single(source, "", "vehicle file not found") from None
-    except OSError as error:
-        raise ConfigError.single(source, "", f"cannot read vehicle file: {error}") from None
-    return load_vehicle_bytes(data, source)
+    # Duplicate keys are reported without the node name and `ros__parameters`.
+    document, data = read_yaml_file(path, strip_levels=2)
+    return vehicle_from_document(document, data, source)
 
 
 def load_vehicle_bytes(data: bytes, source: str) -> VehicleSpec:
     """Same as load_vehicle_file for content already read (source names it in problems)."""
-    parameters = _ros_parameters(data, source)
-    problems: list[Problem] = []
-    for key in sorted(set(parameters) - {"vehicle", "mpc"}):
-        problems.append(Problem(source, key, "unknown section (expected 'vehicle' and 'mpc')"))
-    vehicle = parameters.get("vehicle")
-    if not isinstance(vehicle, dict):
-        problems.append(Problem(source, "vehicle", "missing section (needs at least 'model')"))
-        vehicle = {}
-    mpc_section = parameters.get("mpc", {})
-    if not isinstance(mpc_section, dict):
-        problems.append(Problem(source, "mpc", "must be a mapping of MPC settings"))
-        mpc_section = {}
+    document = parse_yaml(decode_text(data, source), source, strip_levels=2)
+    return vehicle_from_document(document, data, source)
 
+
+def vehicle_from_document(document: Any, data: bytes, source: str) -> VehicleSpec:
+    parameters = _ros_parameters(document, source)
+    out = Collector(source)
+    sections = out.fields(parameters, "")
+    vehicle = sections.mapping("vehicle", REQUIRED)
+    mpc_section = sections.raw("mpc", {})
+    sections.check_unknown()
+    if vehicle is None:
+        vehicle = {}
     model_name = vehicle.get("model")
-    model_class = _model_class(model_name, source, problems)
+    model_class = _model_class(model_name, vehicle, out)
     model = None
     if model_class is not None:
         params = {k: v for k, v in vehicle.items() if k != "model"}
         try:
             model = model_class(params, source)
         except ConfigError as error:
-            problems.extend(error.problems)
+            out.extend(error)
         except Exception as error:  # user code: report, never a traceback
-            problems.append(
-                Problem(source, "vehicle.model", f"{model_name} could not be built: {error!r}")
-            )
-    mpc_values = _mpc_values(mpc_section, model_class, source, problems)
-    if model is not None:
-        sample_time = mpc_values.get("sample_time", MpcSettings.sample_time)
-        substeps = mpc_values.get("substeps", MpcSettings.substeps)
-        if not _is_number(sample_time) or sample_time <= 0:
-            sample_time = MpcSettings.sample_time
-        if isinstance(substeps, bool) or not isinstance(substeps, int) or substeps < 1:
-            substeps = MpcSettings.substeps
-        problems += check_model(model, float(sample_time), substeps, source)
-    if problems:
-        raise ConfigError(problems)
-    assert model is not None
-    mpc = MpcSettings(**mpc_values)
+            out.add("vehicle.model", f"{model_name} could not be built: {error!r}")
+    mpc = _read_mpc(mpc_section, model_class, out)
+    if model is not None and mpc is not None:
+        out.extend(check_model(model, mpc.sample_time, mpc.substeps, source))
+    out.raise_if_any()
+    assert model is not None and mpc is not None
     model.command_period = mpc.sample_time
     return VehicleSpec(
         model=model,
@@ -138,77 +144,56 @@ def _cache_key(data: bytes, model_class: type[VehicleModel]) -> str:
     return digest.hexdigest()
 
 
-def _ros_parameters(data: bytes, source: str) -> dict[str, Any]:
-    try:
-        document = yaml.safe_load(data)
-    except yaml.YAMLError as error:
-        mark = getattr(error, "problem_mark", None)
-        where = f" (line {mark.line + 1}, column {mark.column + 1})" if mark else ""
-        reason = getattr(error, "problem", None) or str(error)
-        raise ConfigError.single(source, "", f"not valid YAML{where}: {reason}") from None
-    layout = "expected the ROS 2 parameter file layout '/**: {ros__parameters: {...}}'"
-    if not isinstance(document, dict) or not document:
-        raise ConfigError.single(source, "", f"empty or not a mapping; {layout}")
+def _ros_parameters(document: Any, source: str) -> Any:
+    layout = "the ROS 2 parameter file layout '/**: {ros__parameters: {...}}'"
+    document = require_mapping(document, source, layout)
     if len(document) != 1:
         names = ", ".join(repr(str(k)) for k in document)
-        raise ConfigError.single(source, "", f"one node entry expected, found {names}; {layout}")
+        raise ConfigError.single(source, "", f"one node entry expected, found {names}; "
+                                 f"expected {layout}")
     node, entry = next(iter(document.items()))
     if not isinstance(entry, dict) or "ros__parameters" not in entry:
-        raise ConfigError.single(source, f"{node}", f"has no 'ros__parameters'; {layout}")
+        raise ConfigError.single(source, f"{node}", f"has no 'ros__parameters'; expected "
+                                 f"{layout}")
     parameters = entry["ros__parameters"]
     if not isinstance(parameters, dict):
-        raise ConfigError.single(source, "ros__parameters", "must be a mapping")
+        raise ConfigError.single(source, "ros__parameters", type_message("a mapping",
+                                                                         parameters))
     return parameters
 
 
-def _model_class(name: Any, source: str, problems: list[Problem]) -> type[VehicleModel] | None:
+def _model_class(
+    name: Any, vehicle: dict[str, Any], out: Collector
+) -> type[VehicleModel] | None:
     key = "vehicle.model"
-    if name is None:
-        problems.append(Problem(source, key, "is required (a built-in name or 'module:Class')"))
+    if "model" not in vehicle:
+        out.add(key, required_message("a built-in name or 'package.module:ClassName'"))
         return None
     if not isinstance(name, str):
-        problems.append(Problem(source, key, f"must be a string, got {name!r}"))
+        out.add(key, type_message("a string", name))
         return None
     target = BUILTIN_MODELS.get(name, name)
     if ":" not in target:
         builtins = ", ".join(sorted(BUILTIN_MODELS))
-        problems.append(
-            Problem(
-                source,
-                key,
-                f"unknown model {name!r}: use a built-in ({builtins}) or an import path "
-                "'package.module:ClassName'",
-            )
-        )
+        out.add(key, f"unknown model {name!r}: use a built-in ({builtins}) or an import path "
+                "'package.module:ClassName'")
         return None
     module_name, _, class_name = target.partition(":")
     try:
         module = importlib.import_module(module_name)
     except ModuleNotFoundError as error:
-        problems.append(
-            Problem(
-                source,
-                key,
-                f"cannot import module {module_name!r} ({error}); is it installed or on "
-                "PYTHONPATH?",
-            )
-        )
+        out.add(key, f"cannot import module {module_name!r} ({error}); is it installed or on "
+                "PYTHONPATH?")
         return None
     except Exception as error:
-        problems.append(Problem(source, key, f"importing {module_name!r} failed: {error!r}"))
+        out.add(key, f"importing {module_name!r} failed: {error!r}")
         return None
     cls = getattr(module, class_name, None)
     if cls is None:
-        problems.append(Problem(source, key, f"module {module_name!r} has no {class_name!r}"))
+        out.add(key, f"module {module_name!r} has no {class_name!r}")
         return None
     if not (isinstance(cls, type) and issubclass(cls, VehicleModel)):
-        problems.append(
-            Problem(
-                source,
-                key,
-                f"{target} is not a subclass of coverage_fleet.vehicles.base.VehicleModel",
-            )
-        )
+        out.add(key, f"{target} is not a subclass of coverage_fleet.vehicles.base.VehicleModel")
         return None
     return cls
 
@@ -216,123 +201,105 @@ def _model_class(name: Any, source: str, problems: list[Problem]) -> type[Vehicl
 # --- mpc section -------------------------------------------------------------------------
 
 
-def _is_number(value: Any) -> bool:
-    return isinstance(value, int | float) and not isinstance(value, bool) and math.isfinite(value)
-
-
-def _parse_typed(value: Any, hint: Any) -> tuple[Any, str | None]:
-    """(parsed value, None) or (None, what is wrong), by the dataclass field's type hint."""
-    origin = typing.get_origin(hint)
-    if hint is int:
-        if isinstance(value, int) and not isinstance(value, bool):
-            return value, None
-        return None, f"must be an integer, got {value!r}"
-    if hint is float:
-        if _is_number(value):
-            return float(value), None
-        return None, f"must be a finite number, got {value!r}"
-    if hint is str:
-        if isinstance(value, str):
-            return value, None
-        return None, f"must be a string, got {value!r}"
-    if origin is typing.Literal:
-        options = typing.get_args(hint)
-        if value in options:
-            return value, None
-        return None, f"must be one of {', '.join(repr(o) for o in options)}, got {value!r}"
-    if origin is tuple:
-        if not isinstance(value, list):
-            return None, f"must be a list of numbers, got {value!r}"
-        if not value:
-            return None, (
-                "is empty; leave the key out to use the default (a ROS 2 parameter file "
-                "cannot type an empty list)"
-            )
-        if not all(_is_number(v) for v in value):
-            return None, f"must be a list of finite numbers, got {value!r}"
-        if len({type(v) for v in value}) > 1:
-            return None, (
-                "mixes integers and reals; write every entry as a real (1.0): a ROS 2 "
-                "parameter file needs one type per list"
-            )
-        return tuple(float(v) for v in value), None
-    if origin is dict:
-        if isinstance(value, dict) and all(isinstance(k, str) for k in value):
-            return dict(value), None
-        return None, f"must be a mapping, got {value!r}"
-    return value, None
-
-
-def _mpc_values(
-    section: dict[str, Any],
-    model: type[VehicleModel] | None,
-    source: str,
-    problems: list[Problem],
-) -> dict[str, Any]:
-    """Checks that depend on the model read only its class attributes (names, whether it is
-    stabilisable), so they are reported even when the model's own parameters are bad."""
-    hints = typing.get_type_hints(MpcSettings)
-    names = [f.name for f in dataclasses.fields(MpcSettings)]
-    values: dict[str, Any] = {}
-    for key in sorted(set(section) - set(names)):
-        problems.append(
-            Problem(source, f"mpc.{key}", f"unknown MPC setting (known: {', '.join(names)})")
-        )
-    for name in names:
-        if name not in section:
-            continue
-        parsed, fault = _parse_typed(section[name], hints[name])
-        if fault is None:
-            fault = _RULES[name](parsed, model) if name in _RULES else None
-        if fault is None:
-            values[name] = parsed
-        else:
-            problems.append(Problem(source, f"mpc.{name}", fault))
-    if model is not None:
-        values.setdefault("state_weights", (DEFAULT_WEIGHT,) * len(model.state_names))
-        values.setdefault("input_weights", (DEFAULT_WEIGHT,) * len(model.input_names))
-    return values
-
-
-def _at_least(low: float) -> Any:
-    return lambda v, _m: None if v >= low else f"must be at least {low:g}, got {v:g}"
-
-
-def _positive(v: float, _m: Any) -> str | None:
-    return None if v > 0 else f"must be a positive number, got {v:g}"
-
-
-def _weights(names_attribute: str, minimum_positive: bool) -> Any:
-    def rule(v: tuple[float, ...], model: type[VehicleModel] | None) -> str | None:
+def _read_mpc(
+    section: Any, model: type[VehicleModel] | None, out: Collector
+) -> MpcSettings | None:
+    """Every MPC setting checked, including the rules that depend on the model; those read
+    only its class attributes (names, heading, whether it is stabilisable), so they are
+    reported even when the model's own parameters are bad. None when anything is wrong."""
+    before = len(out.problems)
+    read = out.fields(section, "mpc", optional=True)
+    d = MpcSettings()
+    values: dict[str, Any] = {
+        "horizon": read.integer("horizon", d.horizon, minimum=1, maximum=HORIZON_MAX),
+        "sample_time": read.number("sample_time", d.sample_time, minimum=SAMPLE_TIME_MIN,
+                                   maximum=SAMPLE_TIME_MAX),
+        "substeps": read.integer("substeps", d.substeps, minimum=1, maximum=SUBSTEPS_MAX),
+        "terminal": read.choice("terminal", TERMINAL_KINDS, d.terminal),
+        "offset_weight": read.positive("offset_weight", d.offset_weight, maximum=WEIGHT_MAX),
+        "steady_state_margin": read.number("steady_state_margin", d.steady_state_margin,
+                                           minimum=0.0, maximum=1.0, exclusive_maximum=True),
+        "terminal_shrink": read.number("terminal_shrink", d.terminal_shrink, minimum=0.0,
+                                       exclusive_minimum=True, maximum=1.0),
+        "terminal_decrease_slack": read.non_negative(
+            "terminal_decrease_slack", d.terminal_decrease_slack, maximum=10.0),
+        "solver": _read_solver(read.raw("solver", {}), out),
+    }
+    for name, names_attribute, positive in (
+        ("state_weights", "state_names", False),
+        ("input_weights", "input_names", True),  # R positive definite
+    ):
         names = getattr(model, names_attribute, None)
-        if names is not None and len(v) != len(names):
-            return f"needs {len(names)} entries ({', '.join(names)}), got {len(v)}"
-        if minimum_positive and min(v) <= 0:
-            return f"every entry must be positive (R must be positive definite), got {list(v)}"
-        if min(v) < 0:
-            return f"every entry must be zero or positive, got {list(v)}"
+        weights = _ros_list(read, name)
+        if weights is None and names is not None and not read.has(name):
+            weights = (DEFAULT_WEIGHT,) * len(names)
+        elif weights is not None:
+            weights = read.check_numbers(
+                name, list(weights), length=None if names is None else len(names),
+                hint=", ".join(names or ()), minimum=0.0, exclusive_minimum=positive,
+                maximum=WEIGHT_MAX)
+        values[name] = weights or ()
+    read.check_unknown()
+    if model is not None:
+        _model_rules(values, model, out)
+    if len(out.problems) > before:
         return None
-
-    return rule
-
-
-def _terminal(v: str, model: type[VehicleModel] | None) -> str | None:
-    if v == "ellipsoid" and model is not None and not model.stabilisable_at_rest:
-        return (
-            f"'ellipsoid' needs a linearisation that is stabilisable at rest, which "
-            f"{model.__name__} is not; use 'equality'"
-        )
-    return None
+    return MpcSettings(**values)
 
 
-_RULES: dict[str, Any] = {
-    "horizon": _at_least(1),
-    "sample_time": _positive,
-    "substeps": _at_least(1),
-    "terminal": _terminal,
-    "state_weights": _weights("state_names", minimum_positive=False),
-    "input_weights": _weights("input_names", minimum_positive=True),
-    "offset_weight": _positive,
-    "steady_state_margin": lambda v, _m: None if 0 <= v < 1 else f"must be in [0, 1), got {v:g}",
-    "terminal_shrink": lambda v, _m: None if 0 < v <= 1 else f"must be in (0, 1], got {v:g}",
-}
+def _ros_list(read: FieldReader, name: str) -> tuple[Any, ...] | None:
+    """A list as a ROS 2 parameter file can type it: not empty, one type throughout."""
+    value = read.raw(name)
+    if value is None:
+        return None
+    if isinstance(value, list) and not value:
+        read.problem(name, "is empty; leave the key out to use the default (a ROS 2 parameter "
+                     "file cannot type an empty list)")
+        return None
+    if isinstance(value, list) and len({type(v) for v in value}) > 1 and all(
+            is_number(v) for v in value):
+        read.problem(name, "mixes integers and reals; write every entry as a real (1.0): a "
+                     "ROS 2 parameter file needs one type per list")
+        return None
+    if not isinstance(value, list):
+        read.problem(name, type_message("a list of numbers", value))
+        return None
+    return tuple(value)
+
+
+def _read_solver(value: Any, out: Collector) -> dict[str, Any]:
+    read = out.fields(value, "mpc.solver", optional=True)
+    solver: dict[str, Any] = {}
+    if read.has("plugin"):
+        solver["plugin"] = read.choice("plugin", SOLVER_PLUGINS)
+    if read.has("max_iter"):
+        solver["max_iter"] = read.integer("max_iter", minimum=1, maximum=MAX_ITER_MAX)
+    if read.has("compile"):
+        solver["compile"] = read.boolean("compile")
+    if read.has("options"):
+        options = read.mapping("options")
+        if options is not None:
+            for key in options:
+                if not isinstance(key, str):
+                    read.problem("options", f"option names must be strings, got {key!r}")
+            solver["options"] = options
+    read.check_unknown(SOLVER_KEYS)
+    return solver
+
+
+def _model_rules(values: dict[str, Any], model: type[VehicleModel], out: Collector) -> None:
+    if values["terminal"] != "ellipsoid":
+        return
+    if not model.stabilisable_at_rest:
+        out.add("mpc.terminal", f"{not_stabilisable_reason(model.kind)}: use 'equality'")
+        return
+    weights = values["state_weights"]
+    if model.angle_indices and weights:
+        i, j = model.position_indices
+        if weights[i] != weights[j]:
+            out.add(
+                "mpc.state_weights",
+                "the two position weights must be equal with an ellipsoid terminal set on a "
+                "model with a heading (the set is computed once, at heading 0, and rotated; a "
+                "cost that prefers one map axis would not rotate with it)",
+            )

@@ -26,8 +26,16 @@ from coverage_fleet.vehicles.base import (
     VehicleModel,
 )
 from coverage_fleet.vehicles.braking import stopping_force
-from coverage_fleet.vehicles.parameters import ParameterReader
+from coverage_fleet.vehicles.parameters import (
+    ACCELERATION_MAX,
+    LENGTH_MAX,
+    SPEED_MAX,
+    ParameterReader,
+)
 from coverage_fleet.vehicles.planar import disc_polygon, rotate, scale_into_polygon
+
+#: 1/s: linear drag per unit mass (a time constant of 10 ms).
+DRAG_MAX = 100.0
 
 
 class MultirotorModel(VehicleModel):
@@ -40,12 +48,12 @@ class MultirotorModel(VehicleModel):
     def __init__(self, params: Mapping[str, Any], source: str) -> None:
         super().__init__(params, source)
         read = ParameterReader(params, source)
-        self.max_speed = read.positive("max_speed")
-        self.max_acceleration = read.positive("max_acceleration")
-        self.drag = read.non_negative("drag_coefficient", 0.0)
-        self.polygon_sides = read.integer("polygon_sides", 8, minimum=4)
+        self.max_speed = read.positive("max_speed", maximum=SPEED_MAX)
+        self.max_acceleration = read.positive("max_acceleration", maximum=ACCELERATION_MAX)
+        self.drag = read.non_negative("drag_coefficient", 0.0, maximum=DRAG_MAX)
+        self.polygon_sides = read.integer("polygon_sides", 8, minimum=4, maximum=64)
         self.polygon_fit = read.choice("polygon_fit", ("inner", "outer"), "inner")
-        self._footprint_radius = read.positive("footprint_radius")
+        self._footprint_radius = read.positive("footprint_radius", maximum=LENGTH_MAX)
         read.finish()
         self._speed_H, self._speed_h = disc_polygon(
             self.max_speed, self.polygon_sides, self.polygon_fit

@@ -1,7 +1,15 @@
 """MPC settings read from the `mpc` section of a vehicle parameter file.
 
-The loader fills every field of MpcSettings from the file by name, so adding a field here
-(with a default) is all it takes to add a setting; the loader rejects unknown keys.
+The vehicle-file loader checks every field (vehicles/loader.py, _read_mpc: kinds, ranges,
+the bounds below, the solver vocabulary, the rules that depend on the model), so the control
+layer can take an MpcSettings from a VehicleSpec as valid. Adding a field: add it here with a
+default and read it in _read_mpc; the loader rejects unknown keys.
+
+Upper bounds (values beyond them hang or overflow the solver, and no robot needs them):
+- horizon <= 500 steps: tracking MPC on mobile robots uses tens of steps (common practice);
+- substeps <= 100 RK4 steps per sample; sample_time in [0.001, 10] s (1 kHz to 0.1 Hz);
+- weights <= 1e6 (costs are compared with O(1) stage costs; larger only scales badly);
+- solver.max_iter <= 10000.
 """
 
 from __future__ import annotations
@@ -10,6 +18,27 @@ from dataclasses import dataclass, field
 from typing import Any, Literal
 
 TerminalKind = Literal["equality", "ellipsoid"]
+TERMINAL_KINDS: tuple[str, ...] = ("equality", "ellipsoid")
+
+HORIZON_MAX = 500
+SUBSTEPS_MAX = 100
+SAMPLE_TIME_MIN = 0.001
+SAMPLE_TIME_MAX = 10.0
+WEIGHT_MAX = 1e6
+MAX_ITER_MAX = 10_000
+
+#: The `mpc.solver` vocabulary (control/mpc.py holds each plugin's casadi options and must
+#: offer exactly these plugins; test_vehicles_loader checks that they agree).
+SOLVER_PLUGINS: tuple[str, ...] = ("fatrop", "ipopt")
+SOLVER_KEYS: tuple[str, ...] = ("plugin", "max_iter", "options", "compile")
+
+
+def not_stabilisable_reason(kind: str) -> str:
+    """The one wording of "this model has no terminal ellipsoid"."""
+    return (
+        f"the {kind} model is not stabilisable at rest (its linearisation cannot move in "
+        f"every direction, e.g. sideways), so no terminal ellipsoid exists"
+    )
 
 
 @dataclass(frozen=True)

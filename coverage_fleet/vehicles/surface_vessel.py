@@ -27,7 +27,16 @@ from coverage_fleet.vehicles.base import (
     VehicleModel,
 )
 from coverage_fleet.vehicles.braking import stopping_force
-from coverage_fleet.vehicles.parameters import ParameterReader
+from coverage_fleet.vehicles.parameters import (
+    DAMPING_MAX,
+    FORCE_MAX,
+    INERTIA_MAX,
+    LENGTH_MAX,
+    MASS_MAX,
+    SPEED_MAX,
+    YAW_RATE_MAX,
+    ParameterReader,
+)
 from coverage_fleet.vehicles.planar import wrap_angle
 
 
@@ -43,27 +52,31 @@ class SurfaceVesselModel(VehicleModel):
         super().__init__(params, source)
         read = ParameterReader(params, source)
         self.mass = np.array(
-            [read.positive("mass_surge"), read.positive("mass_sway"), read.positive("inertia_yaw")]
+            [
+                read.positive("mass_surge", maximum=MASS_MAX),
+                read.positive("mass_sway", maximum=MASS_MAX),
+                read.positive("inertia_yaw", maximum=INERTIA_MAX),
+            ]
         )
         self.damping = np.array(
             [
-                read.non_negative("damping_surge"),
-                read.non_negative("damping_sway"),
-                read.non_negative("damping_yaw"),
+                read.non_negative("damping_surge", maximum=DAMPING_MAX),
+                read.non_negative("damping_sway", maximum=DAMPING_MAX),
+                read.non_negative("damping_yaw", maximum=DAMPING_MAX),
             ]
         )
         self.max_force = np.array(
             [
-                read.positive("max_surge_force"),
-                read.positive("max_sway_force"),
-                read.positive("max_yaw_moment"),
+                read.positive("max_surge_force", maximum=FORCE_MAX),
+                read.positive("max_sway_force", maximum=FORCE_MAX),
+                read.positive("max_yaw_moment", maximum=FORCE_MAX),
             ]
         )
-        self.max_surge_speed = read.positive("max_surge_speed")
-        self.max_reverse_speed = read.non_negative("max_reverse_speed", 0.0)
-        self.max_sway_speed = read.positive("max_sway_speed")
-        self.max_yaw_rate = read.positive("max_yaw_rate")
-        self._footprint_radius = read.positive("footprint_radius")
+        self.max_surge_speed = read.positive("max_surge_speed", maximum=SPEED_MAX)
+        self.max_reverse_speed = read.non_negative("max_reverse_speed", 0.0, maximum=SPEED_MAX)
+        self.max_sway_speed = read.positive("max_sway_speed", maximum=SPEED_MAX)
+        self.max_yaw_rate = read.positive("max_yaw_rate", maximum=YAW_RATE_MAX)
+        self._footprint_radius = read.positive("footprint_radius", maximum=LENGTH_MAX)
         read.finish()
 
     @property
