@@ -57,4 +57,5 @@ def test_batch_prints_a_table_and_writes_a_summary(
 
 def test_batch_rejects_bad_arguments(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
     status = main(["batch", str(MISSIONS / "solar_row_quick_check.yaml"), "--seeds", "0"])
-    assert status == 2 and "--seeds: must be >= 1" in capsys.readouterr().err
+    err = capsys.readouterr().err
+    assert status == 2 and "command line: --seeds: must be at least 1, got 0" in err

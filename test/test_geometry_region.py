@@ -47,7 +47,7 @@ def test_collinear_vertex_on_an_edge_is_dropped() -> None:
     ("vertices", "fragment"),
     [
         ([[0, 0], [1, 0]], "at least 3 vertices"),
-        ([[0, 0], [1, 0], [float("nan"), 1]], "region.vertices[2]: coordinates must be finite"),
+        ([[0, 0], [1, 0], [float("nan"), 1]], "region.vertices[2][0]: must be finite, got nan"),
         ([[0, 0], [1, 0], [float("inf"), 1]], "finite"),
         ([[0, 0], [1, 0], [2, 0]], "zero area"),
         ([[0, 0], [1, 1], [1, 0], [0, 1]], "intersects itself"),
@@ -56,7 +56,9 @@ def test_collinear_vertex_on_an_edge_is_dropped() -> None:
         ([[0, 0], [1, 0], [1, 0], [0, 1]], "region.vertices[2]: repeats vertex 1"),
         ([[0, 0], [1, 0], [0, 1], [0, 0]], "region.vertices[3]: repeats vertex 0: list each"),
         ("square", "list of [x, y] pairs"),
-        ([[0, 0, 0], [1, 0, 0], [0, 1, 0]], "shape"),
+        ([[0, 0, 0], [1, 0, 0], [0, 1, 0]], "list of [x, y] pairs"),
+        # Coordinates beyond 1e7 m are typing mistakes (bound documented in region.py).
+        ([[0, 0], [1e308, 0], [0, 1]], "region.vertices[1][0]: must be at most 1e+07"),
         ([[1, 1], [1, 1], [1, 1]], "coincide"),
     ],
 )

@@ -28,6 +28,7 @@ import numpy as np
 import pytest
 import yaml
 
+from coverage_fleet.cli.main import main
 from coverage_fleet.errors import ConfigError
 from coverage_fleet.fleet.mission import load_mission
 from coverage_fleet.vehicles.loader import load_vehicle_file
@@ -369,3 +370,31 @@ def test_bounds_accept_their_own_limits(tmp_path: Path) -> None:
                           "resolution": 1.0, "fill_value": 0.5, "scale": 1e12}
     mission["simulation"]["plant_substeps"] = 1000
     assert load_mission(write_files(tmp_path, mission=mission)).simulation.plant_substeps == 1000
+
+
+@pytest.mark.parametrize(
+    ("args", "key", "kind"),
+    [
+        (["simulate", "{mission}", "--duration", "inf"], "--duration", "not finite"),
+        (["simulate", "{mission}", "--duration", "-1"], "--duration", "below the range"),
+        (["simulate", "{mission}", "--seed", "-3"], "--seed", "below the range"),
+        (["batch", "{mission}", "--seeds", "2", "--first-seed", "-5"], "--first-seed",
+         "below the range"),
+        (["batch", "{mission}", "--seeds", "0"], "--seeds", "below the range"),
+    ],
+)
+def test_command_line_options_read_the_same(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str], args: list[str], key: str, kind: str
+) -> None:
+    """Options of the offline commands are checked with the same wording (and the same
+    bounds as the mission keys they override), together with the mission's problems and
+    before any run."""
+    mission = copy.deepcopy(MISSION)
+    set_key(mission, "gate.noise_tolerance", "small")
+    path = write_files(tmp_path, mission=mission)
+    status = main([a.format(mission=path) for a in args])
+    err = capsys.readouterr().err
+    assert status == 2 and "Traceback" not in err
+    line = next(ln.strip() for ln in err.splitlines() if f"command line: {key}: " in ln)
+    assert re.fullmatch(WORDING[kind], line.split(f"command line: {key}: ", 1)[1]), line
+    assert f"{path}: gate.noise_tolerance: must be a number" in err

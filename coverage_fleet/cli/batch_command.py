@@ -13,7 +13,8 @@ from typing import Any
 
 from coverage_fleet.errors import ConfigError
 from coverage_fleet.fleet.batch import run_batch, summarise
-from coverage_fleet.fleet.mission import load_mission
+from coverage_fleet.fleet.mission import DURATION_MAX, SEED_MAX, load_mission_with
+from coverage_fleet.inputs.fields import Collector, integer_fault, number_fault
 from coverage_fleet.interrupts import interrupts_at_safe_points
 from coverage_fleet.report.metrics import trial_metrics
 
@@ -41,6 +42,10 @@ SUMMARY_KEYS = (
     "smallest_clearance_m",
     "wall_time_s",
 )
+
+
+#: Runs in one batch: a day of runs of a few seconds each; more is a typing mistake.
+BATCH_SEEDS_MAX = 100_000
 
 
 def table_header() -> str:
@@ -74,11 +79,14 @@ def register(subparsers: argparse._SubParsersAction) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    mission = load_mission(args.mission)
-    if args.seeds < 1:
-        raise ConfigError.single("command line", "--seeds", f"must be >= 1, got {args.seeds}")
-    if args.duration is not None and not args.duration > 0:
-        raise ConfigError.single("command line", "--duration", f"must be > 0, got {args.duration}")
+    options = Collector("command line")
+    options.check("--seeds", integer_fault(args.seeds, 1, BATCH_SEEDS_MAX))
+    options.check("--first-seed", integer_fault(args.first_seed, 0,
+                                                SEED_MAX - max(args.seeds, 1) + 1))
+    if args.duration is not None:
+        options.check("--duration", number_fault(
+            args.duration, minimum=0.0, exclusive_minimum=True, maximum=DURATION_MAX))
+    mission = load_mission_with(args.mission, options)
     stamp = datetime.now(UTC).strftime("%Y%m%dT%H%M%SZ")
     out = args.json or Path("trials") / f"{mission.name}-batch-{stamp}.json"
     if out.exists():

@@ -11,9 +11,16 @@ from pathlib import Path
 from typing import Any, TextIO
 
 from coverage_fleet.errors import ConfigError
-from coverage_fleet.fleet.mission import Mission, load_mission, mission_as_run
+from coverage_fleet.fleet.mission import (
+    DURATION_MAX,
+    SEED_MAX,
+    Mission,
+    load_mission_with,
+    mission_as_run,
+)
 from coverage_fleet.fleet.simulation import StepInfo, simulate_mission
 from coverage_fleet.fleet.trial import TrialLog, write_trial
+from coverage_fleet.inputs.fields import Collector, integer_fault, number_fault
 from coverage_fleet.interrupts import interrupts_at_safe_points
 from coverage_fleet.report import write_report
 
@@ -164,11 +171,13 @@ def register(subparsers: argparse._SubParsersAction) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    mission = load_mission(args.mission)
-    if args.duration is not None and not args.duration > 0:
-        raise ConfigError.single("command line", "--duration", f"must be > 0, got {args.duration}")
-    if args.seed is not None and args.seed < 0:
-        raise ConfigError.single("command line", "--seed", f"must be >= 0, got {args.seed}")
+    options = Collector("command line")
+    if args.duration is not None:
+        options.check("--duration", number_fault(
+            args.duration, minimum=0.0, exclusive_minimum=True, maximum=DURATION_MAX))
+    if args.seed is not None:
+        options.check("--seed", integer_fault(args.seed, 0, SEED_MAX))
+    mission = load_mission_with(args.mission, options)
     seed = mission.simulation.seed if args.seed is None else args.seed
     out = args.out or default_trial_directory(mission, seed)
     real = [entry.name for entry in mission.roster if not entry.simulated]

@@ -211,6 +211,17 @@ def load_mission(path: str | Path) -> Mission:
     return mission_from_mapping(raw, path)
 
 
+def load_mission_with(path: str | Path, options: Collector) -> Mission:
+    """load_mission, raising the problems already in `options` (a command line's) together
+    with the mission's, so every problem is reported at once."""
+    try:
+        mission = load_mission(path)
+    except ConfigError as error:
+        options.extend(error)
+    options.raise_if_any()
+    return mission
+
+
 def mission_from_mapping(raw: Any, path: Path) -> Mission:
     """Validate an already parsed mission (`path` names it and anchors relative paths)."""
     source = str(path)

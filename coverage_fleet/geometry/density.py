@@ -30,7 +30,7 @@ import numpy as np
 from coverage_fleet.errors import ConfigError, Problem
 from coverage_fleet.geometry.polygon import clip_halfplane
 from coverage_fleet.geometry.quadrature import fan_quadrature
-from coverage_fleet.geometry.region import ConvexRegion
+from coverage_fleet.geometry.region import COORDINATE_MAX, ConvexRegion
 from coverage_fleet.inputs.fields import (
     Collector,
     FieldReader,
@@ -562,7 +562,6 @@ def raster_values(data: bytes, suffix: str, source: str) -> np.ndarray:
 #: coordinates within 1e7 m of the map origin (a continent), variances from 1e-6 m^2
 #: (a 1 mm spread) to 1e12 m^2, raster cells from 1 mm to 10 km.
 DENSITY_VALUE_MAX = 1e12
-COORDINATE_MAX = 1e7
 VARIANCE_MIN = 1e-6
 VARIANCE_MAX = 1e12
 RESOLUTION_MIN = 1e-3

@@ -15,6 +15,11 @@ from typing import Any
 import numpy as np
 
 from coverage_fleet.errors import ConfigError, Problem
+from coverage_fleet.inputs.fields import number_fault, type_message
+
+#: Coordinates (m) within this distance of the map origin: a continent; beyond it a value is a
+#: typing mistake, and squares of coordinates (moments, costs) stay far from overflow.
+COORDINATE_MAX = 1e7
 
 #: Relative tolerance (times the region's extent) for collinearity and containment tests.
 RELATIVE_TOLERANCE = 1e-9
@@ -86,22 +91,23 @@ class ConvexRegion:
         and `key` for: not a list of (x, y) pairs, non-finite values, fewer than 3 distinct
         vertices, repeated vertices, self-intersection, non-convexity, zero area.
         """
-        try:
-            array = np.asarray(vertices, dtype=float)
-        except (TypeError, ValueError):
+        rows = vertices.tolist() if isinstance(vertices, np.ndarray) else vertices
+        if isinstance(rows, list | tuple):
+            rows = [row.tolist() if isinstance(row, np.ndarray) else row for row in rows]
+        if not isinstance(rows, list | tuple) or not all(
+                isinstance(row, list | tuple) and len(row) == 2 for row in rows):
             raise ConfigError.single(
-                source, key, "must be a list of [x, y] pairs of numbers (metres)"
-            ) from None
-        if array.ndim != 2 or array.shape[1] != 2:
-            raise ConfigError.single(
-                source, key, f"must be a list of [x, y] pairs, got shape {array.shape}"
+                source, key, type_message("a list of [x, y] pairs of numbers (metres)", vertices)
             )
         problems: list[Problem] = []
-        bad_rows = np.flatnonzero(~np.all(np.isfinite(array), axis=1))
-        for row in bad_rows:
-            problems.append(Problem(source, f"{key}[{row}]", "coordinates must be finite"))
+        for row, point in enumerate(rows):
+            for column, value in enumerate(point):
+                fault = number_fault(value, minimum=-COORDINATE_MAX, maximum=COORDINATE_MAX)
+                if fault:
+                    problems.append(Problem(source, f"{key}[{row}][{column}]", fault))
         if problems:
             raise ConfigError(problems)
+        array = np.asarray(rows, dtype=float).reshape(-1, 2)
         if len(array) < 3:
             raise ConfigError.single(
                 source, key, f"a region needs at least 3 vertices, got {len(array)}"

@@ -45,6 +45,7 @@ geometry/density.py).
 from __future__ import annotations
 
 import math
+import numbers
 from collections.abc import Iterable, Mapping, Sequence
 from typing import Any
 
@@ -135,8 +136,8 @@ def duplicate_key_message(first_line: int, second_line: int) -> str:
 
 
 def is_number(value: Any) -> bool:
-    """int or float, not bool (YAML true is not 1 here)."""
-    return isinstance(value, int | float) and not isinstance(value, bool)
+    """A real number (int, float, numpy's), not bool (YAML true is not 1 here)."""
+    return isinstance(value, numbers.Real) and not isinstance(value, bool)
 
 
 def range_fault(
@@ -165,7 +166,7 @@ def number_fault(value: Any, **bounds: Any) -> str | None:
 
 def integer_fault(value: Any, minimum: int | None = None, maximum: int | None = None
                   ) -> str | None:
-    if isinstance(value, bool) or not isinstance(value, int):
+    if isinstance(value, bool) or not isinstance(value, numbers.Integral):
         return type_message("an integer", value)
     return range_fault(value, minimum, maximum)
 
@@ -182,6 +183,11 @@ class Collector:
 
     def add(self, key: str, message: str) -> None:
         self.problems.append(Problem(self.source, key, message))
+
+    def check(self, key: str, fault: str | None) -> None:
+        """Record `fault` (from number_fault, integer_fault, ...) if there is one."""
+        if fault:
+            self.add(key, fault)
 
     def extend(self, found: ConfigError | Iterable[Problem]) -> None:
         self.problems.extend(found.problems if isinstance(found, ConfigError) else found)
@@ -324,7 +330,7 @@ class FieldReader:
         if fault:
             self.problem(name, fault)
             return 0
-        return value
+        return int(value)
 
     def boolean(self, name: str, default: Any = REQUIRED) -> bool:
         present, value = self._get(name, default)
