@@ -398,3 +398,14 @@ def test_command_line_options_read_the_same(
     line = next(ln.strip() for ln in err.splitlines() if f"command line: {key}: " in ln)
     assert re.fullmatch(WORDING[kind], line.split(f"command line: {key}: ", 1)[1]), line
     assert f"{path}: gate.noise_tolerance: must be a number" in err
+
+
+def test_unknown_key_lists_every_allowed_key_even_when_some_are_missing(tmp_path: Path) -> None:
+    mission = copy.deepcopy(MISSION)
+    del mission["region"]
+    mission["regoin"] = {}
+    with pytest.raises(ConfigError) as caught:
+        load_mission(write_files(tmp_path, mission=mission))
+    [unknown] = [p.message for p in caught.value.problems if p.key == "regoin"]
+    assert unknown == ("unknown key (allowed: density, description, gate, name, region, "
+                       "roster, simulation)")

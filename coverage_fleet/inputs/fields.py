@@ -247,6 +247,8 @@ class FieldReader:
             self._collector.problems.append(found)
 
     def has(self, name: str) -> bool:
+        """Whether the key is given (asking makes it a known key)."""
+        self._used.add(name)
         return name in self._params
 
     def raw(self, name: str, default: Any = None) -> Any:
