@@ -65,7 +65,8 @@ MISSION: dict[str, Any] = {
         {"name": "rover_a", "vehicle": "rover.yaml", "initial_pose": [1.0, 1.0, 0.0]},
         {"name": "drone_b", "vehicle": "multirotor", "initial_pose": [6.0, 4.0, 0.0]},
     ],
-    "gate": {"noise_tolerance": 0.02, "progress_tolerance": 0.05, "settle_distance": 0.1},
+    "gate": {"noise_tolerance": 0.02, "progress_tolerance": 0.05},
+    "settle": {"distance": 0.1},
     "simulation": {"duration": 5.0, "seed": 1, "plant_substeps": 10},
 }
 VEHICLE: dict[str, Any] = {
@@ -235,6 +236,7 @@ CASES = [
          mission_set("simulation.duration", -5.0)),
     Case("below the range", "mission", "gate.progress_tolerance",
          mission_set("gate.progress_tolerance", 0.0)),
+    Case("below the range", "mission", "settle.speed", mission_set("settle.speed", -1.0)),
     Case("below the range", "vehicle", "vehicle.max_speed", vehicle_set("vehicle.max_speed", -1)),
     Case("below the range", "vehicle", "mpc.horizon", vehicle_set("mpc.horizon", 0)),
     Case("below the range", "vehicle", "mpc.input_weights[0]",
@@ -269,9 +271,9 @@ CASES = [
     Case("not a mapping", "vehicle", "mpc.solver", vehicle_set("mpc.solver", [1, 2])),
     Case("not a mapping", "density", "density", mission_set("density", "uniform")),
     # duplicate keys
-    Case("duplicate key", "mission", "gate.settle_distance", text_files(
-        mission_text=GOOD_MISSION_TEXT.replace("  settle_distance: 0.1",
-                                               "  settle_distance: 0.1\n  settle_distance: 9"))),
+    Case("duplicate key", "mission", "settle.distance", text_files(
+        mission_text=GOOD_MISSION_TEXT.replace("  distance: 0.1",
+                                               "  distance: 0.1\n  distance: 9"))),
     Case("duplicate key", "vehicle", "vehicle.max_speed", text_files(
         vehicle_text=GOOD_VEHICLE_TEXT.replace("      max_speed: 1.0",
                                                "      max_speed: 1.0\n      max_speed: 5.0"),
@@ -408,4 +410,13 @@ def test_unknown_key_lists_every_allowed_key_even_when_some_are_missing(tmp_path
         load_mission(write_files(tmp_path, mission=mission))
     [unknown] = [p.message for p in caught.value.problems if p.key == "regoin"]
     assert unknown == ("unknown key (allowed: density, description, gate, name, region, "
-                       "roster, simulation)")
+                       "roster, settle, simulation)")
+
+
+def test_a_retired_key_points_to_its_replacement(tmp_path: Path) -> None:
+    mission = copy.deepcopy(MISSION)
+    mission["gate"]["settle_distance"] = 0.1
+    with pytest.raises(ConfigError) as caught:
+        load_mission(write_files(tmp_path, mission=mission))
+    [moved] = [p.message for p in caught.value.problems if p.key == "gate.settle_distance"]
+    assert moved.startswith("moved to settle.distance")
