@@ -6,16 +6,11 @@ ament_python packages, see setup.cfg)."""
 from __future__ import annotations
 
 import ast
-import os
-import shutil
 import subprocess
-import sys
 from pathlib import Path
 
 import pytest
-
-REPO = Path(__file__).resolve().parents[1]
-COLCON = Path(sys.executable).with_name("colcon")
+from support_colcon import REPO, colcon_install
 
 
 def console_script_names() -> list[str]:
@@ -37,28 +32,7 @@ def tracked_files(folder: str) -> list[Path]:
 
 @pytest.fixture(scope="module")
 def install_dir(tmp_path_factory: pytest.TempPathFactory) -> Path:
-    if not COLCON.exists():
-        pytest.skip("colcon not installed (scripts/setup_env.sh --test installs it)")
-    workspace = tmp_path_factory.mktemp("colcon_ws")
-    source = workspace / "src" / "coverage_fleet"
-    shutil.copytree(
-        REPO,
-        source,
-        ignore=shutil.ignore_patterns(
-            ".git", ".venv", "build", "install", "log", "trials", "*.egg-info", "__pycache__"
-        ),
-    )
-    env = dict(os.environ, PATH=f"{COLCON.parent}{os.pathsep}{os.environ['PATH']}")
-    result = subprocess.run(
-        [str(COLCON), "build", "--base-paths", "src", "--event-handlers", "console_direct-"],
-        cwd=workspace,
-        env=env,
-        capture_output=True,
-        text=True,
-        timeout=600,
-    )
-    assert result.returncode == 0, result.stdout[-3000:] + result.stderr[-3000:]
-    return workspace / "install" / "coverage_fleet"
+    return colcon_install(tmp_path_factory.mktemp("colcon_ws"))
 
 
 def test_ament_index_marker(install_dir: Path) -> None:

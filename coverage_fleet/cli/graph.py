@@ -9,7 +9,7 @@ install), the node's name, namespace and parameters.
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import TYPE_CHECKING, Literal
 
@@ -35,6 +35,8 @@ class NodeSpec:
     name: str | None
     namespace: str = ""
     parameters: dict[str, ParameterValue] = field(default_factory=dict)
+    #: The run is over when this process ends (the simulator): the launch shuts down the rest.
+    ends_run: bool = False
 
     @property
     def label(self) -> str:
@@ -91,7 +93,7 @@ def simulator_node_spec(
     """The headless simulator (the clock source: it never uses sim time itself). In
     lockstep it starts once each robot's odom has its controller and the partition node
     (and the recorder, when `recorded`) as subscribers, so nobody misses the first steps."""
-    return _spec(
+    spec = _spec(
         "simulator", "coverage_fleet_simulator", "simulator",
         mission_file=str(Path(mission_file).resolve()),
         mode=mode,
@@ -100,6 +102,7 @@ def simulator_node_spec(
         odom_subscribers=3 if recorded else 2,
         use_sim_time=False,
     )
+    return replace(spec, ends_run=True)
 
 
 def fleet_nodes(
@@ -203,12 +206,17 @@ def ros_arguments(spec: NodeSpec) -> list[str]:
 
 
 def launch_actions(specs: list[NodeSpec]) -> list:
-    """launch_ros Node actions for specs (for the launch files; imports launch_ros, which
-    only ROS 2 installs have, when called)."""
+    """launch_ros Node actions for specs (for the launch files; imports launch and
+    launch_ros, which only ROS 2 installs have, when called). A process that ends the run
+    (the simulator) shuts the launch down when it exits, as the package's launcher does."""
+    from launch.actions import EmitEvent, RegisterEventHandler
+    from launch.event_handlers import OnProcessExit
+    from launch.events import Shutdown
     from launch_ros.actions import Node
 
-    return [
-        Node(
+    actions: list = []
+    for spec in specs:
+        node = Node(
             package="coverage_fleet",
             executable=spec.executable,
             name=spec.name,
@@ -217,5 +225,14 @@ def launch_actions(specs: list[NodeSpec]) -> list:
             output="screen",
             emulate_tty=True,
         )
-        for spec in specs
-    ]
+        actions.append(node)
+        if spec.ends_run:
+            actions.append(
+                RegisterEventHandler(
+                    OnProcessExit(
+                        target_action=node,
+                        on_exit=[EmitEvent(event=Shutdown(reason=f"{spec.role} finished"))],
+                    )
+                )
+            )
+    return actions

@@ -4,15 +4,13 @@ separate processes (coverage_fleet_partition, coverage_fleet_gate)."""
 
 from __future__ import annotations
 
-import sys
-
 from .gate_node import GateNode
 from .partition_node import PartitionNode
-from .runtime import run_nodes
+from .runtime import main_for
 
 
 def main() -> None:
-    sys.exit(run_nodes([PartitionNode, GateNode], "coverage_fleet_base_station"))
+    main_for(PartitionNode, GateNode, program="coverage_fleet_base_station")
 
 
 if __name__ == "__main__":

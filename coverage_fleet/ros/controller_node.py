@@ -217,7 +217,7 @@ class ControllerNode(Node):
 
 
 def main() -> None:
-    main_for(ControllerNode, "coverage_fleet_controller")
+    main_for(ControllerNode, program="coverage_fleet_controller")
 
 
 if __name__ == "__main__":

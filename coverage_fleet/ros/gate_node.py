@@ -235,7 +235,7 @@ class GateNode(Node):
 
 
 def main() -> None:
-    main_for(GateNode, "coverage_fleet_gate")
+    main_for(GateNode, program="coverage_fleet_gate")
 
 
 if __name__ == "__main__":

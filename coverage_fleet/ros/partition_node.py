@@ -162,7 +162,7 @@ class PartitionNode(Node):
 
 
 def main() -> None:
-    main_for(PartitionNode, "coverage_fleet_partition")
+    main_for(PartitionNode, program="coverage_fleet_partition")
 
 
 if __name__ == "__main__":

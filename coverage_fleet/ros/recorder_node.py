@@ -14,7 +14,6 @@ have controller_ran false.
 
 from __future__ import annotations
 
-import sys
 import threading
 from pathlib import Path
 from types import SimpleNamespace
@@ -42,7 +41,7 @@ from .conversions import (
     target_from_msg,
 )
 from .parameters import declare
-from .runtime import run_nodes
+from .runtime import main_for
 
 
 class RecorderNode(Node):
@@ -276,7 +275,7 @@ class RecorderNode(Node):
 
 
 def main() -> None:
-    sys.exit(run_nodes([RecorderNode], "coverage_fleet_recorder"))
+    main_for(RecorderNode, program="coverage_fleet_recorder")
 
 
 if __name__ == "__main__":

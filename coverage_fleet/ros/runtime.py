@@ -1,17 +1,30 @@
 """Running a node process: start-up errors reported as problems (exit 2), clean shutdown on
-SIGINT and SIGTERM (rclpy installs handlers for both), a node's own exit status kept."""
+SIGINT and SIGTERM, a node's own exit status kept.
+
+Signals are handled here, not by rclpy's own handler: rclpy installs a C-level handler that
+Python cannot save and restore, so any code that swaps the SIGINT handler for a moment (the
+MPC holds Ctrl-C until a solve returns) silently removed it, and a node idle in a wait (for
+example after the simulated clock stopped) then ignored SIGINT until the launch service
+escalated to SIGTERM. Instead the interpreter's wakeup file descriptor (written by the
+C-level trampoline for every handled signal, whichever Python handler is current) is read
+by a small thread that wakes the executor through a guard condition (StopSignals).
+"""
 
 from __future__ import annotations
 
 import faulthandler
+import os
 import signal
 import sys
+import threading
 from collections.abc import Callable, Sequence
+from typing import NoReturn
 
 import rclpy
 from rclpy.exceptions import InvalidParameterTypeException, InvalidParameterValueException
 from rclpy.executors import ExternalShutdownException, SingleThreadedExecutor
 from rclpy.node import Node
+from rclpy.signals import SignalHandlerOptions
 
 from coverage_fleet.errors import ConfigError
 
@@ -27,6 +40,56 @@ class RunFinished(Exception):  # noqa: N818 - a normal end, not an error
         self.status = status
 
 
+STOP_SIGNALS = (signal.SIGINT, signal.SIGTERM)
+
+
+class StopRequested(Exception):  # noqa: N818 - a normal end, not an error
+    """SIGINT or SIGTERM arrived: raised in the executor's thread to end the spin."""
+
+
+class StopSignals:
+    """SIGINT and SIGTERM end the spin through a guard condition (see the module docstring).
+
+    A thread reads the interpreter's wakeup descriptor and triggers the guard; its callback
+    raises StopRequested in the executor's thread, so the nodes are destroyed by the thread
+    that owns them. A signal that arrives before the nodes exist (their set-up can take
+    seconds) is kept and acted on as soon as the guard is attached."""
+
+    def __init__(self) -> None:
+        self._lock = threading.Lock()
+        self._received = False
+        self._guard = None
+        read_end, write_end = os.pipe()
+        os.set_blocking(write_end, False)
+        signal.set_wakeup_fd(write_end, warn_on_full_buffer=False)
+        for number in STOP_SIGNALS:
+            # Nothing at the Python level: the reader thread acts, even while the main
+            # thread is inside a solver or a wait.
+            signal.signal(number, lambda _number, _frame: None)
+        threading.Thread(
+            target=self._read, args=(read_end,), name="stop-signals", daemon=True
+        ).start()
+
+    def _read(self, read_end: int) -> None:
+        while True:
+            received = os.read(read_end, 1)
+            if not received or received[0] in STOP_SIGNALS:
+                with self._lock:
+                    self._received = True
+                    if self._guard is not None:
+                        self._guard.trigger()
+
+    def attach(self, node: Node) -> None:
+        with self._lock:
+            self._guard = node.create_guard_condition(self._stop)
+            if self._received:
+                self._guard.trigger()
+
+    @staticmethod
+    def _stop() -> None:
+        raise StopRequested
+
+
 def run_nodes(
     factories: Sequence[Callable[[], Node]],
     program: str,
@@ -37,7 +100,11 @@ def run_nodes(
     # `kill -USR1 <pid>` prints every thread's stack to the node's log: the way to see
     # where a node that stopped answering is stuck.
     faulthandler.register(signal.SIGUSR1, all_threads=True)
-    rclpy.init(args=list(sys.argv if args is None else args))
+    rclpy.init(
+        args=list(sys.argv if args is None else args),
+        signal_handler_options=SignalHandlerOptions.NO,
+    )
+    stop_signals = StopSignals()
     nodes: list[Node] = []
     status = 0
     try:
@@ -47,6 +114,8 @@ def run_nodes(
         for factory in factories:
             nodes.append(factory())
             executor.add_node(nodes[-1])
+        if nodes:
+            stop_signals.attach(nodes[0])
         executor.spin()
     except ConfigError as error:
         logger = rclpy.logging.get_logger(program)
@@ -58,7 +127,7 @@ def run_nodes(
         status = EXIT_BAD_INPUT
     except RunFinished as finished:
         status = finished.status
-    except (KeyboardInterrupt, ExternalShutdownException):
+    except (StopRequested, KeyboardInterrupt, ExternalShutdownException):
         status = 0
     except Exception:
         # A signal during start-up shuts the context down under the node being built.
@@ -72,6 +141,17 @@ def run_nodes(
     return status
 
 
-def main_for(factory: Callable[[], Node], program: str) -> None:
-    """Console-script entry point body for a single-node process."""
-    sys.exit(run_nodes([factory], program))
+def exit_process(status: int) -> NoReturn:
+    """End a node process once run_nodes has returned: nodes destroyed, the context shut
+    down (which also closes the ROS log files). Python's own finalisation is skipped: the
+    middleware's global destructors take 0.5-3 s on a loaded machine, which is longer than
+    a launch service's grace period when several nodes stop at once (measured on this
+    project's graph: controllers escalated from SIGINT to SIGTERM after 5 s)."""
+    sys.stdout.flush()
+    sys.stderr.flush()
+    os._exit(status)
+
+
+def main_for(*factories: Callable[[], Node], program: str) -> NoReturn:
+    """Console-script entry point body: run the nodes in one process, then exit."""
+    exit_process(run_nodes(list(factories), program))

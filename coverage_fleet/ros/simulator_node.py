@@ -316,7 +316,7 @@ class SimulatorNode(Node):
 
 
 def main() -> None:
-    main_for(SimulatorNode, "coverage_fleet_simulator")
+    main_for(SimulatorNode, program="coverage_fleet_simulator")
 
 
 if __name__ == "__main__":

@@ -1,0 +1,166 @@
+"""The launch files run by the real ROS 2 launch service (`launch` + `launch_ros`), as
+`ros2 launch` runs them on a ROS 2 install.
+
+The two packages have no wheels; their unmodified sources and a runner live outside this
+repository in ../shared/vendor/ros2-launch (nothing of them is copied here). Tests skip with
+the reason where that folder is absent. Each test builds the package with colcon and runs
+the installed launch files against the installed executables.
+
+What is checked (outcomes, not timings): the simulated fleet launch settles the quick-check
+mission and ends by itself when the simulator ends; on SIGINT every process exits cleanly
+within the launch service's grace period (the service logs an escalation to SIGTERM
+otherwise); launch arguments reach the nodes.
+"""
+
+from __future__ import annotations
+
+import os
+import signal
+import subprocess
+import sys
+import threading
+import time
+from pathlib import Path
+
+import pytest
+from support_colcon import REPO, colcon_install
+
+VENDOR = Path(
+    os.environ.get("COVERAGE_FLEET_ROS2_LAUNCH", REPO.parent / "shared" / "vendor" / "ros2-launch")
+)
+QUICK_MISSION = "config/missions/solar_row_quick_check.yaml"
+#: Wall seconds a launch may take before the test gives up (a hang, not a timing check).
+PATIENCE = 240.0
+
+pytestmark = pytest.mark.skipif(
+    not (VENDOR / "run_launch.py").is_file(),
+    reason=f"the launch service sources are not at {VENDOR} (a clone without ../shared)",
+)
+
+
+@pytest.fixture(scope="module")
+def install_prefix(tmp_path_factory: pytest.TempPathFactory) -> Path:
+    pytest.importorskip("osrf_pycommon", reason="osrf-pycommon (a dependency of launch)")
+    return colcon_install(tmp_path_factory.mktemp("launch_ws"))
+
+
+class LaunchRun:
+    """One `run_launch.py FILE name:=value ...` process with its output collected."""
+
+    def __init__(self, prefix: Path, launch_file: str, **arguments: str) -> None:
+        site = prefix / "lib" / f"python{sys.version_info[0]}.{sys.version_info[1]}" / (
+            "site-packages"
+        )
+        env = dict(
+            os.environ,
+            AMENT_PREFIX_PATH=str(prefix),
+            PYTHONPATH=os.pathsep.join([str(VENDOR), str(VENDOR / "placeholders"), str(site)]),
+            PATH=f"{Path(sys.executable).parent}{os.pathsep}{os.environ['PATH']}",
+            PYTHONUNBUFFERED="1",
+        )
+        command = [
+            sys.executable,
+            str(VENDOR / "run_launch.py"),
+            str(prefix / "share" / "coverage_fleet" / "launch" / launch_file),
+            *(f"{name}:={value}" for name, value in arguments.items()),
+        ]
+        self.lines: list[str] = []
+        # A process group of its own, as a shell gives a foreground job: Ctrl-C in a
+        # terminal signals the whole group, and the launch service relies on that (on its own
+        # SIGINT it does not forward SIGINT to its children).
+        self.process = subprocess.Popen(
+            command, env=env, stdout=subprocess.PIPE, stderr=subprocess.STDOUT, text=True,
+            start_new_session=True,
+        )
+        self._reader = threading.Thread(target=self._read, daemon=True)
+        self._reader.start()
+
+    def _read(self) -> None:
+        assert self.process.stdout is not None
+        for line in self.process.stdout:
+            self.lines.append(line.rstrip("\n"))
+
+    @property
+    def output(self) -> str:
+        return "\n".join(self.lines)
+
+    def wait_for(self, text: str) -> None:
+        deadline = time.monotonic() + PATIENCE
+        while text not in self.output:
+            if self.process.poll() is not None or time.monotonic() > deadline:
+                self.stop()
+                pytest.fail(f"launch never printed {text!r}:\n{self.output[-4000:]}")
+            time.sleep(0.2)
+
+    def wait(self) -> int:
+        try:
+            status = self.process.wait(timeout=PATIENCE)
+        except subprocess.TimeoutExpired:
+            self.stop()
+            pytest.fail(f"launch did not end by itself:\n{self.output[-4000:]}")
+        self._reader.join(timeout=10)
+        return status
+
+    def interrupt(self) -> int:
+        """Ctrl-C as a terminal sends it: SIGINT to the launch and every process it started."""
+        os.killpg(self.process.pid, signal.SIGINT)
+        return self.wait()
+
+    def stop(self) -> None:
+        if self.process.poll() is None:
+            os.killpg(self.process.pid, signal.SIGKILL)
+            self.process.wait()
+
+
+def assert_every_process_ended_cleanly(run: LaunchRun, expected: int) -> None:
+    output = run.output
+    assert "escalating" not in output, output[-4000:]
+    assert "process has died" not in output, output[-4000:]
+    assert output.count("process has finished cleanly") == expected, output[-4000:]
+
+
+def test_fleet_launch_settles_and_ends_with_the_simulator(install_prefix: Path) -> None:
+    mission = install_prefix / "share" / "coverage_fleet" / QUICK_MISSION
+    run = LaunchRun(install_prefix, "fleet_sim.launch.py", mission=str(mission),
+                    sim_mode="lockstep")
+    status = run.wait()
+    output = run.output
+    assert status == 0, output[-4000:]
+    assert "generation 1 committed" in output, output[-4000:]
+    run_over = [line for line in run.lines if "run over at" in line]
+    assert run_over and "duration reached" not in run_over[0], output[-4000:]
+    # base station, three controllers, simulator
+    assert_every_process_ended_cleanly(run, expected=5)
+
+
+def test_fleet_launch_stops_cleanly_on_sigint_mid_run(install_prefix: Path) -> None:
+    mission = install_prefix / "share" / "coverage_fleet" / QUICK_MISSION
+    run = LaunchRun(install_prefix, "fleet_sim.launch.py", mission=str(mission),
+                    sim_mode="lockstep")
+    run.wait_for("generation 2 committed")
+    status = run.interrupt()
+    assert status == 0, run.output[-4000:]
+    assert_every_process_ended_cleanly(run, expected=5)
+
+
+def test_base_station_and_robot_launches_take_their_arguments(
+    install_prefix: Path, tmp_path: Path
+) -> None:
+    share = install_prefix / "share" / "coverage_fleet"
+    mission = share / QUICK_MISSION
+    # A vehicle file of our own: the controller must report this file, not the roster's.
+    vehicle = tmp_path / "rover_for_launch_test.yaml"
+    vehicle.write_text((share / "config" / "vehicles" / "differential_drive.yaml").read_text())
+    base = LaunchRun(install_prefix, "base_station.launch.py", mission=str(mission),
+                     use_sim_time="false")
+    robot = LaunchRun(install_prefix, "robot_controller.launch.py", robot="rover_b",
+                      mission=str(mission), vehicle_file=str(vehicle), use_sim_time="false")
+    try:
+        robot.wait_for(f"rover_b: differential_drive from {vehicle}")
+        base.wait_for(f"partitioning {mission.stem!r}")
+    finally:
+        statuses = [run.interrupt() for run in (robot, base)]
+    assert statuses == [0, 0], robot.output[-2000:] + base.output[-2000:]
+    assert "rover_b.controller" in robot.output
+    assert_every_process_ended_cleanly(robot, expected=1)
+    assert_every_process_ended_cleanly(base, expected=1)
