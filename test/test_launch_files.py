@@ -128,7 +128,7 @@ def test_fleet_launch_settles_and_ends_with_the_simulator(install_prefix: Path) 
     assert status == 0, output[-4000:]
     assert "generation 1 committed" in output, output[-4000:]
     run_over = [line for line in run.lines if "run over at" in line]
-    assert run_over and "duration reached" not in run_over[0], output[-4000:]
+    assert run_over and "settled" in run_over[0], output[-4000:]
     # base station, three controllers, simulator
     assert_every_process_ended_cleanly(run, expected=5)
 
