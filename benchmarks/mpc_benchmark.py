@@ -28,7 +28,8 @@ import numpy as np
 
 from coverage_fleet.control.frames import heading_index, steady_frame_error
 from coverage_fleet.control.limits import input_limits, state_limits, steady_limits
-from coverage_fleet.control.mpc import TrackingMpc, stage_weights
+from coverage_fleet.control.mpc import TrackingMpc
+from coverage_fleet.control.stage_cost import stage_weights
 from coverage_fleet.control.terminal import compute_terminal_ingredients
 from coverage_fleet.geometry.region import ConvexRegion
 from coverage_fleet.vehicles.loader import VehicleSpec, load_vehicle_file

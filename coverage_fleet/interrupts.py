@@ -1,11 +1,19 @@
-"""Ctrl-C at safe points for long offline runs.
+"""Ctrl-C (SIGINT) deferred to a point where stopping is safe: the one home for it.
 
 A SIGINT that lands while casadi (or numpy) runs C code does not surface cleanly: casadi
-turns it into a RuntimeError from the function it was evaluating, which the controller's
-fallback then treats as a solver fault, so the operator's Ctrl-C is lost or ends in an
-unrelated traceback. Inside `interrupts_at_safe_points()` a SIGINT only records the request;
-long loops call `raise_if_interrupted()` between steps, where KeyboardInterrupt is safe and
-the CLI turns it into exit status 130 with nothing half-written.
+turns it into a failed solve (IPOPT: NonIpopt_Exception_Thrown) or a RuntimeError from the
+function it was evaluating, which the controller's fallback then treats as a solver fault,
+so the operator's Ctrl-C is lost or ends in an unrelated traceback. Two scopes:
+
+- `interrupts_at_safe_points()` (the CLI, around long offline runs): a SIGINT only records
+  the request; loops call `raise_if_interrupted()` between steps, where KeyboardInterrupt
+  is safe and the CLI turns it into exit status 130 with nothing half-written.
+- `sigint_held()` (around one C call, e.g. a solver call): a SIGINT that arrives during the
+  call is delivered to the handler that was installed before, right after the call
+  returns. Calls take milliseconds, so that is as good as at once.
+
+Both work in the main thread only (Python runs signal handlers there); elsewhere they do
+nothing.
 """
 
 from __future__ import annotations
@@ -22,11 +30,14 @@ def _record(_signum: int, _frame: object) -> None:
     _requested.set()
 
 
+def _in_main_thread() -> bool:
+    return threading.current_thread() is threading.main_thread()
+
+
 @contextmanager
 def interrupts_at_safe_points() -> Iterator[None]:
-    """Hold SIGINT as a request until the next `raise_if_interrupted()` (main thread only;
-    elsewhere Python cannot install signal handlers and this does nothing)."""
-    if threading.current_thread() is not threading.main_thread():
+    """Hold SIGINT as a request until the next `raise_if_interrupted()`."""
+    if not _in_main_thread():
         yield
         return
     _requested.clear()
@@ -43,3 +54,25 @@ def raise_if_interrupted() -> None:
     if _requested.is_set():
         _requested.clear()
         raise KeyboardInterrupt
+
+
+@contextmanager
+def sigint_held() -> Iterator[None]:
+    """Hold a SIGINT that arrives inside the block and hand it to the previous handler when
+    the block ends. Inside `interrupts_at_safe_points()` the handler already only records,
+    so nothing is swapped; SIG_IGN / SIG_DFL set from outside Python are left alone."""
+    if not _in_main_thread():
+        yield
+        return
+    previous = signal.getsignal(signal.SIGINT)
+    if previous is _record or not callable(previous):
+        yield
+        return
+    received: list[int] = []
+    signal.signal(signal.SIGINT, lambda number, _frame: received.append(number))
+    try:
+        yield
+    finally:
+        signal.signal(signal.SIGINT, previous)
+        if received:
+            previous(signal.SIGINT, None)

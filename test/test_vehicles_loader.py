@@ -382,9 +382,9 @@ def test_describe_prints_limits_or_problems(tmp_path: Path, capsys) -> None:
 def test_solver_vocabulary_matches_the_mpc() -> None:
     """The loader checks `mpc.solver` against settings.SOLVER_PLUGINS / SOLVER_KEYS; the MPC
     must offer exactly those, or a file the loader accepts would fail later."""
-    from coverage_fleet.control import mpc
+    from coverage_fleet.control import solver_chain
     from coverage_fleet.vehicles.settings import SOLVER_KEYS, SOLVER_PLUGINS
 
-    assert set(mpc.SOLVER_DEFAULTS) == set(SOLVER_PLUGINS)
-    assert mpc.DEFAULT_PLUGIN in SOLVER_PLUGINS
-    assert set(mpc.SOLVER_KEYS) == set(SOLVER_KEYS)
+    assert set(solver_chain.SOLVER_DEFAULTS) == set(SOLVER_PLUGINS)
+    assert solver_chain.DEFAULT_PLUGIN in SOLVER_PLUGINS
+    assert set(solver_chain.SOLVER_KEYS) == set(SOLVER_KEYS)

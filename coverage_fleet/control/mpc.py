@@ -25,72 +25,26 @@ Headings stay continuous (frames.py); the steady heading is a free parameter.
 
 from __future__ import annotations
 
-import hashlib
-import os
-import shutil
-import signal
-import subprocess
-import tempfile
-import threading
-import time
-from collections.abc import Iterator
-from contextlib import contextmanager
 from dataclasses import dataclass
-from pathlib import Path
-from typing import Any
 
 import casadi as ca
 import numpy as np
 
-from coverage_fleet.control.cache import cache_root, write_atomically
 from coverage_fleet.control.frames import heading_index, steady_frame_error
 from coverage_fleet.control.ingredients import TerminalIngredients
 from coverage_fleet.control.limits import input_limits, state_limits, steady_limits
-from coverage_fleet.errors import ConfigError, Problem
+from coverage_fleet.control.solver_chain import (
+    ChainResult,
+    NlpInstance,
+    build_solver_chain,
+    configured_plugin,
+    terminal_equality_width,
+)
+from coverage_fleet.control.stage_cost import stage_weights
+from coverage_fleet.control.terminal import compute_terminal_ingredients
 from coverage_fleet.vehicles.base import VehicleModel
-from coverage_fleet.vehicles.settings import MpcSettings
+from coverage_fleet.vehicles.settings import SOLVER_PLUGINS, MpcSettings, not_stabilisable_reason
 
-#: Solver plugins the MPC is tested with, and the casadi options it starts from. Keys given
-#: under `mpc.solver.options` in the vehicle file are merged over these.
-SOLVER_DEFAULTS: dict[str, dict[str, Any]] = {
-    "ipopt": {
-        "print_time": False,
-        "ipopt.print_level": 0,
-        "ipopt.sb": "yes",
-        "ipopt.warm_start_init_point": "yes",
-        "ipopt.warm_start_bound_push": 1e-6,
-        "ipopt.warm_start_mult_bound_push": 1e-6,
-        "ipopt.mu_init": 1e-3,
-        "ipopt.tol": 1e-8,
-        "ipopt.acceptable_tol": 1e-6,
-    },
-    "fatrop": {
-        "print_time": False,
-        "structure_detection": "auto",
-        "fatrop.print_level": 0,
-        "fatrop.mu_init": 1e-3,
-        # fatrop's tolerance is absolute (IPOPT's is scaled); the cost is O(1e3) here.
-        "fatrop.tol": 1e-5,
-    },
-}
-DEFAULT_PLUGIN = "fatrop"
-#: fatrop (casadi 3.6/3.7 builds) can stall inside an iteration when equality rows at the
-#: terminal stage outnumber the inputs near a converged warm start; with fatrop the terminal
-#: equality is therefore imposed as |x_N - x_s| <= this (metres / radians / m/s).
-FATROP_EQUALITY_TOLERANCE = 1e-6
-SOLVER_KEYS = ("plugin", "max_iter", "options", "compile")
-#: Plugin that re-solves a sample another plugin failed on (from the same warm start),
-#: with this many times the iteration budget (a cold start far from the target can need
-#: over 100 IPOPT iterations, e.g. the surface vessel).
-RESCUE_PLUGIN = "ipopt"
-RESCUE_ITERATION_FACTOR = 3
-#: After a failure of the fast plugin, this many samples go straight to the rescue plugin
-#: (failures come in stretches, and a failed fast solve costs its whole iteration budget).
-RESCUE_HOLD_SAMPLES = 10
-#: Iteration cap of the fast plugin when a rescue plugin stands behind it (warm-started
-#: fatrop needs 5 to 20; a sample that needs more is cheaper to hand over).
-FAST_ITERATION_CAP = 40
-DEFAULT_MAX_ITER = 100
 #: A plan whose positions and steady state stay within this of the robot counts as "not
 #: moving" (metres); see TrackingMpc._stalled.
 STALL_DISTANCE = 0.01
@@ -126,154 +80,29 @@ def _region_offsets(A: np.ndarray, b: np.ndarray, distance: float) -> np.ndarray
     return b - distance * np.linalg.norm(A, axis=1)
 
 
-def stage_weights(model: VehicleModel, settings: MpcSettings) -> tuple[np.ndarray, np.ndarray]:
-    """Q and R (diagonal) from the settings; all ones where the settings leave them empty
-    (the vehicle-file loader always fills them)."""
-    q = np.asarray(settings.state_weights or np.ones(model.nx), dtype=float)
-    r = np.asarray(settings.input_weights or np.ones(model.nu), dtype=float)
-    return np.diag(q), np.diag(r)
-
-
-def settings_problems(model: VehicleModel, settings: MpcSettings) -> list[Problem]:
-    """Everything wrong with these MPC settings for this model (empty when usable)."""
-    source = model.source
-    problems: list[Problem] = []
-    if settings.horizon < 1:
-        problems.append(Problem(source, "mpc.horizon", "must be at least 1"))
-    if settings.sample_time <= 0:
-        problems.append(Problem(source, "mpc.sample_time", "must be positive (seconds)"))
-    for key, values, n, names in (
-        ("mpc.state_weights", settings.state_weights, model.nx, model.state_names),
-        ("mpc.input_weights", settings.input_weights, model.nu, model.input_names),
-    ):
-        if values and len(values) != n:
-            problems.append(
-                Problem(source, key, f"needs {n} entries ({', '.join(names)}), got {len(values)}")
-            )
-        if any(v < 0 for v in values):
-            problems.append(Problem(source, key, "weights must be non-negative"))
-    if settings.input_weights and min(settings.input_weights) <= 0:
-        problems.append(Problem(source, "mpc.input_weights", "weights must be positive"))
-    if settings.offset_weight <= 0:
-        problems.append(Problem(source, "mpc.offset_weight", "must be positive"))
-    if settings.terminal_decrease_slack < 0:
-        problems.append(Problem(source, "mpc.terminal_decrease_slack", "must be zero or positive"))
-    if not 0.0 < settings.terminal_shrink <= 1.0:
-        problems.append(Problem(source, "mpc.terminal_shrink", "must be in (0, 1]"))
-    if not 0.0 <= settings.steady_state_margin < 1.0:
-        problems.append(Problem(source, "mpc.steady_state_margin", "must be in [0, 1)"))
-    if settings.terminal not in ("equality", "ellipsoid"):
-        problems.append(
-            Problem(source, "mpc.terminal", f"'{settings.terminal}': use equality or ellipsoid")
-        )
+def _require_checked(
+    model: VehicleModel, settings: MpcSettings, terminal: TerminalIngredients | None
+) -> None:
+    """The settings are checked where they are read (vehicles.loader reports every problem
+    of a vehicle file); the MPC only refuses what would make it build a wrong problem, with
+    an explicit check (not `assert`, which python -O strips)."""
+    faults = []
+    if settings.horizon < 1 or settings.sample_time <= 0 or settings.substeps < 1:
+        faults.append("horizon, sample_time and substeps must be positive")
+    if configured_plugin(settings) not in SOLVER_PLUGINS:
+        faults.append(f"solver plugin must be one of {list(SOLVER_PLUGINS)}")
     if settings.terminal == "ellipsoid" and not model.stabilisable_at_rest:
-        problems.append(
-            Problem(
-                source,
-                "mpc.terminal",
-                f"ellipsoid needs a linearisation at rest that can be stabilised; the "
-                f"{model.kind} model's cannot (at rest it cannot move in every direction, "
-                f"e.g. sideways), so no terminal ellipsoid exists: use 'equality'",
-            )
+        faults.append(f"terminal 'ellipsoid': {not_stabilisable_reason(model.kind)}")
+    if terminal is not None and terminal.kind != settings.terminal:
+        faults.append(
+            f"settings ask for terminal '{settings.terminal}' but the ingredients given are "
+            f"'{terminal.kind}' ({terminal.reason})"
         )
-    heading = heading_index(model)
-    if settings.terminal == "ellipsoid" and heading is not None and settings.state_weights:
-        i, j = model.position_indices
-        if settings.state_weights[i] != settings.state_weights[j]:
-            problems.append(
-                Problem(
-                    source,
-                    "mpc.state_weights",
-                    "the two position weights must be equal with an ellipsoid terminal set "
-                    "on a model with a heading (the set is computed once, at heading 0, and "
-                    "rotated; a cost that prefers one map axis would not rotate with it)",
-                )
-            )
-    unknown = sorted(set(settings.solver) - set(SOLVER_KEYS))
-    if unknown:
-        problems.append(
-            Problem(source, "mpc.solver", f"unknown keys {unknown}; known: {list(SOLVER_KEYS)}")
+    if faults:
+        raise ValueError(
+            f"{model.source}: MPC settings not usable: {'; '.join(faults)} (vehicle files are "
+            f"checked by vehicles.loader; settings built in code must obey the same rules)"
         )
-    plugin = settings.solver.get("plugin", DEFAULT_PLUGIN)
-    if plugin not in SOLVER_DEFAULTS:
-        problems.append(
-            Problem(source, "mpc.solver.plugin", f"'{plugin}': use one of {list(SOLVER_DEFAULTS)}")
-        )
-    max_iter = settings.solver.get("max_iter", DEFAULT_MAX_ITER)
-    if isinstance(max_iter, bool) or not isinstance(max_iter, int) or max_iter < 1:
-        problems.append(Problem(source, "mpc.solver.max_iter", "must be a positive integer"))
-    if not isinstance(settings.solver.get("compile", False), bool):
-        problems.append(Problem(source, "mpc.solver.compile", "must be true or false"))
-    if not isinstance(settings.solver.get("options", {}), dict):
-        problems.append(Problem(source, "mpc.solver.options", "must be a mapping"))
-    return problems
-
-
-_CODEGEN_LOCK = threading.Lock()
-
-
-@contextmanager
-def interrupts_after_solve() -> Iterator[None]:
-    """Hold Ctrl-C (SIGINT) until the solver call returns, then deliver it.
-
-    casadi turns an interrupt that arrives inside a solver callback into a failed solve
-    (IPOPT: NonIpopt_Exception_Thrown), which the controller would treat as a solver failure
-    and carry on, losing the operator's Ctrl-C. Solves take milliseconds, so delivering the
-    signal right after is as good as at once. Only the main thread can handle signals;
-    elsewhere this does nothing."""
-    if threading.current_thread() is not threading.main_thread():
-        yield
-        return
-    previous = signal.getsignal(signal.SIGINT)
-    if not callable(previous):  # SIG_IGN or SIG_DFL set from outside Python: leave them
-        yield
-        return
-    received: list[int] = []
-    signal.signal(signal.SIGINT, lambda number, _frame: received.append(number))
-    try:
-        yield
-    finally:
-        signal.signal(signal.SIGINT, previous)
-        if received:
-            previous(signal.SIGINT, None)
-
-
-def compiled_library(solver: ca.Function) -> Path:
-    """The solver's problem functions (cost, constraints, derivatives) as C, compiled into a
-    shared library in the cache, keyed by the generated source, so it is compiled once per
-    problem shape. casadi then loads it instead of evaluating its expression graphs."""
-    compiler = os.environ.get("CC", "cc")
-    if shutil.which(compiler) is None:
-        raise ConfigError.single(
-            "<environment>",
-            "mpc.solver.compile",
-            f"no C compiler '{compiler}' found (set CC, or compile: false)",
-        )
-    with tempfile.TemporaryDirectory() as folder:
-        # casadi writes generated code to the working directory (it takes no path).
-        with _CODEGEN_LOCK:
-            here = os.getcwd()
-            try:
-                os.chdir(folder)
-                solver.generate_dependencies("tracking_mpc.c")
-            finally:
-                os.chdir(here)
-        source = Path(folder, "tracking_mpc.c").read_bytes()
-        key = hashlib.sha256(source + ca.__version__.encode()).hexdigest()[:24]
-        library = cache_root() / "mpc" / f"{key}.so"
-        if library.is_file():
-            return library
-        built = Path(folder, "tracking_mpc.so")
-        command = [compiler, "-O1", "-shared", "-fPIC", str(Path(folder, "tracking_mpc.c"))]
-        done = subprocess.run([*command, "-o", str(built)], capture_output=True, text=True)
-        if done.returncode != 0:
-            raise ConfigError.single(
-                "<environment>", "mpc.solver.compile", f"compiling failed: {done.stderr[:400]}"
-            )
-        if not write_atomically(library, built.read_bytes()):
-            library = Path(tempfile.mkdtemp()) / f"{key}.so"
-            library.write_bytes(built.read_bytes())
-    return library
 
 
 class TrackingMpc:
@@ -286,22 +115,12 @@ class TrackingMpc:
         region_halfspaces: tuple[np.ndarray, np.ndarray],
         terminal: TerminalIngredients | None = None,
     ) -> None:
-        problems = settings_problems(model, settings)
-        if problems:
-            raise ConfigError(problems)
+        _require_checked(model, settings, terminal)
         if terminal is None:
-            if settings.terminal == "ellipsoid":
-                from coverage_fleet.control.terminal import compute_terminal_ingredients
-
-                terminal = compute_terminal_ingredients(model, settings)
-            else:
-                terminal = TerminalIngredients.equality("equality asked for in the settings")
-        if terminal.kind != settings.terminal:
-            raise ConfigError.single(
-                model.source,
-                "mpc.terminal",
-                f"settings ask for '{settings.terminal}' but the terminal ingredients given "
-                f"are '{terminal.kind}' ({terminal.reason})",
+            terminal = (
+                compute_terminal_ingredients(model, settings)
+                if settings.terminal == "ellipsoid"
+                else TerminalIngredients.equality("equality asked for in the settings")
             )
         self.model = model
         self.settings = settings
@@ -322,9 +141,8 @@ class TrackingMpc:
         self.steady_region_b = _region_offsets(
             self.region_A, self.region_b, self.footprint_radius + terminal.position_extent
         )
-        plugin = settings.solver.get("plugin", DEFAULT_PLUGIN)
-        self.plugin = plugin
-        self._build(plugin)
+        self.plugin = configured_plugin(settings)
+        self._build(self.plugin)
         self._guess: np.ndarray | None = None
         self._lam_g: np.ndarray | None = None
         self._lam_x: np.ndarray | None = None
@@ -420,7 +238,7 @@ class TrackingMpc:
             add(ca.mtimes(ca.DM(u_steady.G_dep), u_s), -np.inf, u_steady.g_dep)
         add(ca.mtimes(A_r, p_s), -np.inf, self.steady_region_b)
         if self.terminal.kind == "equality":
-            width = FATROP_EQUALITY_TOLERANCE if plugin == "fatrop" else 0.0
+            width = terminal_equality_width(plugin)
             add(x_N - x_s, -width, width)
         else:
             error = steady_frame_error(x_N, x_s, model.position_indices, self.heading)
@@ -438,27 +256,7 @@ class TrackingMpc:
         self._lbw, self._ubw = np.concatenate(lbw), np.concatenate(ubw)
         self._lbg, self._ubg = np.concatenate(lbg), np.concatenate(ubg)
         self._nz = nz
-        self._solver = self._make_solver(plugin, nlp)
-        if settings.solver.get("compile", False):
-            library = compiled_library(self._solver)
-            self._solver = self._make_solver(plugin, str(library))
-        #: A more forgiving solver for the samples the fast one fails on.
-        self._rescue = self._make_solver(RESCUE_PLUGIN, nlp) if plugin != RESCUE_PLUGIN else None
-        self._rescue_samples_left = 0
-
-    def _make_solver(self, plugin: str, nlp: dict[str, ca.SX] | str) -> ca.Function:
-        options = dict(SOLVER_DEFAULTS[plugin])
-        max_iter = int(self.settings.solver.get("max_iter", DEFAULT_MAX_ITER))
-        if plugin != self.plugin:
-            max_iter *= RESCUE_ITERATION_FACTOR
-        elif plugin != RESCUE_PLUGIN:
-            max_iter = min(max_iter, FAST_ITERATION_CAP)
-        options[f"{plugin}.max_iter"] = max_iter
-        if plugin == "fatrop":
-            options["equality"] = [bool(v) for v in self._lbg == self._ubg]
-        if plugin == self.plugin:
-            options.update(self.settings.solver.get("options", {}))
-        return ca.nlpsol(f"tracking_mpc_{plugin}", plugin, nlp, options)
+        self._chain = build_solver_chain(nlp, settings, [bool(v) for v in self._lbg == self._ubg])
 
     # --- solving -----------------------------------------------------------------------
 
@@ -534,45 +332,22 @@ class TrackingMpc:
         inputs = np.tile(self._Mu @ theta + self._u0s, (self.horizon, 1))
         return self._pack(states, inputs, theta)
 
-    def _run(self, guess: np.ndarray, x0: np.ndarray, target: np.ndarray, warm_duals: bool):
-        arguments: dict[str, Any] = {
-            "x0": guess,
-            "p": np.concatenate([x0, target]),
-            "lbx": self._lbw,
-            "ubx": self._ubw,
-            "lbg": self._lbg,
-            "ubg": self._ubg,
-        }
-        if warm_duals and self._lam_g is not None:
-            arguments["lam_g0"] = self._lam_g
-            arguments["lam_x0"] = self._lam_x
-        if self._rescue is not None and self._rescue_samples_left > 0:
-            # The fast solver failed recently: the problem is in a hard stretch, skip it.
-            self._rescue_samples_left -= 1
-            started = time.perf_counter()
-            with interrupts_after_solve():
-                result = self._rescue(**arguments)
-            elapsed = time.perf_counter() - started
-            stats = dict(self._rescue.stats())
-            stats["return_status"] = f"{RESCUE_PLUGIN}: {stats.get('return_status')}"
-            return result, stats, elapsed
-        started = time.perf_counter()
-        with interrupts_after_solve():
-            result = self._solver(**arguments)
-        elapsed = time.perf_counter() - started
-        stats = dict(self._solver.stats())
-        if not stats.get("success") and self._rescue is not None:
-            self._rescue_samples_left = RESCUE_HOLD_SAMPLES
-            first = f"{self.plugin}: {stats.get('return_status', 'failed')}"
-            iterations = int(stats.get("iter_count", 0))
-            started = time.perf_counter()
-            with interrupts_after_solve():
-                result = self._rescue(**arguments)
-            elapsed += time.perf_counter() - started
-            stats = dict(self._rescue.stats())
-            stats["return_status"] = f"{first}; {RESCUE_PLUGIN}: {stats.get('return_status')}"
-            stats["iter_count"] = iterations + int(stats.get("iter_count", 0))
-        return result, stats, elapsed
+    def _run(
+        self, guess: np.ndarray, x0: np.ndarray, target: np.ndarray, warm_duals: bool
+    ) -> ChainResult:
+        warm = warm_duals and self._lam_g is not None
+        return self._chain.solve(
+            NlpInstance(
+                guess=guess,
+                parameters=np.concatenate([x0, target]),
+                lbx=self._lbw,
+                ubx=self._ubw,
+                lbg=self._lbg,
+                ubg=self._ubg,
+                lam_x0=self._lam_x if warm else None,
+                lam_g0=self._lam_g if warm else None,
+            )
+        )
 
     def _stalled(self, w: np.ndarray, x0: np.ndarray, target: np.ndarray) -> bool:
         """Resting on a stationary point short of the target: the plan and the steady state
@@ -592,32 +367,32 @@ class TrackingMpc:
     def solve(self, x0: np.ndarray, target_xy: np.ndarray) -> MpcSolution:
         x0 = np.asarray(x0, dtype=float).reshape(-1)
         target = np.asarray(target_xy, dtype=float).reshape(2)
+        if not (np.all(np.isfinite(x0)) and np.all(np.isfinite(target))):
+            # A NaN reaching fatrop from a cold start can keep it iterating for minutes.
+            raise ValueError(f"state {x0.tolist()} and target {target.tolist()} must be finite")
         guess = self._cold_guess(x0) if self._guess is None else self._guess
         guess = self._align_angles(guess, x0)
         states, inputs, theta = self._unpack(guess)
         states[0] = x0
         guess = self._pack(states, inputs, theta)
-        result, stats, solve_time = self._run(guess, x0, target, warm_duals=True)
-        iterations = int(stats.get("iter_count", 0))
-        success = bool(stats.get("success", False))
-        w = np.asarray(result["x"], dtype=float).reshape(-1)
-        if success and self._stalled(w, x0, target):
+        run = self._run(guess, x0, target, warm_duals=True)
+        final, status = run.final, run.status
+        solve_time, iterations, success = run.elapsed, run.iterations, run.success
+        if success and self._stalled(final.x, x0, target):
             escape = self._escape_guess(x0, target)
             if escape is not None:
-                retry, retry_stats, retry_time = self._run(escape, x0, target, warm_duals=False)
-                solve_time += retry_time
-                iterations += int(retry_stats.get("iter_count", 0))
-                if retry_stats.get("success") and float(retry["f"]) < float(result["f"]) - 1e-9:
-                    result, stats = retry, retry_stats
-                    w = np.asarray(result["x"], dtype=float).reshape(-1)
+                retry = self._run(escape, x0, target, warm_duals=False)
+                solve_time += retry.elapsed
+                iterations += retry.iterations
+                if retry.success and retry.final.cost < final.cost - 1e-9:
+                    final, status = retry.final, retry.status
         if success:
-            self._guess = self._shifted(w)
-            self._lam_g = np.asarray(result["lam_g"], dtype=float).reshape(-1)
-            self._lam_x = np.asarray(result["lam_x"], dtype=float).reshape(-1)
+            self._guess = self._shifted(final.x)
+            self._lam_g, self._lam_x = final.lam_g, final.lam_x
         else:
             self._guess = self._shifted(guess)
             self._lam_g = self._lam_x = None
-        states, inputs, theta = self._unpack(w)
+        states, inputs, theta = self._unpack(final.x)
         x_s = self._Mx @ theta + self._x0s
         u_s = self._Mu @ theta + self._u0s
         steady = SteadyStatePoint(x_s, u_s, theta, self.model.position(x_s))
@@ -626,7 +401,7 @@ class TrackingMpc:
             predicted_states=states,
             predicted_inputs=inputs,
             steady_state=steady,
-            status=str(stats.get("return_status", "unknown")),
+            status=status,
             success=success,
             iterations=iterations,
             solve_time=solve_time,

@@ -45,11 +45,11 @@ from coverage_fleet.control.cache import cache_root, write_atomically
 from coverage_fleet.control.frames import heading_index, rotation_transform
 from coverage_fleet.control.ingredients import TerminalIngredients
 from coverage_fleet.control.limits import LinearLimits, input_limits, state_limits, steady_limits
-from coverage_fleet.control.mpc import settings_problems, stage_weights
+from coverage_fleet.control.stage_cost import stage_weights
 from coverage_fleet.errors import ConfigError
 from coverage_fleet.vehicles.base import VehicleModel
 from coverage_fleet.vehicles.loader import VehicleSpec
-from coverage_fleet.vehicles.settings import MpcSettings
+from coverage_fleet.vehicles.settings import MpcSettings, not_stabilisable_reason
 
 #: Bump when the method changes: cached results of an older method are not reused.
 METHOD_VERSION = 1
@@ -200,16 +200,12 @@ def compute_ellipsoid(
     """The ellipsoidal terminal ingredients of a stabilisable model (raises ConfigError with
     the reason otherwise)."""
     source = model.source
-    problems = [p for p in settings_problems(model, settings) if p.key != "mpc.terminal"]
-    if problems:
-        raise ConfigError(problems)
     if not model.stabilisable_at_rest:
         raise ConfigError.single(
             source,
             "mpc.terminal",
-            f"the {model.kind} model is not stabilisable at rest (its linearisation cannot "
-            f"move in every direction), so no terminal ellipsoid exists; the MPC uses the "
-            f"terminal equality x_N = x_s",
+            f"{not_stabilisable_reason(model.kind)}; the MPC uses the terminal equality "
+            f"x_N = x_s",
         )
     A, B, x_r, u_r = linearise_at_rest(model, settings)
     if not is_stabilisable(A, B):
@@ -339,10 +335,7 @@ def _compute(model: VehicleModel, settings: MpcSettings, content_hash: str) -> T
     if settings.terminal == "ellipsoid":
         return compute_ellipsoid(model, settings, content_hash)
     if not model.stabilisable_at_rest:
-        reason = (
-            f"the {model.kind} model is not stabilisable at rest (its linearisation cannot "
-            f"move in every direction, e.g. sideways): terminal equality x_N = x_s"
-        )
+        reason = f"{not_stabilisable_reason(model.kind)}: terminal equality x_N = x_s"
     else:
         reason = "the vehicle file asks for the terminal equality x_N = x_s"
     return TerminalIngredients.equality(reason, content_hash)
