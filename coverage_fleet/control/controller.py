@@ -1,25 +1,33 @@
 """One robot's controller: the tracking MPC plus what to do when the solver fails.
 
 This is the one call the offline simulator and the ROS controller node make per sample.
-On a failed solve (or a solver exception) the robot keeps flying the plan it last had, one
-input per sample, while that plan lasts (its inputs were feasible when computed, common
-practice for MPC failure handling); after that it applies model.braking_input(x). Every
-input that leaves here is inside the input box and polytope (clipped, then asserted).
+On a failed solve (or a solver exception, or a measured state that is not finite) the robot
+keeps flying the plan it last had, one input per sample, while that plan lasts (its inputs
+were feasible when computed, common practice for MPC failure handling); after that it
+applies model.braking_input(x).
+
+Every input that leaves here is clipped into the input box and pulled into the input
+polytope, then checked explicitly against both (limits.COMMAND_LIMIT_TOLERANCE). An input
+that fails the check (not finite, or a model whose rest input lies outside its own limits,
+so the pull cannot reach them) is replaced by the braking input, and that by the rest input
+if it fails too; the replacement is logged (logger "coverage_fleet.control.controller") and
+named in ControlStep.status.
 """
 
 from __future__ import annotations
 
+import logging
 from dataclasses import dataclass
 
 import numpy as np
 
 from coverage_fleet.control.ingredients import TerminalIngredients
+from coverage_fleet.control.limits import COMMAND_LIMIT_TOLERANCE, input_limits
 from coverage_fleet.control.mpc import TrackingMpc
 from coverage_fleet.vehicles.base import VehicleModel
 from coverage_fleet.vehicles.settings import MpcSettings
 
-#: Slack allowed on the limits when asserting (solver tolerances are far below it).
-LIMIT_TOLERANCE = 1e-9
+logger = logging.getLogger(__name__)
 
 FALLBACK_NONE = ""
 FALLBACK_PREVIOUS_PLAN = "previous plan"
@@ -54,6 +62,7 @@ class RobotController:
         self._u_lower, self._u_upper = (np.asarray(v, float) for v in model.input_bounds())
         E, e = model.input_polytope()
         self._E, self._e = np.asarray(E, float).reshape(-1, model.nu), np.asarray(e, float)
+        self._limits = input_limits(model)
         self._u_rest = np.asarray(model.steady_states().u0, dtype=float)
         self._plan_inputs: np.ndarray | None = None
         self._plan_states: np.ndarray | None = None
@@ -61,43 +70,64 @@ class RobotController:
 
     def step(self, x: np.ndarray, target_xy: np.ndarray) -> ControlStep:
         x = np.asarray(x, dtype=float).reshape(-1)
+        target = np.asarray(target_xy, dtype=float).reshape(-1)
+        if not (np.all(np.isfinite(x)) and np.all(np.isfinite(target))):
+            self.mpc.reset()
+            return self._fallback(x, "measured state or target not finite", 0, 0.0)
         try:
-            solution = self.mpc.solve(x, target_xy)
-        except RuntimeError as error:  # casadi raises on NaN inputs or plugin faults
+            solution = self.mpc.solve(x, target)
+        except RuntimeError as error:  # casadi raises on plugin faults
             self.mpc.reset()
             return self._fallback(x, f"solver error: {error}".splitlines()[0], 0, 0.0)
-        if solution.success:
-            self._plan_inputs = solution.predicted_inputs
-            self._plan_states = solution.predicted_states
-            self._plan_next = 1
-            positions = solution.predicted_states[:, list(self.model.position_indices)]
+        if not solution.success:
+            return self._fallback(x, solution.status, solution.iterations, solution.solve_time)
+        u, replaced = self.command(solution.first_input, x)
+        if replaced:
+            self._plan_inputs = self._plan_states = None
             return ControlStep(
-                input=self.admissible(solution.first_input),
-                plan_positions=positions,
-                status=solution.status,
+                input=u,
+                plan_positions=self.model.position(x).reshape(1, 2),
+                status=f"{solution.status}; {replaced}",
                 success=True,
-                used_fallback=False,
+                used_fallback=True,
                 iterations=solution.iterations,
                 solve_time=solution.solve_time,
+                fallback=FALLBACK_BRAKING,
             )
-        return self._fallback(x, solution.status, solution.iterations, solution.solve_time)
+        self._plan_inputs = solution.predicted_inputs
+        self._plan_states = solution.predicted_states
+        self._plan_next = 1
+        return ControlStep(
+            input=u,
+            plan_positions=solution.predicted_states[:, list(self.model.position_indices)],
+            status=solution.status,
+            success=True,
+            used_fallback=False,
+            iterations=solution.iterations,
+            solve_time=solution.solve_time,
+        )
 
     def _fallback(
         self, x: np.ndarray, status: str, iterations: int, solve_time: float
     ) -> ControlStep:
-        plan = self._plan_inputs
-        if plan is not None and self._plan_next < len(plan):
+        plan, plan_states = self._plan_inputs, self._plan_states
+        if plan is not None and plan_states is not None and self._plan_next < len(plan):
             k = self._plan_next
             self._plan_next += 1
-            assert self._plan_states is not None
-            positions = self._plan_states[k:, list(self.model.position_indices)]
-            u, kind = plan[k], FALLBACK_PREVIOUS_PLAN
+            positions = plan_states[k:, list(self.model.position_indices)]
+            u, replaced = self.command(plan[k], x)
+            kind = FALLBACK_PREVIOUS_PLAN
         else:
             self._plan_inputs = self._plan_states = None
             positions = self.model.position(x).reshape(1, 2)
-            u, kind = self.model.braking_input(x), FALLBACK_BRAKING
+            u, replaced = self.command(self._braking_input(x), x)
+            kind = FALLBACK_BRAKING
+        if replaced:
+            self._plan_inputs = self._plan_states = None
+            positions = self.model.position(x).reshape(1, 2)
+            status, kind = f"{status}; {replaced}", FALLBACK_BRAKING
         return ControlStep(
-            input=self.admissible(u),
+            input=u,
             plan_positions=positions,
             status=status,
             success=False,
@@ -107,9 +137,61 @@ class RobotController:
             fallback=kind,
         )
 
+    def _braking_input(self, x: np.ndarray) -> np.ndarray:
+        try:
+            return np.asarray(self.model.braking_input(x), dtype=float).reshape(self.model.nu)
+        except Exception as error:  # user model code: a fault here must not stop the robot
+            logger.error("%s: braking_input failed: %r", self.model.source, error)
+            return np.full(self.model.nu, np.nan)
+
+    def command(self, u: np.ndarray, x: np.ndarray) -> tuple[np.ndarray, str]:
+        """(input to send, "" or why `u` was replaced). The first of u, the braking input
+        and the rest input that is finite and, after admissible(), inside the input limits
+        (explicit check, not `assert`: python -O would strip it)."""
+        sent = self.admissible(u)
+        fault = self.limit_fault(u, sent)
+        if not fault:
+            return sent, ""
+        for label, candidate in (
+            ("braking", lambda: self._braking_input(x)),
+            ("rest input", lambda: self._u_rest),
+        ):
+            wanted = candidate()
+            replacement = self.admissible(wanted)
+            if not self.limit_fault(wanted, replacement):
+                logger.warning(
+                    "%s (%s): %s; sending the %s instead",
+                    self.model.source, self.model.kind, fault, label,
+                )
+                return replacement, f"{fault}: {label} instead"
+        # Nothing admissible is known (a model whose limits exclude its own rest input):
+        # the rest input within the box, which every input respects at least.
+        last = np.clip(np.nan_to_num(self._u_rest), self._u_lower, self._u_upper)
+        logger.error(
+            "%s (%s): %s, and neither braking nor the rest input is inside the limits; "
+            "sending %s", self.model.source, self.model.kind, fault, last.tolist(),
+        )
+        return last, f"{fault}: no input inside the limits, rest input clipped to the box"
+
+    def limit_fault(self, wanted: np.ndarray, sent: np.ndarray) -> str:
+        """"" when `wanted` is finite and `sent` (its admissible() image) is inside every
+        input limit row; otherwise what is wrong."""
+        wanted = np.asarray(wanted, dtype=float)
+        if not np.all(np.isfinite(wanted)):
+            return f"input {wanted.tolist()} not finite"
+        excess = self._limits.G @ sent - self._limits.g
+        row = int(np.argmax(excess)) if len(excess) else 0
+        if len(excess) and not excess[row] <= COMMAND_LIMIT_TOLERANCE:
+            return (
+                f"input {sent.tolist()} outside the limit '{self._limits.names[row]}' by "
+                f"{excess[row]:.3g} after clipping"
+            )
+        return ""
+
     def admissible(self, u: np.ndarray) -> np.ndarray:
         """u clipped to the input box, then pulled towards the rest input until the input
-        polytope holds (the rest input is inside: the set is convex, so this ends inside)."""
+        polytope holds (when the rest input is inside: the set is convex, so this ends
+        inside; `command` checks the result, since a model may break that premise)."""
         u = np.clip(np.nan_to_num(np.asarray(u, float), nan=0.0), self._u_lower, self._u_upper)
         if len(self._e):
             excess = self._E @ u - self._e
@@ -119,7 +201,4 @@ class RobotController:
                 with np.errstate(divide="ignore", invalid="ignore"):
                     ratios = np.where(direction > 0, rest_slack / direction, np.inf)
                 u = self._u_rest + min(1.0, float(ratios.min())) * (u - self._u_rest)
-        assert np.all(u >= self._u_lower - LIMIT_TOLERANCE), (u, self._u_lower)
-        assert np.all(u <= self._u_upper + LIMIT_TOLERANCE), (u, self._u_upper)
-        assert not len(self._e) or np.all(self._E @ u <= self._e + LIMIT_TOLERANCE), u
         return u

@@ -21,6 +21,19 @@ from coverage_fleet.vehicles.base import VehicleModel
 #: Rows whose steady-state dependence is below this are treated as independent of theta.
 INDEPENDENT_TOLERANCE = 1e-12
 
+# Two different slacks on the same limits (absolute, in each limit's SI unit):
+
+#: The last check before an input leaves the controller (RobotController.command). The
+#: input has just been clipped into the box and pulled into the polytope, so only
+#: floating-point rounding may remain; anything larger means the clipping could not do its
+#: job (common practice: a few hundred ulps at the magnitudes of vehicle limits).
+COMMAND_LIMIT_TOLERANCE = 1e-9
+#: The check of a whole trial, simulated or recorded (fleet.limit_check): the plant is
+#: integrated more finely (plant_substeps) than the controller's model, so a state the
+#: controller predicted on a limit can end slightly beyond it; differences up to this are
+#: integration error, not a violation.
+TRIAL_LIMIT_TOLERANCE = 1e-4
+
 
 @dataclass(frozen=True)
 class LinearLimits:

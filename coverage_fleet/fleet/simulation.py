@@ -26,16 +26,13 @@ import numpy as np
 from coverage_fleet.control.controller import RobotController
 from coverage_fleet.control.gate import ProgressReport, ReferenceGate
 from coverage_fleet.control.terminal import terminal_for_vehicle
+from coverage_fleet.fleet.limit_check import limit_violations
 from coverage_fleet.fleet.mission import Mission, RobotEntry, simulation_step
 from coverage_fleet.fleet.settling import SettleMonitor
-from coverage_fleet.fleet.trial import LimitViolation, RobotLog, TrialLog
+from coverage_fleet.fleet.trial import RobotLog, TrialLog
 from coverage_fleet.geometry.partition import compute_partition
 from coverage_fleet.interrupts import raise_if_interrupted
 from coverage_fleet.vehicles.base import OdometryValues
-
-#: Limits are checked with this slack (absolute, in the limit's SI unit): the plant is
-#: integrated more finely than the controller's model, so tiny differences are expected.
-LIMIT_TOLERANCE = 1e-4
 
 
 @dataclass(frozen=True)
@@ -98,43 +95,6 @@ def _build_robot(
             position_indices=tuple(model.position_indices),
         ),
     )
-
-
-def limit_violations(
-    robot: _SimulatedRobot, x: np.ndarray, u: np.ndarray, region_A, region_b, t: float
-) -> list[LimitViolation]:
-    """Every state, input and geofence limit that x and u exceed (beyond LIMIT_TOLERANCE)."""
-    model = robot.entry.vehicle.model
-    name = robot.entry.name
-    found = []
-    x_low, x_high = model.state_bounds()
-    u_low, u_high = model.input_bounds()
-    for values, low, high, names in (
-        (x, x_low, x_high, model.state_names),
-        (u, u_low, u_high, model.input_names),
-    ):
-        for k, label in enumerate(names):
-            if values[k] < low[k] - LIMIT_TOLERANCE:
-                found.append(LimitViolation(t, name, f"{label} >= {low[k]:g}", values[k], low[k]))
-            if values[k] > high[k] + LIMIT_TOLERANCE:
-                found.append(LimitViolation(t, name, f"{label} <= {high[k]:g}", values[k], high[k]))
-    for label, (G, g), vector in (
-        ("state polytope", model.state_polytope(), x),
-        ("input polytope", model.input_polytope(), u),
-        (
-            "region (footprint inside)",
-            (region_A, region_b - model.footprint_radius),
-            model.position(x),
-        ),
-    ):
-        if len(g):
-            excess = G @ vector - g
-            row = int(np.argmax(excess))
-            if excess[row] > LIMIT_TOLERANCE:
-                found.append(
-                    LimitViolation(t, name, f"{label} row {row}", float(G[row] @ vector), g[row])
-                )
-    return found
 
 
 def _planar_speed(robot: _SimulatedRobot, x: np.ndarray) -> float:

@@ -26,8 +26,8 @@ from rclpy.node import Node
 from std_msgs.msg import Float64MultiArray, String, UInt32
 
 from coverage_fleet.control.gate import GateOpening
+from coverage_fleet.fleet.limit_check import limit_violations
 from coverage_fleet.fleet.mission import Mission, load_mission, mission_as_run
-from coverage_fleet.fleet.simulation import limit_violations
 from coverage_fleet.fleet.trial import RobotLog, TrialLog, write_trial
 
 from . import qos, topics
