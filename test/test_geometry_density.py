@@ -413,3 +413,37 @@ def test_config_checks_against_the_region() -> None:
     far = {"kind": "gaussian_bumps",
            "bumps": [{"weight": 1, "mean": [100, 100], "covariance": [[1, 0], [0, 1]]}]}
     assert any("outside the region" in m for m in config_problems(far, region=SQUARE))
+
+
+def test_raster_edges_through_grid_corners_and_along_grid_lines() -> None:
+    """Edges that pass exactly through grid corners (a row and a column crossing at the
+    same point), run along grid lines, or start on them: still the exact integral."""
+    rng = np.random.default_rng(13)
+    values = rng.uniform(0.0, 2.0, size=(9, 11))
+    origin = np.array([0.0, 0.0])
+    polygon = np.array([[1.0, 1.0], [6.0, 1.0], [9.0, 4.0], [9.0, 7.0], [4.0, 8.0],
+                        [1.0, 5.0]])
+    about = np.array([4.5, 3.5])
+    raster = RasterDensity(values, origin=origin, resolution=1.0)
+    got = raster.moments([polygon], about[None])
+    mass, first, polar = exact_raster_moments(values, origin, 1.0, polygon, about)
+    assert got.mass[0] == pytest.approx(mass, rel=1e-12)
+    np.testing.assert_allclose(got.first[0], first, rtol=1e-11, atol=1e-12 * mass)
+    assert got.polar[0] == pytest.approx(polar, rel=1e-11)
+
+
+def test_raster_moments_do_not_depend_on_the_order_of_the_polygons() -> None:
+    """The cells are integrated in a locality order of their own; each polygon's moments
+    must come back in its own slot whatever order the caller used (common practice)."""
+    rng = np.random.default_rng(14)
+    raster = RasterDensity(rng.uniform(0.5, 1.5, size=(60, 80)), origin=[0, 0],
+                           resolution=0.05)
+    agents = rng.uniform([0.1, 0.1], [3.9, 2.9], size=(50, 2))
+    cells = voronoi_cells(agents, SQUARE)
+    straight = raster.moments(cells, agents)
+    shuffle = rng.permutation(len(cells))
+    shuffled = raster.moments([cells[i] for i in shuffle], agents[shuffle])
+    np.testing.assert_allclose(shuffled.mass, straight.mass[shuffle], rtol=1e-13)
+    np.testing.assert_allclose(shuffled.first, straight.first[shuffle], rtol=1e-12,
+                               atol=1e-15)
+    np.testing.assert_allclose(shuffled.polar, straight.polar[shuffle], rtol=1e-12)

@@ -292,3 +292,29 @@ def test_cost_splits_by_the_parallel_axis_theorem(kind) -> None:
     split = about_centroids.polar + result.masses * gap
     np.testing.assert_allclose(result.polar_moments, split, rtol=1e-10)
     assert result.cost == pytest.approx(split.sum(), rel=1e-10)
+
+
+@pytest.mark.parametrize("layout", ["uniform", "clustered", "line"])
+def test_many_agents_match_shapely_in_every_layout(layout) -> None:
+    """Fleet scale (400 agents) for the bucket search: a uniform spread, a dense cluster
+    inside a sparse spread (buckets far from two per cell) and 200 agents on one line
+    (no triangulation exists); every cell against shapely.voronoi_polygons (GEOS)."""
+    rng = np.random.default_rng(4)
+    region = PENTAGON
+    low, high = np.array(region.bounds[:2]), np.array(region.bounds[2:])
+    if layout == "line":
+        t = np.sort(rng.uniform(0.05, 0.95, size=200))
+        points = np.array([0.5, 0.5]) + np.outer(t, [3.2, 2.6])
+    else:
+        spread = rng.uniform(low, high, size=(2000, 2))
+        points = spread[region.contains(spread)][:400]
+        if layout == "clustered":
+            points[:300] = np.array([2.0, 1.5]) + rng.normal(scale=0.05, size=(300, 2))
+    assert region.contains(points).all()
+    cells = voronoi_cells(points, region)
+    references = shapely_cells(points, region)
+    for cell, reference in zip(cells, references, strict=True):
+        ours = shapely.Polygon(cell)
+        assert ours.is_valid
+        assert ours.symmetric_difference(reference, grid_size=1e-12).area < 1e-9 * region.area
+    assert sum(shapely.Polygon(c).area for c in cells) == pytest.approx(region.area, rel=1e-12)

@@ -27,6 +27,7 @@ ROSDEP_KEY = {
     "PIL": "python3-pil",
     "shapely": "python3-shapely",
     "casadi": "python3-casadi-pip",
+    "numba": "python3-numba",
     "pytest": "python3-pytest",
     "hypothesis": "python3-hypothesis",
 }

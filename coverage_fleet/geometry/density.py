@@ -30,6 +30,11 @@ import numpy as np
 from coverage_fleet.errors import ConfigError, Problem
 from coverage_fleet.geometry.polygon import clip_halfplane
 from coverage_fleet.geometry.quadrature import fan_quadrature
+from coverage_fleet.geometry.raster_moments import (
+    boundary_sums,
+    cell_table,
+    locality_order,
+)
 from coverage_fleet.geometry.region import COORDINATE_MAX, ConvexRegion
 from coverage_fleet.inputs.fields import (
     Collector,
@@ -212,44 +217,18 @@ class GaussianBumpsDensity(Density):
 
 @dataclass(frozen=True)
 class _Grid:
-    """A raster grid and, per cell (r, c), what the scanline integration reads in one
-    gather: the row's prefix sums up to the cell's west edge and the cell's own value."""
+    """A raster grid and the per-cell table the boundary integration reads
+    (raster_moments.cell_table)."""
 
     values: np.ndarray  # (rows, cols), row 0 = south
     origin: np.ndarray  # south-west corner, metres
     resolution: float
-    #: Four flat (rows * cols) arrays: sum_{j<c} phi_j, sum_{j<c} phi_j (j + 1/2),
-    #: sum_{j<c} phi_j ((j+1)^3 - j^3)/3 (x in cells), phi_c.
-    table: tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]
+    table: np.ndarray  # (rows * cols, 4)
 
     @classmethod
     def build(cls, values: np.ndarray, origin: np.ndarray, resolution: float) -> _Grid:
-        cols = values.shape[1]
-        j = np.arange(cols, dtype=float)
-
-        def exclusive_prefix(weighted: np.ndarray) -> np.ndarray:
-            return np.cumsum(weighted, axis=1) - weighted
-
-        table = (
-            exclusive_prefix(values).ravel(),
-            exclusive_prefix(values * (j + 0.5)).ravel(),
-            exclusive_prefix(values * (((j + 1.0) ** 3 - j**3) / 3.0)).ravel(),
-            np.ascontiguousarray(values).ravel(),
-        )
-        return cls(values=values, origin=origin, resolution=resolution, table=table)
-
-
-def _integers_between(low: np.ndarray, high: np.ndarray, limit: int
-                      ) -> tuple[np.ndarray, np.ndarray]:
-    """All integers k with low[i] < k < high[i] and 0 <= k <= limit, as (i, k) pairs."""
-    first = np.clip(np.floor(low) + 1, 0, limit + 1).astype(np.int64)
-    stop = np.clip(np.ceil(high), 0, limit + 1).astype(np.int64)
-    span = np.maximum(stop - first, 0)
-    owner = np.repeat(np.arange(len(low)), span)
-    values = (first[owner] + np.arange(span.sum())
-              - np.repeat(np.cumsum(span) - span, span)).astype(float)
-    inner = (values > low[owner]) & (values < high[owner])
-    return owner[inner], values[inner]
+        return cls(values=values, origin=origin, resolution=resolution,
+                   table=cell_table(values))
 
 
 class RasterDensity(Density):
@@ -343,86 +322,20 @@ class RasterDensity(Density):
         grid = self._grid_for(stacked.min(axis=0), stacked.max(axis=0))
         h = grid.resolution
         rows, cols = grid.values.shape
-
         # Green's theorem: for a CCW polygon P, integral over P of y^b x^a phi dA equals
         # the boundary integral of y^b F_a(x, y) dy, with F_a(x, y) = integral from the
         # grid's west edge to x of s^a phi(s, y) ds: per-row prefix sums. Each edge is cut
         # where it crosses a row or column boundary; on each piece phi is one cell value,
-        # F_a is a polynomial along the piece and the piece's integral is closed-form.
-        lengths = np.array([len(polygons[i]) for i in used])
-        stop = np.cumsum(lengths)
-        following = np.arange(stop[-1]) + 1
-        following[stop - 1] = stop - lengths
-        local = (np.concatenate([polygons[i] for i in used]) - grid.origin) / h
-        ends = local[following]
-        edge_owner = np.repeat(np.asarray(used, dtype=np.int64), lengths)
-        rising = ends[:, 1] != local[:, 1]  # horizontal edges add nothing (dy = 0)
-        a, b, edge_owner = local[rising], ends[rising], edge_owner[rising]
-        delta = b - a
-
-        # Cut parameters along each edge (0 and 1, plus row and column crossings).
-        row_edge, row_cut = _integers_between(np.minimum(a[:, 1], b[:, 1]),
-                                              np.maximum(a[:, 1], b[:, 1]), rows)
-        col_edge, col_cut = _integers_between(np.minimum(a[:, 0], b[:, 0]),
-                                              np.maximum(a[:, 0], b[:, 0]), cols)
-        edges = np.arange(len(a))
-        piece_edge = np.concatenate([edges, edges, row_edge, col_edge])
-        fraction = np.concatenate([
-            np.zeros(len(a)), np.ones(len(a)),
-            (row_cut - a[row_edge, 1]) / delta[row_edge, 1],
-            (col_cut - a[col_edge, 0]) / delta[col_edge, 0],
-        ])
-        order = np.argsort(piece_edge * 2.0 + fraction, kind="stable")
-        piece_edge, fraction = piece_edge[order], fraction[order]
-        same = piece_edge[1:] == piece_edge[:-1]
-        edge_of = piece_edge[:-1][same]
-        f0, f1 = fraction[:-1][same], fraction[1:][same]
-        thick = (f1 - f0) * delta[edge_of, 1]  # signed: up on the east side, down on the west
-        middle_f = 0.5 * (f0 + f1)
-        middle = a[edge_of, 1] + middle_f * delta[edge_of, 1]
-        u_mid = a[edge_of, 0] + middle_f * delta[edge_of, 0]
-        row = np.floor(middle).astype(np.int64)
-        # Pieces outside the grid's rows add nothing; west of it F = 0, east of it F is the
-        # row's total and does not change along the piece (slope 0 there).
-        thick[(row < 0) | (row >= rows)] = 0.0
-        np.clip(row, 0, rows - 1, out=row)
-        clamped = (u_mid <= 0.0) | (u_mid >= cols)
-        k = np.where(clamped, 0.0, delta[edge_of, 0] / delta[edge_of, 1])  # du/dv
-        np.clip(u_mid, 0.0, cols, out=u_mid)
-        c = np.minimum(np.floor(u_mid), cols - 1)
-        at = row * cols + c.astype(np.int64)
-
-        prefix_mass, prefix_x, prefix_xx, cell_value = grid.table
-        spread = thick * thick / 12.0  # variance of v along the piece
-        mean_vv = middle * middle + spread
-        k_spread = k * spread
-        kk_spread = k * k_spread
-        offset = u_mid - c
-        t_prefix = thick * prefix_mass.take(at)
-        t_phi = thick * cell_value.take(at)
-        # Means over the piece of u^2 - c^2, u^3 - c^3, (u - c) v, (u - c) v^2 with u
-        # linear in v and v uniform along the piece.
-        totals = np.stack([
-            t_prefix + t_phi * offset,
-            thick * prefix_x.take(at) + (0.5 * t_phi) * (offset * (u_mid + c) + kk_spread),
-            thick * prefix_xx.take(at) + (t_phi / 3.0) * (
-                offset * (u_mid * u_mid + u_mid * c + c * c) + 3.0 * u_mid * kk_spread),
-            t_prefix * middle + t_phi * (offset * middle + k_spread),
-            t_prefix * mean_vv + t_phi * (offset * mean_vv + 2.0 * middle * k_spread),
-        ]) * np.array([h**2, h**3, h**4, h**3, h**4])[:, None]
-
-        # Pieces come grouped by edge and edges by polygon: sum each polygon's run.
-        piece_owner = edge_owner[edge_of]
-        who = np.asarray(used)
-        first_piece = np.searchsorted(piece_owner, who)
-        has_pieces = np.zeros(len(used), dtype=bool)
-        has_pieces[:-1] = first_piece[1:] > first_piece[:-1]
-        has_pieces[-1] = first_piece[-1] < len(piece_owner)
+        # F_a is a polynomial along the piece and the piece's integral is closed-form
+        # (raster_moments.boundary_sums walks the pieces).
+        # Neighbouring cells one after another: they share edges and raster rows.
+        order = np.asarray(used)[locality_order(about[used])]
+        lengths = np.array([len(polygons[i]) for i in order])
+        starts = np.concatenate([[0], np.cumsum(lengths)])
+        local = (np.concatenate([polygons[i] for i in order]) - grid.origin) / h
+        scale = np.array([h**2, h**3, h**4, h**3, h**4])[:, None]
         sums = np.zeros((5, count))
-        if len(piece_owner):
-            runs = np.add.reduceat(totals, np.minimum(first_piece, len(piece_owner) - 1),
-                                   axis=1)
-            sums[:, who[has_pieces]] = runs[:, has_pieces]
+        sums[:, order] = boundary_sums(local, starts, grid.table, rows, cols) * scale
         mass, sx, sxx, sy, syy = sums
         second = sxx + syy
         a = about - grid.origin  # about, in the grid's local metres

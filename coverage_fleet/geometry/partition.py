@@ -1,10 +1,10 @@
 """Bounded Voronoi partition of a convex region among agents, with per-cell moments.
 
 Cell V_i = {q in region : ||q - p_i|| <= ||q - p_j|| for all j}, built exactly by clipping
-the region with the bisector half-plane of each Voronoi neighbour. Neighbour candidates
-come from the Delaunay triangulation (every Voronoi neighbour is a Delaunay neighbour;
-Okabe, Boots, Sugihara & Chiu, "Spatial Tessellations", 2nd ed., 2000, ch. 2), so a cell
-costs O(its neighbours), not O(n). Collinear or very few agents fall back to all pairs.
+the region with the bisector half-plane of every agent that can still cut it; agents are
+found through a grid of buckets, nearest rings first, and the search stops once the next
+ring is beyond twice the cell's farthest vertex (cell_clipping.py), so a cell costs about
+O(its neighbours), not O(n), for any layout of the agents (collinear ones included).
 
 Defined behaviour at the edges of the input space (each tested):
 - Coincident agents (closer than COINCIDENCE_TOLERANCE x region extent): the lower index
@@ -26,8 +26,9 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy.spatial import Delaunay, QhullError, cKDTree
+from scipy.spatial import cKDTree
 
+from coverage_fleet.geometry.cell_clipping import clip_cells
 from coverage_fleet.geometry.density import Density
 from coverage_fleet.geometry.polygon import (
     EMPTY_POLYGON,
@@ -78,108 +79,20 @@ def _leaders(points: np.ndarray, tol: float) -> np.ndarray:
     return leader
 
 
-def _neighbour_table(points: np.ndarray) -> np.ndarray:
-    """(m, K) candidate Voronoi neighbours of each point, nearest first, padded with -1."""
-    m = len(points)
-    table = None
-    if m >= 3:
-        try:
-            tri = Delaunay(points)
-        except QhullError:  # all collinear: no triangulation exists
-            tri = None
-        if tri is not None and len(tri.coplanar) == 0:
-            indptr, indices = tri.vertex_neighbor_vertices
-            counts = np.diff(indptr)
-            table = np.full((m, int(counts.max())), -1, dtype=np.int64)
-            rows = np.repeat(np.arange(m), counts)
-            slots = np.arange(len(indices)) - np.repeat(indptr[:-1], counts)
-            table[rows, slots] = indices
-    if table is None:
-        table = np.array([np.delete(np.arange(m), i) for i in range(m)], dtype=np.int64)
-        table = table.reshape(m, max(m - 1, 0))
-    safe = np.where(table >= 0, table, 0)
-    gap = points[safe] - points[:, None, :]
-    distance = np.where(table >= 0, np.einsum("ijk,ijk->ij", gap, gap), np.inf)
-    return np.take_along_axis(table, np.argsort(distance, axis=1, kind="stable"), axis=1)
-
-
-def _clip_batch(polygons: np.ndarray, counts: np.ndarray, side: np.ndarray) -> None:
-    """In place: clip polygon i to where its signed distance `side` is <= 0, for a batch
-    of cells at once (Sutherland-Hodgman), so the cost is a fixed number of array
-    operations per neighbour rank rather than per cell.
-
-    Polygons are stored closed: polygons[i, counts[i]] repeats polygons[i, 0], so every
-    edge s -> s + 1 is a plain slice. The width must leave room for one more vertex plus
-    the closing copy (a convex polygon cut by a line gains at most one vertex)."""
-    n, width, _ = polygons.shape
-    edge = np.arange(width - 1)[None, :] < counts[:, None]
-    start, finish = side[:, :-1], side[:, 1:]
-    start_in = start <= 0.0
-    crossing = edge & (start_in != (finish <= 0.0))
-    t = np.divide(start, start - finish, out=np.zeros_like(start), where=crossing)
-    head, tail = polygons[:, :-1], polygons[:, 1:]
-    cut = head + t[..., None] * (tail - head)
-    # Walk each boundary once: a vertex if kept, then the crossing on its outgoing edge.
-    candidates = np.stack([head, cut], axis=2).reshape(n, -1, 2)
-    keep = np.stack([start_in & edge, crossing], axis=2).reshape(n, -1)
-    slot = np.cumsum(keep, axis=1) - 1
-    row = np.broadcast_to(np.arange(n)[:, None], keep.shape)
-    polygons[row[keep], slot[keep]] = candidates[keep]
-    new_counts = keep.sum(axis=1)
-    polygons[np.arange(n), new_counts] = polygons[:, 0]
-    counts[:] = np.where(new_counts >= 3, new_counts, 0)
-
-
-def _drop_repeated_vertices(polygons: np.ndarray, counts: np.ndarray, tol: float
-                            ) -> tuple[np.ndarray, np.ndarray]:
-    """Remove vertices within `tol` of their predecessor. A bisector through an existing
-    vertex leaves a copy of it a rounding error away; harmless for moments, but consumers
-    (markers, other geometry libraries) want simple polygons."""
-    n, width, _ = polygons.shape
-    slot = np.arange(width)
-    valid = slot[None, :] < counts[:, None]
-    previous = np.where(slot[None, :] == 0, np.maximum(counts[:, None] - 1, 0),
-                        slot[None, :] - 1)
-    gap = np.linalg.norm(polygons - polygons[np.arange(n)[:, None], previous], axis=2)
-    keep = valid & (gap > tol)
-    if np.array_equal(keep, valid):
-        return polygons, counts
-    order = np.argsort(~keep, axis=1, kind="stable")
-    new_counts = keep.sum(axis=1)
-    return (np.take_along_axis(polygons, order[..., None], axis=1),
-            np.where(new_counts >= 3, new_counts, 0))
-
-
 def voronoi_cells(positions: np.ndarray, region: ConvexRegion) -> list[np.ndarray]:
     """Bounded Voronoi cells (CCW vertex arrays) of positions already inside the region,
     with the coincidence tie rule applied (losers get an empty (0, 2) cell)."""
     pts = _validated_positions(positions)
     leader = _leaders(pts, COINCIDENCE_TOLERANCE * region.extent)
     index = np.flatnonzero(leader)
-    kept = pts[index]
-    table = _neighbour_table(kept)
-    m, k = len(kept), len(region.vertices)
-    # Work about each agent's own position, for precision far from the map origin.
-    polygons = np.zeros((m, k + table.shape[1] + 2, 2))
-    polygons[:, :k] = region.vertices[None, :, :] - kept[:, None, :]
-    polygons[:, k] = polygons[:, 0]
-    counts = np.full(m, k)
-    # Bisector of p and p_j about p: normal . q <= |normal|^2 / 2.
-    normals = kept[np.maximum(table, 0)] - kept[:, None, :]
-    offsets = 0.5 * np.einsum("ijk,ijk->ij", normals, normals)
-    for rank in range(table.shape[1]):
-        rows = np.flatnonzero(table[:, rank] >= 0)
-        if len(rows) == 0:
-            break
-        cell, batch_counts = polygons[rows], counts[rows]
-        side = np.einsum("ivk,ik->iv", cell, normals[rows, rank]) - offsets[rows, rank, None]
-        _clip_batch(cell, batch_counts, side)
-        polygons[rows], counts[rows] = cell, batch_counts
-    polygons, counts = _drop_repeated_vertices(polygons, counts, 1e-12 * region.extent)
+    vertices, counts = clip_cells(np.ascontiguousarray(pts[index]),
+                                  np.ascontiguousarray(region.vertices, dtype=float),
+                                  1e-12 * region.extent)
     cells = [EMPTY_POLYGON] * len(pts)
-    for local in range(m):
-        if counts[local] >= 3:
-            cells[index[local]] = polygons[local, : counts[local]] + kept[local]
+    ends = np.cumsum(counts).tolist()
+    for owner, count, end in zip(index.tolist(), counts.tolist(), ends, strict=True):
+        if count:
+            cells[owner] = vertices[end - count:end]
     return cells
 
 
