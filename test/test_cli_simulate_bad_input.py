@@ -104,6 +104,10 @@ FAULTS = [
     ("empty-roster", set_key("roster", []), "roster", "non-empty list"),
     ("vehicle-file-does-not-load", set_key("roster[0].vehicle", "bad_rover.yaml"),
      "roster[0].vehicle", "does not load"),
+    ("settle-below-gate-tolerances", set_key("settle.distance", 0.05), "settle.distance",
+     "use at least 0.07 m"),
+    ("settle-speed-below-noise", set_key("simulation.measurement_noise_std", 0.01),
+     "settle.speed", "below the speed at which controllers chase the noise"),
 ]
 
 

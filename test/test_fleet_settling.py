@@ -116,12 +116,3 @@ def test_a_mission_that_can_never_settle_is_refused_with_file_and_key(tmp_path: 
         load_mission(path)
     assert f"{path}: settle.distance: 0.05 m can never be reached for sure" in str(caught.value)
 
-
-def test_the_old_gate_key_is_refused_with_a_pointer(tmp_path: Path) -> None:
-    raw = yaml.safe_load((MISSIONS / "solar_row_quick_check.yaml").read_text())
-    raw["gate"]["settle_distance"] = 0.1
-    path = tmp_path / "old.yaml"
-    path.write_text(yaml.safe_dump(raw))
-    with pytest.raises(ConfigError) as caught:
-        load_mission(path)
-    assert f"{path}: gate.settle_distance: moved to settle.distance" in str(caught.value)

@@ -86,6 +86,18 @@ def test_a_missing_mission_file_is_reported_as_a_problem(tmp_path: Path) -> None
     assert f"{tmp_path / 'none.yaml'}: file not found" in output and "Traceback" not in output
 
 
+def test_gate_parameters_that_can_never_settle_are_refused(mission: Path) -> None:
+    # The gate may stay shut with a robot up to progress + noise tolerance (0.05 + 0.02 m by
+    # default) from its centroid (fleet/settling.py), so 0.03 m can never be relied on.
+    result = run_node(
+        "coverage_fleet.ros.gate_node", f"mission_file:={mission}", "settle_distance:=0.03"
+    )
+    assert result.returncode == 2
+    output = result.stdout + result.stderr
+    assert "reference_gate parameters: settle_distance: 0.03 m can never be reached" in output
+    assert "Traceback" not in output
+
+
 def test_a_controller_for_a_robot_not_in_the_roster_is_refused(mission: Path) -> None:
     result = run_node(
         "coverage_fleet.ros.controller_node", f"mission_file:={mission}", "robot_name:=ghost"
