@@ -15,10 +15,11 @@ from datetime import UTC, datetime
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
-from coverage_fleet.errors import ConfigError, Problem
+from coverage_fleet.errors import ConfigError
+from coverage_fleet.inputs.fields import Collector, number_fault
 
 from .graph import SIMULATION_MODES, SimulationMode, fleet_nodes, select_nodes
-from .launcher import SAFETY_CAUTION, GraphProcesses, ros_environment
+from .launcher import SAFETY_CAUTION, GraphProcesses, StopSignals, ros_environment
 
 if TYPE_CHECKING:
     from coverage_fleet.fleet.mission import Mission
@@ -68,20 +69,18 @@ def register(subparsers: argparse._SubParsersAction) -> None:
     parser.set_defaults(handler=run)
 
 
-def _overrides(items: list[str]) -> dict[str, Path]:
+def _overrides(items: list[str], options: Collector) -> dict[str, Path]:
+    """`--vehicle ROBOT=FILE` items by robot (the files themselves are checked with the
+    mission, see with_vehicle_overrides)."""
     found = {}
-    problems = []
     for item in items:
         robot, sep, path = item.partition("=")
         if not sep or not robot or not path:
-            problems.append(f"--vehicle {item!r}: expected ROBOT=FILE")
-            continue
-        if not Path(path).is_file():
-            problems.append(f"--vehicle {item!r}: no such file {path}")
-            continue
-        found[robot] = Path(path)
-    if problems:
-        raise ConfigError([Problem("command line", "--vehicle", p) for p in problems])
+            options.add("--vehicle", f"{item!r}: expected ROBOT=FILE")
+        elif robot in found:
+            options.add("--vehicle", f"{item!r}: {robot!r} is given twice")
+        else:
+            found[robot] = Path(path)
     return found
 
 
@@ -118,13 +117,28 @@ def _start_recorder(mission_file: Path):
 
 
 def run(args: argparse.Namespace) -> int:
-    from coverage_fleet.fleet.mission import load_mission
+    from coverage_fleet.fleet.mission import (
+        DURATION_MAX,
+        load_mission,
+        with_vehicle_overrides,
+    )
 
-    mission = load_mission(args.mission)
+    # Everything is checked before anything starts, with the checks `simulate` applies.
+    options = Collector("command line")
+    if args.duration != 0.0:
+        options.check("--duration", number_fault(
+            args.duration, minimum=0.0, exclusive_minimum=True, maximum=DURATION_MAX))
+    overrides = _overrides(args.vehicle, options)
+    try:
+        mission = load_mission(args.mission)
+    except ConfigError as error:
+        options.extend(error)
+        options.raise_if_any()
+    mission = with_vehicle_overrides(mission, overrides, options)
     result = run_graph(
         mission,
         args.sim_mode if args.headless_sim else None,
-        _overrides(args.vehicle),
+        overrides,
         duration=args.duration,
         out=args.out,
         record=not args.no_record,
@@ -174,6 +188,22 @@ def run_graph(
     print(SAFETY_CAUTION)
     for note in notes:
         print(f"launch: set {note}")
+    with StopSignals() as stop_signals:
+        return _run_and_record(
+            mission, simulation, specs, out, log_dir, env, record, stop_signals
+        )
+
+
+def _run_and_record(
+    mission: Mission,
+    simulation: SimulationMode | None,
+    specs: list,
+    out: Path,
+    log_dir: Path,
+    env: dict[str, str],
+    record: bool,
+    stop_signals: StopSignals,
+) -> GraphRun:
     recorder, stop_recorder = _start_recorder(mission.source) if record else (None, None)
     graph = GraphProcesses(log_dir, env)
     started = time.monotonic()
@@ -193,11 +223,17 @@ def run_graph(
             flush=True,
         )
         status = _watch(graph)
-    except KeyboardInterrupt:
-        print("launch: interrupted, stopping the graph", file=sys.stderr, flush=True)
+    except KeyboardInterrupt as interrupt:
+        name = getattr(interrupt, "signal_name", "SIGINT")
+        print(
+            f"launch: {name}: stopping the graph (again to kill what is still running)",
+            file=sys.stderr, flush=True,
+        )
         status = EXIT_INTERRUPTED
     finally:
-        graph.stop()
+        # From here on a stop signal only hurries the stop: no node is ever left running.
+        stop_signals.stopping()
+        graph.stop(hurry=lambda: stop_signals.hurry)
         if stop_recorder is not None:
             stop_recorder()
     print(f"launch: all processes stopped after {time.monotonic() - started:.1f} s")

@@ -1,6 +1,11 @@
 """The package's own launcher: starts the nodes of coverage_fleet.cli.graph as separate
 processes where no ROS 2 install (and so no `ros2 launch`) exists, watches them and stops
-them all on Ctrl-C.
+them all on Ctrl-C, SIGTERM or SIGHUP.
+
+The launcher owns its children: each node process is asked (PARENT_PID_VARIABLE, read by
+coverage_fleet.ros.runtime) to receive SIGTERM from Linux when the launcher dies, even by
+SIGKILL; while stopping, a further Ctrl-C (or SIGTERM/SIGHUP) does not abandon the nodes but
+cuts the grace periods short and kills what is still running (see `StopSignals`).
 
 Network safety first: unless the user set them, ROS_AUTOMATIC_DISCOVERY_RANGE is LOCALHOST
 (discovery stays on this machine) and ROS_DOMAIN_ID is one of our own choosing, so a test
@@ -16,12 +21,17 @@ import signal
 import subprocess
 import sys
 import time
-from collections.abc import Mapping
+from collections.abc import Callable, Mapping
 from dataclasses import dataclass
 from pathlib import Path
 from typing import TextIO
 
+from coverage_fleet.ros.launcher_contract import PARENT_PID_VARIABLE
+
 from .graph import NodeSpec, ros_arguments
+
+#: Signals that stop a run: Ctrl-C, a service manager's stop, a closed terminal.
+STOP_SIGNALS = (signal.SIGINT, signal.SIGTERM, signal.SIGHUP)
 
 SAFETY_CAUTION = (
     "Safety: robots can hurt people and damage property. Run trials only under supervision, "
@@ -65,12 +75,53 @@ class RunningNode:
         return self.process.poll()
 
 
+class RunInterrupted(KeyboardInterrupt):
+    """A stop signal arrived while the graph was running."""
+
+    def __init__(self, number: int) -> None:
+        super().__init__(signal.Signals(number).name)
+        self.signal_name = signal.Signals(number).name
+
+
+class StopSignals:
+    """While running: SIGINT, SIGTERM and SIGHUP raise RunInterrupted (a clean stop). Once
+    stopping has begun (`stopping()`), they only set `hurry`: the stop goes on, with the
+    grace periods cut short, and the trial is still written."""
+
+    def __init__(self) -> None:
+        self.hurry = False
+        self._previous = {number: signal.getsignal(number) for number in STOP_SIGNALS}
+
+    def __enter__(self) -> StopSignals:
+        for number in STOP_SIGNALS:
+            signal.signal(number, self._interrupt)
+        return self
+
+    def _interrupt(self, number: int, _frame) -> None:
+        raise RunInterrupted(number)
+
+    def _hurry(self, number: int, _frame) -> None:
+        self.hurry = True
+        print(
+            f"launch: {signal.Signals(number).name} again: killing the nodes still running",
+            file=sys.stderr, flush=True,
+        )
+
+    def stopping(self) -> None:
+        for number in STOP_SIGNALS:
+            signal.signal(number, self._hurry)
+
+    def __exit__(self, *exc) -> None:
+        for number, handler in self._previous.items():
+            signal.signal(number, handler)
+
+
 class GraphProcesses:
     """Starts, watches and stops the processes of one graph."""
 
     def __init__(self, log_dir: Path, env: Mapping[str, str]) -> None:
         self.log_dir = Path(log_dir)
-        self.env = dict(env)
+        self.env = {**env, PARENT_PID_VARIABLE: str(os.getpid())}
         self.nodes: list[RunningNode] = []
 
     def start(self, specs: list[NodeSpec]) -> None:
@@ -99,8 +150,9 @@ class GraphProcesses:
                 found.append(node)
         return found
 
-    def stop(self) -> None:
-        """SIGINT to every node still running, then SIGTERM, then SIGKILL."""
+    def stop(self, hurry: Callable[[], bool] = lambda: False) -> None:
+        """SIGINT to every node still running, then SIGTERM, then SIGKILL, each after a
+        grace period that ends early when `hurry()` turns true (a second Ctrl-C)."""
         for sig in (signal.SIGINT, signal.SIGTERM, signal.SIGKILL):
             alive = [n for n in self.nodes if n.returncode is None]
             if not alive:
@@ -109,7 +161,11 @@ class GraphProcesses:
                 with contextlib.suppress(ProcessLookupError):
                     os.killpg(node.process.pid, sig)
             deadline = time.monotonic() + STOP_GRACE
-            while time.monotonic() < deadline and any(n.returncode is None for n in alive):
+            while (
+                time.monotonic() < deadline
+                and any(n.returncode is None for n in alive)
+                and (sig == signal.SIGKILL or not hurry())
+            ):
                 time.sleep(0.05)
 
     def describe(self, out: TextIO) -> None:

@@ -34,6 +34,7 @@ leave later; nothing downstream assumes a fixed roster.
 
 from __future__ import annotations
 
+import copy
 import math
 from collections.abc import Mapping
 from dataclasses import dataclass, field
@@ -471,3 +472,30 @@ def mission_as_run(
     simulation["duration"] = float(duration)
     raw["simulation"] = simulation
     return raw
+
+
+def with_vehicle_overrides(
+    mission: Mission, overrides: Mapping[str, str | Path], options: Collector
+) -> Mission:
+    """The mission with some robots' vehicle files replaced (the launcher's `--vehicle
+    ROBOT=FILE`), checked exactly as a mission file is (vehicle file, sample time against the
+    simulation step, footprints at the initial poses, settle tolerances), before anything
+    starts. Problems land in `options` (the command line's) and are raised together. The
+    returned mission's `raw` names the files actually used, so the mission as run
+    reproduces the run."""
+    if not overrides:
+        options.raise_if_any()
+        return mission
+    raw = copy.deepcopy(mission.raw)
+    names = list(mission.robot_names)
+    for robot, path in overrides.items():
+        if robot not in names:
+            options.add("--vehicle", f"{robot!r} is not in the roster ({', '.join(names)})")
+            continue
+        raw["roster"][names.index(robot)]["vehicle"] = str(Path(path).resolve())
+    try:
+        changed = mission_from_mapping(raw, mission.source)
+    except ConfigError as error:
+        options.extend(error)
+    options.raise_if_any()
+    return changed

@@ -27,6 +27,7 @@ from rclpy.node import Node
 from rclpy.signals import SignalHandlerOptions
 
 from coverage_fleet.errors import ConfigError
+from coverage_fleet.ros.launcher_contract import PARENT_PID_VARIABLE
 
 EXIT_BAD_INPUT = 2
 
@@ -90,6 +91,23 @@ class StopSignals:
         raise StopRequested
 
 
+PR_SET_PDEATHSIG = 1  # from <linux/prctl.h>
+
+
+def die_with_launcher() -> None:
+    """When started by the package's launcher, ask Linux to send this process SIGTERM (a
+    clean stop, see StopSignals) when the launcher dies, even by SIGKILL, so that no node
+    is left commanding a robot on its own. If the launcher is already gone, stop now."""
+    launcher = os.environ.get(PARENT_PID_VARIABLE)
+    if not launcher or not sys.platform.startswith("linux"):
+        return
+    import ctypes
+
+    ctypes.CDLL(None, use_errno=True).prctl(PR_SET_PDEATHSIG, signal.SIGTERM, 0, 0, 0)
+    if str(os.getppid()) != launcher:
+        os.kill(os.getpid(), signal.SIGTERM)
+
+
 def run_nodes(
     factories: Sequence[Callable[[], Node]],
     program: str,
@@ -105,6 +123,7 @@ def run_nodes(
         signal_handler_options=SignalHandlerOptions.NO,
     )
     stop_signals = StopSignals()
+    die_with_launcher()
     nodes: list[Node] = []
     status = 0
     try:
