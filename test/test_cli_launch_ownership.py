@@ -10,6 +10,7 @@ trial is written. Waits are bounded by a patience limit (a hang fails), never ti
 
 from __future__ import annotations
 
+import contextlib
 import os
 import re
 import signal
@@ -70,10 +71,8 @@ class Launcher:
 
     def kill_everything(self) -> None:
         for pid in [self.process.pid, *self.node_pids()]:
-            try:
+            with contextlib.suppress(ProcessLookupError):
                 os.kill(pid, signal.SIGKILL)
-            except ProcessLookupError:
-                pass
 
 
 def running(pid: int) -> bool:
