@@ -16,11 +16,11 @@ import re
 import signal
 import subprocess
 import sys
-import threading
 import time
 from pathlib import Path
 
 import pytest
+from support_processes import WatchedProcess
 
 pytest.importorskip("rclpy", reason="ROS 2 wheels not installed (scripts/setup_env.sh)")
 
@@ -30,46 +30,16 @@ VEHICLES = REPO / "config" / "vehicles"
 PATIENCE = 180.0
 
 
-class Launcher:
+class Launcher(WatchedProcess):
     def __init__(self, *arguments: str) -> None:
-        self.lines: list[str] = []
-        self.process = subprocess.Popen(
-            [sys.executable, "-m", "coverage_fleet.cli.main", "launch", *arguments],
-            stdout=subprocess.PIPE, stderr=subprocess.STDOUT, text=True,
+        super().__init__(
+            [sys.executable, "-m", "coverage_fleet.cli.main", "launch", *arguments], PATIENCE
         )
-        self._reader = threading.Thread(target=self._read, daemon=True)
-        self._reader.start()
-
-    def _read(self) -> None:
-        assert self.process.stdout is not None
-        for line in self.process.stdout:
-            self.lines.append(line.rstrip("\n"))
-
-    @property
-    def output(self) -> str:
-        return "\n".join(self.lines)
 
     def node_pids(self) -> list[int]:
         return [int(p) for p in re.findall(r"\bpid (\d+)", self.output)]
 
-    def wait_until(self, condition, what: str) -> None:
-        deadline = time.monotonic() + PATIENCE
-        while not condition():
-            if self.process.poll() is not None or time.monotonic() > deadline:
-                self.kill_everything()
-                pytest.fail(f"never saw {what}:\n{self.output[-3000:]}")
-            time.sleep(0.2)
-
-    def wait(self) -> int:
-        try:
-            status = self.process.wait(timeout=PATIENCE)
-        except subprocess.TimeoutExpired:
-            self.kill_everything()
-            pytest.fail(f"the launcher did not end:\n{self.output[-3000:]}")
-        self._reader.join(timeout=10)
-        return status
-
-    def kill_everything(self) -> None:
+    def cleanup(self) -> None:
         for pid in [self.process.pid, *self.node_pids()]:
             with contextlib.suppress(ProcessLookupError):
                 os.kill(pid, signal.SIGKILL)

@@ -16,14 +16,12 @@ from __future__ import annotations
 
 import os
 import signal
-import subprocess
 import sys
-import threading
-import time
 from pathlib import Path
 
 import pytest
 from support_colcon import REPO, colcon_install
+from support_processes import WatchedProcess
 
 VENDOR = Path(
     os.environ.get("COVERAGE_FLEET_ROS2_LAUNCH", REPO.parent / "shared" / "vendor" / "ros2-launch")
@@ -44,7 +42,7 @@ def install_prefix(tmp_path_factory: pytest.TempPathFactory) -> Path:
     return colcon_install(tmp_path_factory.mktemp("launch_ws"))
 
 
-class LaunchRun:
+class LaunchRun(WatchedProcess):
     """One `run_launch.py FILE name:=value ...` process with its output collected."""
 
     def __init__(self, prefix: Path, launch_file: str, **arguments: str) -> None:
@@ -64,49 +62,20 @@ class LaunchRun:
             str(prefix / "share" / "coverage_fleet" / "launch" / launch_file),
             *(f"{name}:={value}" for name, value in arguments.items()),
         ]
-        self.lines: list[str] = []
         # A process group of its own, as a shell gives a foreground job: Ctrl-C in a
         # terminal signals the whole group, and the launch service relies on that (on its own
         # SIGINT it does not forward SIGINT to its children).
-        self.process = subprocess.Popen(
-            command, env=env, stdout=subprocess.PIPE, stderr=subprocess.STDOUT, text=True,
-            start_new_session=True,
-        )
-        self._reader = threading.Thread(target=self._read, daemon=True)
-        self._reader.start()
-
-    def _read(self) -> None:
-        assert self.process.stdout is not None
-        for line in self.process.stdout:
-            self.lines.append(line.rstrip("\n"))
-
-    @property
-    def output(self) -> str:
-        return "\n".join(self.lines)
+        super().__init__(command, PATIENCE, env=env, own_group=True)
 
     def wait_for(self, text: str) -> None:
-        deadline = time.monotonic() + PATIENCE
-        while text not in self.output:
-            if self.process.poll() is not None or time.monotonic() > deadline:
-                self.stop()
-                pytest.fail(f"launch never printed {text!r}:\n{self.output[-4000:]}")
-            time.sleep(0.2)
-
-    def wait(self) -> int:
-        try:
-            status = self.process.wait(timeout=PATIENCE)
-        except subprocess.TimeoutExpired:
-            self.stop()
-            pytest.fail(f"launch did not end by itself:\n{self.output[-4000:]}")
-        self._reader.join(timeout=10)
-        return status
+        self.wait_until(lambda: text in self.output, repr(text))
 
     def interrupt(self) -> int:
         """Ctrl-C as a terminal sends it: SIGINT to the launch and every process it started."""
         os.killpg(self.process.pid, signal.SIGINT)
         return self.wait()
 
-    def stop(self) -> None:
+    def cleanup(self) -> None:
         if self.process.poll() is None:
             os.killpg(self.process.pid, signal.SIGKILL)
             self.process.wait()
