@@ -28,6 +28,8 @@ ROSDEP_KEY = {
     "shapely": "python3-shapely",
     "casadi": "python3-casadi-pip",
     "numba": "python3-numba",
+    "dask": "python3-dask-distributed-pip",
+    "distributed": "python3-dask-distributed-pip",
     "pytest": "python3-pytest",
     "hypothesis": "python3-hypothesis",
 }

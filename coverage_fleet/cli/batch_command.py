@@ -1,9 +1,12 @@
 """`coverage-fleet batch MISSION --seeds N`: the mission over many seeds from random valid
-initial poses; a table on stdout and a JSON summary."""
+initial poses; a table on stdout and a JSON summary. Seeds run in parallel on a local
+cluster with one worker per core (`--workers`), or on an existing Dask cluster
+(`--scheduler`); fleet/parallel.py says how and why."""
 
 from __future__ import annotations
 
 import argparse
+import functools
 import json
 import os
 import sys
@@ -14,6 +17,12 @@ from typing import Any
 from coverage_fleet.errors import ConfigError
 from coverage_fleet.fleet.batch import run_batch, summarise
 from coverage_fleet.fleet.mission import DURATION_MAX, SEED_MAX, load_mission_with
+from coverage_fleet.fleet.parallel import (
+    WORKERS_MAX,
+    Placement,
+    default_workers,
+    scheduler_address_fault,
+)
 from coverage_fleet.inputs.fields import Collector, integer_fault, number_fault
 from coverage_fleet.interrupts import interrupts_at_safe_points
 from coverage_fleet.report.metrics import trial_metrics
@@ -75,7 +84,34 @@ def register(subparsers: argparse._SubParsersAction) -> None:
         type=Path,
         help="summary file to write (default: trials/<mission>-batch-<UTC time>.json)",
     )
+    add_placement_options(parser)
     parser.set_defaults(handler=run)
+
+
+def add_placement_options(parser: argparse.ArgumentParser) -> None:
+    """--workers / --scheduler: where the runs execute (shared with other studies)."""
+    parser.add_argument(
+        "--workers", type=int,
+        help=f"local worker processes (default: one per core, here {default_workers()}; "
+             "1 runs everything in this process)")
+    parser.add_argument(
+        "--scheduler", metavar="ADDRESS",
+        help="run on an existing Dask cluster instead, e.g. tcp://127.0.0.1:8786 (its "
+             "workers need this package installed)")
+
+
+def placement_from(args: argparse.Namespace, options: Collector) -> Placement:
+    """The placement the command line asks for; problems go to `options`."""
+    if args.workers is not None:
+        options.check("--workers", integer_fault(args.workers, 1, WORKERS_MAX))
+    if args.scheduler is not None:
+        options.check("--scheduler", scheduler_address_fault(args.scheduler))
+        if args.workers is not None:
+            options.add("--workers", "cannot be combined with --scheduler (the cluster's "
+                        "own workers run the seeds)")
+        return Placement(scheduler=args.scheduler)
+    workers = args.workers if isinstance(args.workers, int) else default_workers()
+    return Placement(workers=max(1, workers))
 
 
 def run(args: argparse.Namespace) -> int:
@@ -86,6 +122,7 @@ def run(args: argparse.Namespace) -> int:
     if args.duration is not None:
         options.check("--duration", number_fault(
             args.duration, minimum=0.0, exclusive_minimum=True, maximum=DURATION_MAX))
+    placement = placement_from(args, options)
     mission = load_mission_with(args.mission, options)
     stamp = datetime.now(UTC).strftime("%Y%m%dT%H%M%SZ")
     out = args.json or Path("trials") / f"{mission.name}-batch-{stamp}.json"
@@ -95,19 +132,29 @@ def run(args: argparse.Namespace) -> int:
         )
     seeds = list(range(args.first_seed, args.first_seed + args.seeds))
     footprints = {e.name: e.footprint_radius for e in mission.roster}
+    print(f"batch: {len(seeds)} runs on {placement.describe()}", file=sys.stderr)
     print(table_header())
+    finished: dict[int, dict[str, Any]] = {}
+    shown = 0
 
     def show(seed: int, row: dict[str, Any]) -> None:
-        print(table_row(row), flush=True)
-        print(f"batch: run {seeds.index(seed) + 1}/{len(seeds)} done", file=sys.stderr)
+        # Rows print in seed order whatever order the workers finish in.
+        nonlocal shown
+        finished[seed] = row
+        while shown < len(seeds) and seeds[shown] in finished:
+            print(table_row(finished[seeds[shown]]), flush=True)
+            shown += 1
+        print(f"batch: run {len(finished)}/{len(seeds)} done (seed {seed})", file=sys.stderr)
 
     with interrupts_at_safe_points():
         rows = run_batch(
             mission,
             seeds,
             duration=args.duration,
-            metrics=lambda log: trial_metrics(log, mission.region, mission.density, footprints),
+            metrics=functools.partial(trial_metrics, region=mission.region,
+                                      density=mission.density, footprints=footprints),
             on_run=show,
+            placement=placement,
         )
     summary = summarise(rows, SUMMARY_KEYS)
     print("summary over", len(rows), "runs:")

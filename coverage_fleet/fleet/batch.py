@@ -10,6 +10,7 @@ import numpy as np
 
 from coverage_fleet.errors import ConfigError
 from coverage_fleet.fleet.mission import Mission
+from coverage_fleet.fleet.parallel import Placement, run_all
 from coverage_fleet.fleet.simulation import simulate_mission
 from coverage_fleet.fleet.trial import TrialLog
 
@@ -53,26 +54,43 @@ def random_initial_poses(
     return placed
 
 
+MetricsFunction = Callable[[TrialLog], dict[str, Any]]
+
+
+def run_seed(mission: Mission, job: tuple[int, float | None, MetricsFunction | None]
+             ) -> dict[str, Any]:
+    """One run: random initial poses drawn with the seed, the simulation, its metrics
+    (plus seed and initial poses). A pure function of its arguments, so it gives the same
+    row in this process or on any worker."""
+    seed, duration, metrics = job
+    poses = random_initial_poses(mission, np.random.default_rng(seed))
+    log = simulate_mission(mission, seed=seed, duration=duration, initial_poses=poses)
+    row = dict(metrics(log)) if metrics is not None else {}
+    row["seed"] = seed
+    row["initial_poses"] = {n: list(p) for n, p in poses.items()}
+    return row
+
+
 def run_batch(
     mission: Mission,
     seeds: list[int],
     duration: float | None = None,
-    metrics: Callable[[TrialLog], dict[str, Any]] | None = None,
+    metrics: MetricsFunction | None = None,
     on_run: Callable[[int, dict[str, Any]], None] | None = None,
+    placement: Placement | None = None,
 ) -> list[dict[str, Any]]:
     """One simulation per seed from random initial poses drawn with that seed; returns one
-    metrics mapping per run (`metrics(log)`, plus seed and initial poses)."""
-    rows = []
-    for seed in seeds:
-        poses = random_initial_poses(mission, np.random.default_rng(seed))
-        log = simulate_mission(mission, seed=seed, duration=duration, initial_poses=poses)
-        row = dict(metrics(log)) if metrics is not None else {}
-        row["seed"] = seed
-        row["initial_poses"] = {n: list(p) for n, p in poses.items()}
-        rows.append(row)
+    metrics mapping per run, in seed order (`metrics(log)`, plus seed and initial poses).
+    Runs execute where `placement` says (default: one after another in this process);
+    `metrics` must then be picklable (a module-level function or a functools.partial of
+    one). `on_run(seed, row)` is called as each run finishes."""
+    jobs = [(seed, duration, metrics) for seed in seeds]
+
+    def done(index: int, row: dict[str, Any]) -> None:
         if on_run is not None:
-            on_run(seed, row)
-    return rows
+            on_run(seeds[index], row)
+
+    return run_all(run_seed, mission, jobs, placement or Placement(), done)
 
 
 def summarise(rows: list[dict[str, Any]], keys: tuple[str, ...]) -> dict[str, dict[str, float]]:
