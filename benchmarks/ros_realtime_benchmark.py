@@ -60,7 +60,7 @@ def baseline_solve_times(mission_path: Path, samples: int = 20) -> list[float]:
     from coverage_fleet.control.controller import RobotController
     from coverage_fleet.control.terminal import terminal_for_vehicle
     from coverage_fleet.fleet.mission import load_mission
-    from coverage_fleet.fleet.simulation import initial_state
+    from coverage_fleet.fleet.plants import initial_state
 
     mission = load_mission(mission_path)
     times = []

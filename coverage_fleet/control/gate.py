@@ -28,6 +28,8 @@ from typing import Literal
 
 import numpy as np
 
+from coverage_fleet.control.progress import RobotProgress, judge
+
 OpeningReason = Literal["start", "progress", "roster"]
 
 
@@ -55,16 +57,6 @@ class ProgressReport:
     robot: str
     generation: int
     distance: float
-
-
-@dataclass(frozen=True)
-class RobotProgress:
-    """The gate's view of one robot in the current generation."""
-
-    distance_at_commit: float
-    distance_now: float | None
-    no_farther: bool
-    closer: bool
 
 
 @dataclass(frozen=True)
@@ -129,18 +121,11 @@ class ReferenceGate:
 
     def progress(self) -> dict[str, RobotProgress]:
         """Each committed robot's standing against its recorded distance."""
-        tol_noise = self.settings.noise_tolerance
-        tol_progress = self.settings.progress_tolerance
-        standing = {}
-        for name, at_commit in self._distance_at_commit.items():
-            now = self._distance_now.get(name)
-            standing[name] = RobotProgress(
-                distance_at_commit=at_commit,
-                distance_now=now,
-                no_farther=now is not None and now <= at_commit + tol_noise,
-                closer=now is not None and now <= at_commit - tol_progress,
-            )
-        return standing
+        tolerances = (self.settings.noise_tolerance, self.settings.progress_tolerance)
+        return {
+            name: judge(at_commit, self._distance_now.get(name), *tolerances)
+            for name, at_commit in self._distance_at_commit.items()
+        }
 
     def ready_to_open(self) -> bool:
         """The monotone-progress condition for the current generation."""

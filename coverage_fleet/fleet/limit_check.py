@@ -1,13 +1,11 @@
 """Limits a trial's states and inputs exceeded: state and input boxes, the model's
 polytopes and the region (footprint inside), with limits.TRIAL_LIMIT_TOLERANCE of slack.
 
-Used by the offline simulation and the recorder node alike, so both paths count the same
-violations.
+Run on every row by the trial assembler (fleet/trial_records.py), whichever path fed it,
+so both paths count the same violations.
 """
 
 from __future__ import annotations
-
-from typing import Protocol
 
 import numpy as np
 
@@ -16,17 +14,14 @@ from coverage_fleet.fleet.mission import RobotEntry
 from coverage_fleet.fleet.trial import LimitViolation
 
 
-class HasRosterEntry(Protocol):
-    entry: RobotEntry
-
-
 def limit_violations(
-    robot: HasRosterEntry, x: np.ndarray, u: np.ndarray, region_A, region_b, t: float
+    entry: RobotEntry, x: np.ndarray, u: np.ndarray, region_A, region_b, t: float
 ) -> list[LimitViolation]:
     """Every state, input and geofence limit that x and u exceed (beyond
-    TRIAL_LIMIT_TOLERANCE)."""
-    model = robot.entry.vehicle.model
-    name = robot.entry.name
+    TRIAL_LIMIT_TOLERANCE). An input of NaN (no command recorded for the state) is not
+    checked."""
+    model = entry.vehicle.model
+    name = entry.name
     found = []
     x_low, x_high = model.state_bounds()
     u_low, u_high = model.input_bounds()
@@ -48,7 +43,7 @@ def limit_violations(
             model.position(x),
         ),
     ):
-        if len(g):
+        if len(g) and np.all(np.isfinite(vector)):
             excess = G @ vector - g
             row = int(np.argmax(excess))
             if excess[row] > TRIAL_LIMIT_TOLERANCE:

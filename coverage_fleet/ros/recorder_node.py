@@ -16,7 +16,6 @@ from __future__ import annotations
 
 import threading
 from pathlib import Path
-from types import SimpleNamespace
 
 import numpy as np
 from diagnostic_msgs.msg import DiagnosticArray
@@ -242,9 +241,7 @@ class RecorderNode(Node):
                 robot = log.robots[entry.name]
                 for t, x, u in zip(robot.time, robot.state, robot.input, strict=True):
                     log.violations.extend(
-                        limit_violations(
-                            SimpleNamespace(entry=entry), x, u, self.region_A, self.region_b, t
-                        )
+                        limit_violations(entry, x, u, self.region_A, self.region_b, t)
                     )
             return log
 

@@ -33,7 +33,7 @@ from std_msgs.msg import String
 
 from coverage_fleet.errors import ConfigError
 from coverage_fleet.fleet.mission import RobotEntry, load_mission, simulation_step
-from coverage_fleet.fleet.simulation import initial_state
+from coverage_fleet.fleet.plants import initial_state
 
 from . import qos, topics
 from .conversions import (
