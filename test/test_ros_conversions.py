@@ -158,3 +158,15 @@ def test_partition_markers_draw_closed_cells_and_label_robots() -> None:
     assert next(m for m in markers if m.ns == "labels").text == "rover_a"
     assert {m.ns for m in markers[1:]} == {"cells", "centroids", "labels", "targets"}
     assert all(m.header.frame_id == "map" for m in markers)
+
+
+def test_solve_outcome_round_trip_keeps_the_state_time_exactly() -> None:
+    # The state time names the row of the trial log: it must survive as the same float.
+    values = cv.SolveValues("rover_a", 12.300000000000002, 0.0123, "Solve_Succeeded", True, "", 7)
+    msg = cv.solve_to_msg(values)
+    assert msg.level == msg.OK and msg.hardware_id == "rover_a"
+    assert cv.solve_from_msg(msg) == values
+    failed = cv.SolveValues("rover_a", 1.0, 0.2, "Maximum_Iterations_Exceeded", False,
+                            "previous plan", 40)
+    assert cv.solve_to_msg(failed).level == msg.WARN
+    assert cv.solve_from_msg(cv.solve_to_msg(failed)) == failed

@@ -9,12 +9,15 @@ configuration (Du, Faber & Gunzburger, "Centroidal Voronoi Tessellations", SIAM 
 41(4), 1999, section 1); the cost at gate openings must strictly fall (Cortes, Martinez,
 Karatas & Bullo, IEEE T-RA 20(2), 2004, with the gate's monotone-progress condition); a
 speed limit is checked as |p(t+dt) - p(t)| <= v_max dt (a chord is no longer than the arc).
+The offline simulation of the same mission, written by the same trial writer, is the
+reference for the trial directory's layout and for the settled positions.
 """
 
 from __future__ import annotations
 
 import csv
 import itertools
+import json
 import os
 import re
 import signal
@@ -35,6 +38,7 @@ from std_msgs.msg import UInt32  # noqa: E402
 
 from coverage_fleet.fleet.mission import load_mission  # noqa: E402
 from coverage_fleet.fleet.simulation import simulate_mission  # noqa: E402
+from coverage_fleet.report.trial import write_mission_trial  # noqa: E402
 from coverage_fleet.ros import qos, topics  # noqa: E402
 
 REPO = Path(__file__).resolve().parents[1]
@@ -142,6 +146,20 @@ def offline(mission_dir: Path):
 
 
 @pytest.fixture(scope="module")
+def offline_trial(mission_dir: Path, offline) -> tuple[Path, dict]:
+    mission = load_mission(write_mission(mission_dir))
+    return write_mission_trial(mission_dir / "offline_trial", mission, offline)
+
+
+def csv_headers(trial: Path) -> dict[str, list[str]]:
+    found = {}
+    for path in sorted(trial.rglob("*.csv")):
+        with path.open(newline="") as handle:
+            found[str(path.relative_to(trial))] = next(csv.reader(handle))
+    return found
+
+
+@pytest.fixture(scope="module")
 def faulty(mission_dir: Path) -> tuple[int, str, Path]:
     """rover_a with a slower vehicle file; drone_b's controller killed mid-run."""
     slow = mission_dir / "slow_rover.yaml"
@@ -226,6 +244,38 @@ def test_settled_positions_match_the_offline_simulation(baseline, offline) -> No
         # Stated tolerance: 0.15 m (1.5 settle distances): the graph partitions at 10 Hz of
         # sim time and its gate may open a step earlier or later than offline.
         assert np.linalg.norm(got - expected) <= 0.15, (name, got, expected)
+
+
+def test_offline_and_ros_trials_have_the_same_layout_and_meaning(baseline, offline_trial) -> None:
+    _, output, trial = baseline
+    offline_path, offline_metrics = offline_trial
+    assert csv_headers(trial) == csv_headers(offline_path), output[-2000:]
+    files = {str(p.relative_to(trial)) for p in trial.rglob("*") if p.is_file()}
+    assert files == {str(p.relative_to(offline_path)) for p in offline_path.rglob("*")
+                     if p.is_file()}
+    ros_metrics = json.loads((trial / "report" / "metrics.json").read_text())
+    assert set(ros_metrics) == set(offline_metrics)
+    assert set(ros_metrics["solve_time"]) == set(offline_metrics["solve_time"])
+    # Footprints are known on both paths, so both report the smallest clearance.
+    assert ros_metrics["smallest_clearance_m"] is not None
+    assert offline_metrics["smallest_clearance_m"] is not None
+    # controller_ran means "the MPC was solved on this row's state" on both paths: every
+    # controller solves once per sample time, so the share of rows that ran is the step
+    # over the vehicle's sample time (0.1 s / 0.1 s for the rovers and the multirotor,
+    # 0.1 s / 0.2 s for the vessel), and each solved row has its solve time.
+    for folder in (trial, offline_path):
+        for name, share in (("rover_a", 1.0), ("drone_b", 1.0), ("rover_c", 1.0),
+                            ("boat_d", 0.5)):
+            table = rows(folder / "robots" / f"{name}.csv")
+            ran = np.array([r["controller_ran"] == "1" for r in table])
+            assert abs(ran.mean() - share) <= 0.02, (folder.name, name, ran.mean())
+            solve = np.array([float(r["solve_time"]) for r in table])
+            assert np.all(np.isfinite(solve[ran])) and np.all(np.isnan(solve[~ran]))
+            # Once the controller has a target, every row carries the progress it reported
+            # for that state (in lockstep every state is answered).
+            distance = np.array([float(r["distance"]) for r in table])
+            known = np.flatnonzero(np.isfinite(distance))
+            assert len(known) and np.all(np.isfinite(distance[known[0]:])), (folder.name, name)
 
 
 def test_a_lower_speed_limit_in_the_vehicle_file_is_respected(baseline, faulty) -> None:

@@ -16,13 +16,12 @@ from coverage_fleet.fleet.mission import (
     SEED_MAX,
     Mission,
     load_mission_with,
-    mission_as_run,
 )
 from coverage_fleet.fleet.simulation import StepInfo, simulate_mission
-from coverage_fleet.fleet.trial import TrialLog, write_trial
+from coverage_fleet.fleet.trial import TrialLog
 from coverage_fleet.inputs.fields import Collector, integer_fault, number_fault
 from coverage_fleet.interrupts import interrupts_at_safe_points
-from coverage_fleet.report import write_report
+from coverage_fleet.report.trial import write_mission_trial
 
 SAFETY_NOTE = (
     "Offline plan only: before real trials check the plan with qualified operators, keep an "
@@ -100,22 +99,7 @@ def simulate_to_trial(
     check_output_free(out)
     with interrupts_at_safe_points():
         log = simulate_mission(mission, seed=seed, duration=duration, on_step=progress)
-    metrics: dict[str, Any] = {}
-
-    def report(directory: Path) -> None:
-        metrics.update(
-            write_report(
-                directory,
-                log,
-                mission.region,
-                mission.density,
-                mission.settle.distance,
-                footprints={e.name: e.footprint_radius for e in mission.roster},
-            )
-        )
-
-    as_run = mission_as_run(mission, seed=log.seed, duration=log.duration)
-    path = write_trial(out, as_run, log, report=report)
+    path, metrics = write_mission_trial(out, mission, log)
     return path, log, metrics
 
 

@@ -77,19 +77,19 @@ class SampledController:
         x = np.asarray(x, float)
         position = self.model.position(x)
         step = None
-        if self.due(state_time):
+        held = self.held_input
+        if held is None or self.due(state_time):
             target = self.target if self.target is not None else position
             step = self.controller.step(x, target)
             self.last_step = step
             self.last_solve_time = float(state_time)
-            self.held_input = np.asarray(step.input, float)
+            held = self.held_input = np.asarray(step.input, float)
             self.solves += 1
             if not step.success:
                 self.failures += 1
-        assert self.held_input is not None
         return Answer(
             state_time=float(state_time),
-            input=self.held_input.copy(),
+            input=held.copy(),
             ran=step is not None,
             step=step,
             progress=self.tracker.observe(position),

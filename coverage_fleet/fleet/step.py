@@ -27,7 +27,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from coverage_fleet.control.controller import RobotController
-from coverage_fleet.control.gate import GateOpening, ProgressReport
+from coverage_fleet.control.gate import GateOpening
 from coverage_fleet.control.sampling import SampledController
 from coverage_fleet.control.terminal import terminal_for_vehicle
 from coverage_fleet.fleet.coordination import Candidates, GateKeeper, candidates_at
@@ -134,15 +134,12 @@ class FleetStep:
         if opening is not None:
             records.append(GenerationRecord(opening.generation))
             for name, target in opening.targets.items():
-                # Offline the target arrives at once; the robot's distance at commit is the
-                # gate's, and it reports it right away.
+                # Offline the target arrives at once (the robot acknowledges it), and the
+                # robot's distance at commit is the gate's.
                 self.controllers[name].set_target(
                     opening.generation, target, opening.distances[name]
                 )
                 self.keeper.acknowledge(name, opening.generation)
-                self.keeper.gate.report(
-                    ProgressReport(name, opening.generation, opening.distances[name])
-                )
                 records.append(TargetRecord(name, target))
             records.append(OpeningRecord(opening))
         speeds = {n: self._planar_speed(n, measured[n]) for n in self.names}

@@ -135,6 +135,11 @@ class TrialAssembler:
         self.targets: dict[str, np.ndarray] = {}
         self.time_origin: float | None = None
         self._raw_times: dict[str, list[float]] = {name: [] for name in self.log.robots}
+        #: Progress and solve records of states not recorded yet (messages from different
+        #: publishers may arrive in either order); applied when the state arrives.
+        self._early: dict[str, list[ProgressRecord | SolveRecord]] = {
+            name: [] for name in self.log.robots
+        }
 
     def _relative(self, t: float) -> float:
         if self.time_origin is None:
@@ -163,7 +168,9 @@ class TrialAssembler:
                 self._progress(record)
             case SolveRecord():
                 k = self._row_of(record.robot, record.state_time)
-                if k is not None:
+                if k is None:
+                    self._keep_early(record)
+                else:
                     robot = self.log.robots[record.robot]
                     robot.controller_ran[k] = True
                     robot.solve_time[k] = float(record.solve_time)
@@ -222,10 +229,24 @@ class TrialAssembler:
         robot.status.append("")
         robot.solver_ok.append(True)
         robot.fallback.append("")
+        early = self._early[record.robot]
+        if early:
+            self._early[record.robot] = []
+            for kept in early:
+                if kept.state_time >= record.time - SAME_TIME:
+                    self.add(kept)
+
+    def _keep_early(self, record: ProgressRecord | SolveRecord) -> None:
+        raw = self._raw_times[record.robot]
+        if not raw or record.state_time > raw[-1] + SAME_TIME:
+            self._early[record.robot].append(record)
 
     def _progress(self, record: ProgressRecord) -> None:
         k = self._row_of(record.robot, record.state_time)
-        if k is None or record.distance_at_commit is None or record.distance_now is None:
+        if k is None:
+            self._keep_early(record)
+            return
+        if record.distance_at_commit is None or record.distance_now is None:
             return
         gate = self.mission.gate
         standing = judge(

@@ -3,15 +3,18 @@
 Subscribes to its `odom` and its committed `coverage/target`; at every sample time it runs
 RobotController.step on the newest state and target and publishes the first input as
 `cmd_vel` (Twist, Accel or Wrench, as the vehicle file's command kind names), a progress
-report (`coverage/progress`, layout in conversions.py), the predicted plan (`coverage/plan`)
-and its health on /diagnostics.
+report (`coverage/progress`, layout in conversions.py), the predicted plan (`coverage/plan`),
+the outcome of each solve (`coverage/solve`, so that a recording knows every solve) and its
+health on /diagnostics.
 
 Timing: the node answers every state it receives, at once (no timer phase adds latency):
 it solves when a sample time (less `sample_tolerance`, for jitter in the state stamps) has
 passed since the state of its last solve, and otherwise re-sends the held command (zero-order
 hold). Each answer carries a progress report, which is also what the lockstep simulator
 waits for. A watchdog timer (every sample time, ROS clock, so use_sim_time is honoured)
-sends the braking input while the newest state is older than `state_timeout`.
+sends the braking input while the newest state is older than `state_timeout`. The solve
+rule, the held input and the progress bookkeeping are the core's SampledController
+(control/sampling.py), the same object the offline simulation runs.
 """
 
 from __future__ import annotations
@@ -25,20 +28,24 @@ from nav_msgs.msg import Odometry, Path
 from rclpy.node import Node
 
 from coverage_fleet.control.controller import RobotController
+from coverage_fleet.control.sampling import SampledController
 from coverage_fleet.control.terminal import terminal_for_vehicle
 from coverage_fleet.errors import ConfigError
+from coverage_fleet.fleet.liveness import fresh
 from coverage_fleet.fleet.mission import load_mission
 from coverage_fleet.vehicles.loader import load_vehicle_file
 
 from . import qos, topics
 from .conversions import (
     ProgressValues,
+    SolveValues,
     command_message_type,
     command_to_msg,
     diagnostic_status,
     odometry_from_msg,
     plan_to_msg,
     progress_to_msg,
+    solve_to_msg,
     stamp_to_seconds,
     target_from_msg,
 )
@@ -59,7 +66,7 @@ class ControllerNode(Node):
         robot_name = declare(
             self, "robot_name", "", "Robot name in the roster; empty = the node's namespace."
         )
-        self.sample_tolerance = declare(
+        sample_tolerance = declare(
             self, "sample_tolerance", 0.01,
             "Seconds: a new solve is due when the state is at least sample time minus this "
             "newer than the last solved one (absorbs jitter in odometry stamps).", (0.0, 1.0),
@@ -88,8 +95,12 @@ class ControllerNode(Node):
         self.sample_time = float(spec.mpc.sample_time)
         started = wallclock.perf_counter()
         terminal, _ = terminal_for_vehicle(spec)
-        self.controller = RobotController(
-            self.model, spec.mpc, mission.region.halfspaces(), terminal
+        self.controller = SampledController(
+            RobotController(self.model, spec.mpc, mission.region.halfspaces(), terminal),
+            self.sample_time,
+            sample_tolerance,
+            mission.gate.noise_tolerance,
+            mission.gate.progress_tolerance,
         )
         self.get_logger().info(
             f"{self.robot}: {self.model.kind} from {spec.source}, sample time "
@@ -98,20 +109,14 @@ class ControllerNode(Node):
         )
         self.state: np.ndarray | None = None
         self.state_time = -np.inf
-        self.target: np.ndarray | None = None
         self.generation_stamp_ns = 0
-        self.distance_at_commit: float | None = None
-        self.held_input: np.ndarray | None = None
-        self.last_solve_time = -np.inf
-        self.last_step = None
-        self.solver_failures = 0
-        self.steps = 0
 
         self.cmd_pub = self.create_publisher(
             command_message_type(spec.command_kind), topics.CMD_VEL, qos.COMMAND
         )
         self.progress_pub = self.create_publisher(Vector3Stamped, topics.PROGRESS, qos.REPORTS)
         self.plan_pub = self.create_publisher(Path, topics.PLAN, qos.DISPLAY)
+        self.solve_pub = self.create_publisher(DiagnosticStatus, topics.SOLVE, qos.REPORTS)
         self.diag_pub = self.create_publisher(DiagnosticArray, topics.DIAGNOSTICS, qos.DISPLAY)
         self.create_subscription(Odometry, topics.ODOM, self._on_odom, qos.STATE)
         self.create_subscription(PointStamped, topics.TARGET, self._on_target, qos.LATCHED)
@@ -127,53 +132,45 @@ class ControllerNode(Node):
 
     def _on_target(self, msg: PointStamped) -> None:
         target, stamp_ns = target_from_msg(msg)
-        if stamp_ns != self.generation_stamp_ns:
-            self.generation_stamp_ns = stamp_ns
-            self.distance_at_commit = None
-        self.target = target
+        self.generation_stamp_ns = stamp_ns
+        self.controller.set_target(stamp_ns, target)
 
     def _stale(self) -> bool:
         now = self.get_clock().now().nanoseconds * 1e-9
-        return self.state is not None and now - self.state_time > self.state_timeout
+        return self.state is not None and not fresh(self.state_time, now, self.state_timeout)
 
     def _watchdog(self) -> None:
         """No fresh odometry: brake rather than drive on an old command."""
         if self._stale():
-            self.held_input = np.asarray(self.model.braking_input(self.state), float)
-            self.cmd_pub.publish(
-                command_to_msg(self.model.command_from_input(self.held_input, self.state))
-            )
+            u = self.controller.brake(self.state)
+            self.cmd_pub.publish(command_to_msg(self.model.command_from_input(u, self.state)))
 
     # --- control ------------------------------------------------------------------------
 
     def _control(self) -> None:
         x = self.state
-        position = self.model.position(x)
-        if self.held_input is None or self.state_time - self.last_solve_time >= (
-            self.sample_time - self.sample_tolerance
-        ):
-            # Before the first target the robot holds its position.
-            target = self.target if self.target is not None else position
-            step = self.controller.step(x, target)
-            self.last_step = step
-            self.last_solve_time = self.state_time
-            self.held_input = np.asarray(step.input, float)
-            self.steps += 1
-            if not step.success:
-                self.solver_failures += 1
+        answer = self.controller.answer(x, self.state_time)
+        if answer.step is not None:
+            step = answer.step
             self._publish_plan(step)
-        self.cmd_pub.publish(command_to_msg(self.model.command_from_input(self.held_input, x)))
-        self._publish_progress(position)
-
-    def _publish_progress(self, position: np.ndarray) -> None:
-        if self.target is None:
+            self.solve_pub.publish(
+                solve_to_msg(
+                    SolveValues(
+                        self.robot, self.state_time, float(step.solve_time), str(step.status),
+                        bool(step.success), step.fallback, int(step.iterations),
+                    )
+                )
+            )
+        self.cmd_pub.publish(command_to_msg(self.model.command_from_input(answer.input, x)))
+        progress = answer.progress
+        if progress is None:
             report = ProgressValues(0, np.nan, np.nan, self.state_time)
         else:
-            distance = float(np.linalg.norm(position - self.target))
-            if self.distance_at_commit is None:
-                self.distance_at_commit = distance
             report = ProgressValues(
-                self.generation_stamp_ns, self.distance_at_commit, distance, self.state_time
+                self.generation_stamp_ns,
+                progress.distance_at_commit,
+                progress.distance_now,
+                self.state_time,
             )
         self.progress_pub.publish(progress_to_msg(report))
 
@@ -186,7 +183,7 @@ class ControllerNode(Node):
 
     def _publish_diagnostics(self) -> None:
         now = self.get_clock().now().nanoseconds * 1e-9
-        step = self.last_step
+        step = self.controller.last_step
         age = now - self.state_time if self.state is not None else float("inf")
         if self.state is None:
             level, message = DiagnosticStatus.STALE, "no odometry yet"
@@ -202,8 +199,8 @@ class ControllerNode(Node):
             "iterations": step.iterations if step else "",
             "fallback": step.fallback if step else "",
             "state_age": f"{age:.3f}",
-            "solver_failures": self.solver_failures,
-            "solves": self.steps,
+            "solver_failures": self.controller.failures,
+            "solves": self.controller.solves,
             "generation_stamp": self.generation_stamp_ns,
         }
         array = DiagnosticArray()

@@ -9,6 +9,10 @@ Layouts that standard types do not name by field:
   generation; a zero stamp means "no target yet"), vector.x = distance to the target when
   the robot received it (m), vector.y = distance now (m), vector.z = time (s, the clock of
   the graph) of the odometry the distance was measured at (the lockstep acknowledgement).
+- solve outcome (`<ns>/coverage/solve`, diagnostic_msgs/DiagnosticStatus): one per MPC
+  solve; name `coverage_fleet/<robot>/solve`, hardware_id the robot, level OK (solved) or
+  WARN (a fallback input was used), message the solver status; values state_time (s, the
+  state solved on), solve_time (s), status, success (1/0), fallback, iterations.
 - candidate centroids (`coverage/candidates`, std_msgs/Float64MultiArray): rows of
   CANDIDATE_COLUMNS; row 0 is [time of the states (s), coverage cost H, robots, 0, 0, 0],
   then one row per live robot: [index in the mission roster, px, py, cx, cy, cell mass].
@@ -425,4 +429,51 @@ def diagnostic_status(
         message=message,
         hardware_id=hardware_id,
         values=[KeyValue(key=k, value=str(v)) for k, v in values.items()],
+    )
+
+
+# --- solve outcomes -----------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class SolveValues:
+    """One MPC solve of a robot's controller (layout in the module docstring)."""
+
+    robot: str
+    state_time: float
+    solve_time: float
+    status: str
+    success: bool
+    fallback: str
+    iterations: int
+
+
+def solve_to_msg(values: SolveValues) -> DiagnosticStatus:
+    level = DiagnosticStatus.OK if values.success else DiagnosticStatus.WARN
+    return diagnostic_status(
+        f"coverage_fleet/{values.robot}/solve",
+        values.robot,
+        level,
+        values.status,
+        {
+            "state_time": repr(float(values.state_time)),
+            "solve_time": repr(float(values.solve_time)),
+            "status": values.status,
+            "success": "1" if values.success else "0",
+            "fallback": values.fallback,
+            "iterations": int(values.iterations),
+        },
+    )
+
+
+def solve_from_msg(msg: DiagnosticStatus) -> SolveValues:
+    values = {kv.key: kv.value for kv in msg.values}
+    return SolveValues(
+        robot=msg.hardware_id,
+        state_time=float(values["state_time"]),
+        solve_time=float(values["solve_time"]),
+        status=values.get("status", ""),
+        success=values.get("success") == "1",
+        fallback=values.get("fallback", ""),
+        iterations=int(values.get("iterations", "0")),
     )

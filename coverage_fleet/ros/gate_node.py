@@ -16,7 +16,8 @@ falls even though reports and partitions arrive at different moments. (The dista
 report is the controller's own view, for monitoring.)
 
 The robots in a candidates message are the gate's roster: robots the partition left out
-leave the gate, and the next offer is committed for the remaining ones.
+leave the gate, and the next offer is committed for the remaining ones. These rules live in
+the core (fleet/coordination.py, GateKeeper); this node converts messages and calls it.
 
 After every offer the settle monitor (coverage_fleet.fleet.settling, the object the offline
 simulation uses) judges the fleet from the candidates message (positions and the centroids
@@ -34,8 +35,9 @@ from nav_msgs.msg import Odometry
 from rclpy.node import Node
 from std_msgs.msg import Float64MultiArray, String, UInt32
 
-from coverage_fleet.control.gate import GateSettings, ProgressReport, ReferenceGate
+from coverage_fleet.control.gate import GateSettings
 from coverage_fleet.errors import ConfigError, Problem
+from coverage_fleet.fleet.coordination import Candidates, GateKeeper
 from coverage_fleet.fleet.mission import load_mission, mission_settle_problems
 from coverage_fleet.fleet.settling import SettleMonitor, SettleSettings
 
@@ -106,14 +108,13 @@ class GateNode(Node):
                 Problem("reference_gate parameters", names[key], message)
                 for key, message in problems
             ])
-        self.gate = ReferenceGate(settings)
+        self.keeper = GateKeeper(settings)
+        self.gate = self.keeper.gate
         self.monitor = SettleMonitor(settle)
         #: robot -> planar speed from its latest odometry (m/s)
         self.speeds: dict[str, float] = {}
         self.names = list(mission.robot_names)
         self.generation_of_stamp: dict[int, int] = {}
-        #: robot -> generation its newest progress report names
-        self.acknowledged: dict[str, int] = {}
         self.last_stamp_ns = 0
         self.ignored_reports = 0
         self.settling = "moving"
@@ -149,38 +150,26 @@ class GateNode(Node):
     def _on_progress(self, name: str, msg: Vector3Stamped) -> None:
         report = progress_from_msg(msg)
         generation = self.generation_of_stamp.get(report.generation_stamp_ns)
-        if generation is None:
-            self.ignored_reports += 1
-            self.acknowledged.pop(name, None)
-            return
         if generation != self.gate.generation:
             self.ignored_reports += 1
-        self.acknowledged[name] = generation
+        self.keeper.acknowledge(name, generation)
 
     def _on_candidates(self, msg: Float64MultiArray) -> None:
-        candidates = candidates_from_msg(msg)
-        present = {self.names[i] for i in candidates.positions}
-        for name in list(self.gate.robots):
-            if name not in present:
-                self.get_logger().warning(f"{name} leaves the gate (left out by the partition)")
-                self.gate.remove_robot(name)
-        for name in sorted(present - set(self.gate.robots)):
-            self.gate.add_robot(name)
-        by_name = {self.names[i]: i for i in candidates.positions}
-        for name, index in by_name.items():
-            target = self.gate.targets.get(name)
-            if target is not None and self.acknowledged.get(name) == self.gate.generation:
-                distance = float(np.linalg.norm(candidates.positions[index] - target))
-                self.gate.report(ProgressReport(name, self.gate.generation, distance))
-        opening = self.gate.offer(
-            {n: candidates.centroids[i] for n, i in by_name.items()},
-            {n: candidates.positions[i] for n, i in by_name.items()},
-            candidates.cost,
-            candidates.time,
+        values = candidates_from_msg(msg)
+        names = {i: self.names[i] for i in values.positions}
+        candidates = Candidates(
+            time=values.time,
+            cost=values.cost,
+            positions={names[i]: p for i, p in values.positions.items()},
+            centroids={names[i]: c for i, c in values.centroids.items()},
+            masses={names[i]: m for i, m in values.masses.items()},
         )
-        if opening is not None:
-            self._publish_opening(opening, by_name)
-        self._update_settling(candidates, by_name, gate_shut=opening is None)
+        decision = self.keeper.offer(candidates)
+        for name in decision.left:
+            self.get_logger().warning(f"{name} leaves the gate (left out by the partition)")
+        if decision.opening is not None:
+            self._publish_opening(decision.opening, {n: i for i, n in names.items()})
+        self._update_settling(candidates, gate_shut=decision.opening is None)
 
     def _publish_opening(self, opening, by_name: dict[str, int]) -> None:
         # The commit stamp names the generation: unique, increasing and never zero (zero
@@ -210,13 +199,13 @@ class GateNode(Node):
             f"t = {opening.time:.2f} s, cost {opening.cost:.4g}"
         )
 
-    def _update_settling(self, candidates, by_name: dict[str, int], gate_shut: bool) -> None:
+    def _update_settling(self, candidates: Candidates, gate_shut: bool) -> None:
         status = self.monitor.update(
             candidates.time,
-            {n: candidates.positions[i] for n, i in by_name.items()},
+            candidates.positions,
             # A robot whose odometry the gate has not heard yet counts as moving.
-            {n: self.speeds.get(n, np.inf) for n in by_name},
-            {n: candidates.centroids[i] for n, i in by_name.items()},
+            {n: self.speeds.get(n, np.inf) for n in candidates.positions},
+            candidates.centroids,
             gate_shut,
         )
         if status != self.settling:

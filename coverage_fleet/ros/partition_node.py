@@ -7,7 +7,8 @@ At `rate` Hz (ROS clock) it takes every robot that is live, meaning its odometry
 coverage cost H, and publishes `coverage/candidates` (layout in conversions.py),
 `coverage/cost` and `coverage/cells` (RViz markers: cells, centroids, committed targets).
 A robot that falls silent is left out, so the live robots share its cell: a fault in one
-robot never stalls the fleet.
+robot never stalls the fleet. The liveness rules and the partition are core objects
+(fleet/liveness.py, fleet/coordination.py); this node converts messages and calls them.
 """
 
 from __future__ import annotations
@@ -19,8 +20,9 @@ from rclpy.node import Node
 from std_msgs.msg import Float64, Float64MultiArray
 from visualization_msgs.msg import MarkerArray
 
+from coverage_fleet.fleet.coordination import candidates_at
+from coverage_fleet.fleet.liveness import FleetLiveness
 from coverage_fleet.fleet.mission import load_mission
-from coverage_fleet.geometry.partition import compute_partition
 
 from . import qos, topics
 from .conversions import (
@@ -45,42 +47,40 @@ class PartitionNode(Node):
         rate = declare(
             self, "rate", 10.0, "Partitions per second (ROS clock).", (0.1, 100.0)
         )
-        self.state_timeout = declare(
+        state_timeout = declare(
             self, "state_timeout", 2.0,
             "Seconds after which a robot's odometry is too old and the robot is left out.",
             (0.01, 600.0),
         )
-        self.controller_timeout = declare(
+        controller_timeout = declare(
             self, "controller_timeout", 2.0,
             "Seconds without a progress report after which a robot's controller counts as "
             "not live and the robot is left out.", (0.01, 600.0),
         )
-        self.startup_grace = declare(
+        startup_grace = declare(
             self, "startup_grace", 5.0,
             "Seconds the first partition waits for every roster robot to be live; after "
             "that it starts with the live ones (the others join later).", (0.0, 600.0),
         )
-        self.started = False
-        self.first_tick: float | None = None
         self.mission = load_mission(mission_file)
         self.names = list(self.mission.robot_names)
-        self.positions: dict[int, np.ndarray] = {}
-        self.state_times: dict[int, float] = {}
-        self.report_times: dict[int, float] = {}
-        self.targets: dict[int, np.ndarray] = {}
-        self.live: set[int] = set()
-        for index, name in enumerate(self.names):
+        self.liveness = FleetLiveness(
+            self.names, state_timeout, controller_timeout, startup_grace
+        )
+        self.positions: dict[str, np.ndarray] = {}
+        self.targets: dict[str, np.ndarray] = {}
+        for name in self.names:
             self.create_subscription(
                 Odometry, topics.robot_topic(name, topics.ODOM),
-                lambda msg, i=index: self._on_odom(i, msg), qos.STATE,
+                lambda msg, n=name: self._on_odom(n, msg), qos.STATE,
             )
             self.create_subscription(
                 Vector3Stamped, topics.robot_topic(name, topics.PROGRESS),
-                lambda msg, i=index: self._on_progress(i), qos.REPORTS,
+                lambda msg, n=name: self.liveness.saw_answer(n, self._now()), qos.REPORTS,
             )
             self.create_subscription(
                 PointStamped, topics.robot_topic(name, topics.TARGET),
-                lambda msg, i=index: self._on_target(i, msg), qos.LATCHED,
+                lambda msg, n=name: self._on_target(n, msg), qos.LATCHED,
             )
         self.candidates_pub = self.create_publisher(
             Float64MultiArray, topics.CANDIDATES, qos.REPORTS
@@ -95,68 +95,56 @@ class PartitionNode(Node):
     def _now(self) -> float:
         return self.get_clock().now().nanoseconds * 1e-9
 
-    def _on_odom(self, index: int, msg: Odometry) -> None:
+    def _on_odom(self, name: str, msg: Odometry) -> None:
         odom = odometry_from_msg(msg)
-        self.positions[index] = np.array([odom.x, odom.y])
-        self.state_times[index] = stamp_to_seconds(msg.header.stamp)
+        self.positions[name] = np.array([odom.x, odom.y])
+        self.liveness.saw_state(name, stamp_to_seconds(msg.header.stamp))
 
-    def _on_progress(self, index: int) -> None:
-        self.report_times[index] = self._now()
-
-    def _on_target(self, index: int, msg: PointStamped) -> None:
-        self.targets[index] = target_from_msg(msg)[0]
-
-    def _live_robots(self, now: float) -> list[int]:
-        live = []
-        for index in range(len(self.names)):
-            fresh_state = now - self.state_times.get(index, -np.inf) <= self.state_timeout
-            fresh_report = now - self.report_times.get(index, -np.inf) <= self.controller_timeout
-            if fresh_state and fresh_report:
-                live.append(index)
-        changed = set(live) ^ self.live
-        for index in sorted(changed):
-            verb = "joins" if index in live else "left out (stale odometry or silent controller)"
-            self.get_logger().info(f"{self.names[index]} {verb}")
-        self.live = set(live)
-        return live
+    def _on_target(self, name: str, msg: PointStamped) -> None:
+        self.targets[name] = target_from_msg(msg)[0]
 
     def _on_timer(self) -> None:
         now = self._now()
-        live = self._live_robots(now)
-        if not self.started:
-            # The whole roster gets its first cells together, so that the first generation
-            # is not followed at once by a roster change when a slower robot appears.
-            self.first_tick = now if self.first_tick is None else self.first_tick
-            waited = now - self.first_tick
-            if len(live) < len(self.names) and waited < self.startup_grace:
+        for change in self.liveness.update(now):
+            verb = "joins" if change.live else "left out (stale odometry or silent controller)"
+            self.get_logger().info(f"{change.robot} {verb}")
+        if not self.liveness.started:
+            # The whole roster gets its first cells together (see fleet/liveness.py).
+            if not self.liveness.may_start(now):
                 return
-            self.started = True
-            missing = sorted(set(self.names) - {self.names[i] for i in live})
+            missing = self.liveness.missing()
             if missing:
                 self.get_logger().warning(
-                    f"starting without {', '.join(missing)} (not live after {waited:.1f} s)"
+                    f"starting without {', '.join(missing)} (not live after the start-up "
+                    "grace)"
                 )
+        live = self.liveness.live
         if not live:
             return
-        stacked = np.array([self.positions[i] for i in live])
-        partition = compute_partition(stacked, self.mission.region, self.mission.density)
-        latest_state = max(self.state_times[i] for i in live)
+        latest_state = self.liveness.newest_state_time(live)
+        candidates, partition = candidates_at(
+            {n: self.positions[n] for n in live},
+            latest_state,
+            self.mission.region,
+            self.mission.density,
+        )
+        index = {n: self.names.index(n) for n in live}
         values = CandidateValues(
             time=latest_state,
-            cost=float(partition.cost),
-            positions={i: stacked[k] for k, i in enumerate(live)},
-            centroids={i: np.asarray(partition.centroids[k]) for k, i in enumerate(live)},
-            masses={i: float(partition.masses[k]) for k, i in enumerate(live)},
+            cost=candidates.cost,
+            positions={index[n]: p for n, p in candidates.positions.items()},
+            centroids={index[n]: c for n, c in candidates.centroids.items()},
+            masses={index[n]: m for n, m in candidates.masses.items()},
         )
         self.candidates_pub.publish(candidates_to_msg(values))
-        self.cost_pub.publish(Float64(data=float(partition.cost)))
+        self.cost_pub.publish(Float64(data=candidates.cost))
         self.cells_pub.publish(
             partition_markers(
                 seconds_to_stamp(latest_state),
-                {i: self.names[i] for i in live},
-                {i: np.asarray(partition.cells[k]) for k, i in enumerate(live)},
+                {index[n]: n for n in live},
+                {index[n]: np.asarray(partition.cells[k]) for k, n in enumerate(live)},
                 values.centroids,
-                {i: t for i, t in self.targets.items() if i in live},
+                {index[n]: t for n, t in self.targets.items() if n in index},
             )
         )
 

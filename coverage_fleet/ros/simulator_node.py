@@ -12,6 +12,9 @@ Two modes:
   answers. States are re-published every `republish_period` while waiting, so a controller
   that joins late still receives the current state.
 
+The plants, their noise and the lockstep barrier are core objects (fleet/plants.py,
+fleet/lockstep.py); this node converts messages and calls them.
+
 A robot without a fresh command (in realtime mode: older than `command_timeout`; in
 lockstep: its controller marked not live) is given its model's braking input: a silent
 controller never leaves its robot driving on a stale command. The mission's simulation
@@ -22,7 +25,6 @@ the published positions (one numpy generator seeded with the mission's seed).
 from __future__ import annotations
 
 import time as wallclock
-from dataclasses import dataclass, field
 
 import numpy as np
 from geometry_msgs.msg import Vector3Stamped
@@ -32,8 +34,10 @@ from rosgraph_msgs.msg import Clock
 from std_msgs.msg import String
 
 from coverage_fleet.errors import ConfigError
+from coverage_fleet.fleet.liveness import fresh
+from coverage_fleet.fleet.lockstep import SAME_TIME, LockstepBarrier, LockstepTimeouts
 from coverage_fleet.fleet.mission import RobotEntry, load_mission, simulation_step
-from coverage_fleet.fleet.plants import initial_state
+from coverage_fleet.fleet.plants import FleetPlants, NoiseLevels
 
 from . import qos, topics
 from .conversions import (
@@ -47,26 +51,6 @@ from .parameters import declare
 from .runtime import RunFinished, main_for
 
 MODES = ("realtime", "lockstep")
-#: Two state times closer than this are the same step (far below any sample time).
-SAME_TIME = 1e-6
-
-
-@dataclass
-class SimulatedRobot:
-    entry: RobotEntry
-    plant: object
-    state: np.ndarray
-    odom_pub: object
-    command: np.ndarray | None = None
-    command_wall_time: float = -np.inf
-    commands_since_publish: int = 0
-    answered_time: float = -np.inf
-    #: "waiting" (no answer yet), "live", or "lost" (timed out; brakes until it answers)
-    liveness: str = "waiting"
-    #: simulated time at which it was marked lost, and wall time it came back
-    lost_at: float = np.inf
-    revived_wall: float = -np.inf
-    subscriptions: list = field(default_factory=list)
 
 
 class SimulatorNode(Node):
@@ -81,7 +65,7 @@ class SimulatorNode(Node):
             "Simulation tick (s); 0 = the mission's simulation.step (default: the smallest "
             "controller sample time).", (0.0, 1.0),
         )
-        self.plant_substeps = declare(
+        plant_substeps = declare(
             self, "plant_substeps", 0, "RK4 substeps per tick; 0 = the mission's.", (0, 1000)
         )
         self.duration = declare(
@@ -94,17 +78,17 @@ class SimulatorNode(Node):
             "Exit 0 once the gate node reports the fleet settled or stuck "
             "(coverage/settling).",
         )
-        self.lockstep_timeout = declare(
+        lockstep_timeout = declare(
             self, "lockstep_timeout", 3.0,
             "Lockstep: wall seconds to wait for a live controller's answer before marking it "
             "not live.", (0.05, 600.0),
         )
-        self.startup_timeout = declare(
+        startup_timeout = declare(
             self, "startup_timeout", 120.0,
             "Lockstep: wall seconds to wait for a controller's first answer (solver set-up "
             "included).", (1.0, 3600.0),
         )
-        self.republish_period = declare(
+        republish_period = declare(
             self, "republish_period", 0.5,
             "Lockstep: wall seconds between re-publications of the current state while waiting.",
             (0.01, 60.0),
@@ -127,141 +111,131 @@ class SimulatorNode(Node):
             )
         mission = load_mission(mission_file)
         self.step = step or simulation_step(mission.roster, mission.simulation)
-        self.plant_substeps = self.plant_substeps or mission.simulation.plant_substeps
         self.duration = self.duration or mission.simulation.duration
-        # The mission's noise, as the offline simulation applies it: process noise on the
-        # positions per tick, measurement noise on the positions published.
-        self.process_noise = mission.simulation.process_noise_std
-        self.measurement_noise = mission.simulation.measurement_noise_std
-        self.rng = np.random.default_rng(mission.simulation.seed)
-        self.time = 0.0
-        self.measured: dict[str, np.ndarray] = {}
         self.settling = "moving"
-        self.robots: dict[str, SimulatedRobot] = {}
+        simulated = [e for e in mission.roster if e.simulated]
         for entry in mission.roster:
             if not entry.simulated:
                 self.get_logger().info(f"{entry.name}: real robot, not simulated")
-                continue
-            self.robots[entry.name] = self._add_robot(entry)
+        start = 0.0 if self.mode == "lockstep" else self.get_clock().now().nanoseconds * 1e-9
+        # The mission's noise, as the offline simulation applies it.
+        self.plants = FleetPlants(
+            simulated,
+            self.step,
+            plant_substeps or mission.simulation.plant_substeps,
+            NoiseLevels(
+                mission.simulation.process_noise_std, mission.simulation.measurement_noise_std
+            ),
+            mission.simulation.seed,
+            time=start,
+        )
+        #: robot -> (input, wall time it arrived)
+        self.commands: dict[str, tuple[np.ndarray, float]] = {}
+        self.odom_pubs = {}
+        for entry in simulated:
+            self._connect(entry)
         self.clock_pub = self.create_publisher(Clock, topics.CLOCK, qos.CLOCK)
         self.create_subscription(String, topics.SETTLING, self._on_settling, qos.LATCHED)
-        self.started_wall = wallclock.monotonic()
+        self.end_time = start + self.duration
         self.get_logger().info(
-            f"simulating {len(self.robots)} robots of mission {mission.name!r} in {self.mode} "
+            f"simulating {len(simulated)} robots of mission {mission.name!r} in {self.mode} "
             f"mode, step {self.step:g} s, for {self.duration:g} s"
         )
+        self.barrier: LockstepBarrier | None = None
         if self.mode == "realtime":
-            self.time = self.get_clock().now().nanoseconds * 1e-9
-            self.end_time = self.time + self.duration
             self.create_timer(self.step, self._realtime_tick)
-            self._publish_states()
         else:
-            self.end_time = self.duration
-            self.step_published_wall = wallclock.monotonic()
-            self.last_republish = self.step_published_wall
-            self._publish_states()
-            # A short wall timer polls the handshake; the executor delivers answers between.
+            self.barrier = LockstepBarrier(
+                self.plants.names,
+                LockstepTimeouts(lockstep_timeout, startup_timeout, republish_period),
+                now=wallclock.monotonic(),
+            )
+            # A short wall timer polls the barrier; the executor delivers answers between.
             self.create_timer(0.002, self._lockstep_poll)
+        self._publish_states()
 
-    def _add_robot(self, entry: RobotEntry) -> SimulatedRobot:
-        model = entry.vehicle.model
-        robot = SimulatedRobot(
-            entry=entry,
-            plant=model.discrete_dynamics(self.step, self.plant_substeps),
-            state=initial_state(entry, entry.initial_pose),
-            odom_pub=self.create_publisher(
-                Odometry, topics.robot_topic(entry.name, topics.ODOM), qos.STATE
-            ),
+    @property
+    def robots(self) -> tuple[str, ...]:
+        """The simulated robots."""
+        return self.plants.names
+
+    def _connect(self, entry: RobotEntry) -> None:
+        name = entry.name
+        self.odom_pubs[name] = self.create_publisher(
+            Odometry, topics.robot_topic(name, topics.ODOM), qos.STATE
         )
         kind = entry.vehicle.command_kind
-        robot.subscriptions.append(
-            self.create_subscription(
-                command_message_type(kind),
-                topics.robot_topic(entry.name, topics.CMD_VEL),
-                lambda msg, r=robot, k=kind: self._on_command(r, msg, k),
-                qos.COMMAND,
-            )
+        self.create_subscription(
+            command_message_type(kind),
+            topics.robot_topic(name, topics.CMD_VEL),
+            lambda msg, n=name, k=kind: self._on_command(n, msg, k),
+            qos.COMMAND,
         )
-        robot.subscriptions.append(
-            self.create_subscription(
-                Vector3Stamped,
-                topics.robot_topic(entry.name, topics.PROGRESS),
-                lambda msg, r=robot: self._on_progress(r, msg),
-                qos.REPORTS,
-            )
+        self.create_subscription(
+            Vector3Stamped,
+            topics.robot_topic(name, topics.PROGRESS),
+            lambda msg, n=name: self._on_progress(n, msg),
+            qos.REPORTS,
         )
-        return robot
 
     # --- inputs -------------------------------------------------------------------------
 
-    def _on_command(self, robot: SimulatedRobot, msg, kind) -> None:
-        model = robot.entry.vehicle.model
+    def _on_command(self, name: str, msg, kind) -> None:
+        model = self.plants.entries[name].vehicle.model
         values = command_from_msg(msg, kind)
-        robot.command = np.asarray(model.input_from_command(values, robot.state), float)
-        robot.command_wall_time = wallclock.monotonic()
-        robot.commands_since_publish += 1
+        u = np.asarray(model.input_from_command(values, self.plants.states[name]), float)
+        self.commands[name] = (u, wallclock.monotonic())
+        if self.barrier is not None:
+            self.barrier.command(name)
 
-    def _on_progress(self, robot: SimulatedRobot, msg: Vector3Stamped) -> None:
+    def _on_progress(self, name: str, msg: Vector3Stamped) -> None:
+        if self.barrier is None:
+            return
         report = progress_from_msg(msg)
-        current = abs(report.state_time - self.time) < SAME_TIME
-        if current:
-            robot.answered_time = report.state_time
-        # A lost controller that answers any state since it was lost is back; from now on
-        # it is waited for again.
-        if current or (robot.liveness == "lost" and report.state_time > robot.lost_at):
-            if robot.liveness != "live":
-                self.get_logger().info(f"{robot.entry.name}: controller answering, live")
-                robot.revived_wall = wallclock.monotonic()
-            robot.liveness = "live"
+        if self.barrier.answer(name, report.state_time, wallclock.monotonic()):
+            self.get_logger().info(f"{name}: controller answering, live")
 
     def _on_settling(self, msg: String) -> None:
         self.settling = str(msg.data)
 
     # --- stepping -----------------------------------------------------------------------
 
-    def _input_for(self, robot: SimulatedRobot) -> np.ndarray:
-        model = robot.entry.vehicle.model
-        if self.mode == "lockstep":
-            # Every live robot answered this very step; how long the step took does not
-            # matter (a slow neighbour must not make it brake).
-            fresh = True
-        else:
-            fresh = wallclock.monotonic() - robot.command_wall_time <= self.command_timeout
-        if robot.command is None or not fresh or robot.liveness == "lost":
-            return np.asarray(model.braking_input(robot.state), float)
-        return robot.command
+    def _input_for(self, name: str) -> np.ndarray | None:
+        """The robot's command, or None (the plant brakes): no command yet, its controller
+        lost (lockstep) or its command stale (realtime). In lockstep every live robot
+        answered this very step; how long the step took does not matter (a slow neighbour
+        must not make it brake)."""
+        command = self.commands.get(name)
+        if command is None:
+            return None
+        if self.barrier is not None:
+            return None if self.barrier.is_lost(name) else command[0]
+        usable = fresh(command[1], wallclock.monotonic(), self.command_timeout)
+        return command[0] if usable else None
 
     def _advance(self) -> None:
-        for robot in self.robots.values():
-            u = self._input_for(robot)
-            robot.state = np.asarray(robot.plant(robot.state, u), float).ravel()
-            if self.process_noise > 0:
-                i, j = robot.entry.vehicle.model.position_indices
-                robot.state[[i, j]] += self.rng.normal(0.0, self.process_noise, 2)
-        self.time += self.step
-        self.measured = {}
+        self.plants.advance({name: self._input_for(name) for name in self.plants.names})
 
     def _publish_states(self) -> None:
-        stamp = seconds_to_stamp(self.time)
+        stamp = seconds_to_stamp(self.plants.time)
         self.clock_pub.publish(Clock(clock=stamp))
-        for name, robot in self.robots.items():
-            model = robot.entry.vehicle.model
-            if name not in self.measured:  # a re-publication sends the same measurement
-                x = robot.state.copy()
-                if self.measurement_noise > 0:
-                    i, j = model.position_indices
-                    x[[i, j]] += self.rng.normal(0.0, self.measurement_noise, 2)
-                self.measured[name] = x
-            odom = model.odometry_from_state(self.measured[name], robot.command)
-            robot.odom_pub.publish(odometry_to_msg(odom, stamp, child_frame_id=f"{name}/base_link"))
+        # A re-publication sends the same measurement (the plants keep it for the tick).
+        for name, x in self.plants.measure().items():
+            model = self.plants.entries[name].vehicle.model
+            command = self.commands.get(name)
+            odom = model.odometry_from_state(x, None if command is None else command[0])
+            self.odom_pubs[name].publish(
+                odometry_to_msg(odom, stamp, child_frame_id=f"{name}/base_link")
+            )
 
     def _finish_if_done(self) -> None:
-        if self.time >= self.end_time - SAME_TIME:
-            self.get_logger().info(f"run over at t = {self.time:.2f} s (duration reached)")
+        time = self.plants.time
+        if time >= self.end_time - SAME_TIME:
+            self.get_logger().info(f"run over at t = {time:.2f} s (duration reached)")
             raise RunFinished(0)
         if self.stop_when_settled and self.settling in ("settled", "stuck"):
             ending = "settled within tolerance" if self.settling == "settled" else "stuck"
-            self.get_logger().info(f"run over at t = {self.time:.2f} s (fleet {ending})")
+            self.get_logger().info(f"run over at t = {time:.2f} s (fleet {ending})")
             raise RunFinished(0)
 
     def _realtime_tick(self) -> None:
@@ -269,49 +243,30 @@ class SimulatorNode(Node):
         self._publish_states()
         self._finish_if_done()
 
+    def _connected(self) -> bool:
+        return all(
+            pub.get_subscription_count() >= self.odom_subscribers
+            for pub in self.odom_pubs.values()
+        )
+
     def _lockstep_poll(self) -> None:
-        now = wallclock.monotonic()
-        waiting = []
-        for name, robot in self.robots.items():
-            if robot.liveness == "lost":
-                continue
-            answered = (
-                abs(robot.answered_time - self.time) < SAME_TIME
-                and robot.commands_since_publish > 0
+        barrier = self.barrier
+        if barrier is None:  # only polled in lockstep mode
+            return
+        decision = barrier.poll(wallclock.monotonic(), self._connected())
+        for name in decision.lost:
+            self.get_logger().warning(
+                f"{name}: no answer for t = {barrier.time:.2f} s in time (lockstep_timeout, "
+                "or startup_timeout before its first answer); marking its controller not "
+                "live (its robot brakes)"
             )
-            if answered:
-                continue
-            waiting.append(name)
-            if abs(robot.answered_time - self.time) < SAME_TIME:
-                continue  # it answered this state; its command is on the way
-            limit = self.startup_timeout if robot.liveness == "waiting" else self.lockstep_timeout
-            if now - max(self.step_published_wall, robot.revived_wall) > limit:
-                self.get_logger().warning(
-                    f"{name}: no answer for t = {self.time:.2f} s within {limit:g} s; "
-                    "marking its controller not live (its robot brakes)"
-                )
-                robot.liveness = "lost"
-                robot.lost_at = self.time
-                waiting.remove(name)
-        if self.time == 0.0 and not waiting:
-            short = [
-                n for n, r in self.robots.items()
-                if r.odom_pub.get_subscription_count() < self.odom_subscribers
-            ]
-            if short and now - self.step_published_wall <= self.startup_timeout:
-                waiting = short
-        if waiting:
-            if now - self.last_republish > self.republish_period:
-                self.last_republish = now
+        if not decision.advance:
+            if decision.republish:
                 self._publish_states()
             return
         self._finish_if_done()
         self._advance()
-        self.step_published_wall = self.last_republish = wallclock.monotonic()
-        for robot in self.robots.values():
-            # Counted from the step's first publication: an answer to a re-publication
-            # of the same state is as good as the first.
-            robot.commands_since_publish = 0
+        barrier.advanced(self.plants.time, wallclock.monotonic())
         self._publish_states()
 
 

@@ -10,6 +10,7 @@ CMD_VEL = "cmd_vel"
 TARGET = "coverage/target"
 PROGRESS = "coverage/progress"
 PLAN = "coverage/plan"
+SOLVE = "coverage/solve"
 
 CELLS = "/coverage/cells"
 COST = "/coverage/cost"
