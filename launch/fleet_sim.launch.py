@@ -19,9 +19,11 @@ def generate_launch_description():
     default_mission = os.path.join(share, "config", "missions", "orchard_frost_watch.yaml")
 
     def nodes(context):
+        duration = LaunchConfiguration("duration").perform(context)
         specs = fleet_nodes(
             LaunchConfiguration("mission").perform(context),
             LaunchConfiguration("sim_mode").perform(context),
+            duration=float(duration) if duration else 0.0,
         )
         return launch_actions(specs)
 
@@ -32,6 +34,10 @@ def generate_launch_description():
             ),
             DeclareLaunchArgument(
                 "sim_mode", default_value="realtime", description="realtime or lockstep"
+            ),
+            DeclareLaunchArgument(
+                "duration", default_value="0",
+                description="simulated seconds before the run ends (0: the mission's)",
             ),
             OpaqueFunction(function=nodes),
         ]

@@ -90,8 +90,10 @@ def assert_every_process_ended_cleanly(run: LaunchRun, expected: int) -> None:
 
 def test_fleet_launch_settles_and_ends_with_the_simulator(install_prefix: Path) -> None:
     mission = install_prefix / "share" / "coverage_fleet" / QUICK_MISSION
+    # A duration argument well beyond the usual settling time (about 20 s simulated): on a
+    # loaded machine the base station can lag the lockstep clock and settling takes longer.
     run = LaunchRun(install_prefix, "fleet_sim.launch.py", mission=str(mission),
-                    sim_mode="lockstep")
+                    sim_mode="lockstep", duration="150")
     status = run.wait()
     output = run.output
     assert status == 0, output[-4000:]
