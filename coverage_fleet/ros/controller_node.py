@@ -12,7 +12,8 @@ it solves when a sample time (less `sample_tolerance`, for jitter in the state s
 passed since the state of its last solve, and otherwise re-sends the held command (zero-order
 hold). Each answer carries a progress report, which is also what the lockstep simulator
 waits for. A watchdog timer (every sample time, ROS clock, so use_sim_time is honoured)
-sends the braking input while the newest state is older than `state_timeout`. The solve
+sends the braking input while the newest state is older than `state_timeout`, and the
+node sends it once more as it stops (Ctrl-C, SIGTERM, a launcher). The solve
 rule, the held input and the progress bookkeeping are the core's SampledController
 (control/sampling.py), the same object the offline simulation runs.
 """
@@ -144,6 +145,15 @@ class ControllerNode(Node):
         if self._stale():
             u = self.controller.brake(self.state)
             self.cmd_pub.publish(command_to_msg(self.model.command_from_input(u, self.state)))
+
+    def before_stop(self) -> None:
+        """The node is stopping (Ctrl-C, SIGTERM, the launcher or the launch service): the
+        robot's last command from here is its braking input, never the last motion command."""
+        if self.state is None:
+            return
+        u = self.controller.brake(self.state)
+        self.cmd_pub.publish(command_to_msg(self.model.command_from_input(u, self.state)))
+        self.get_logger().info(f"{self.robot}: stopping; braking input sent")
 
     # --- control ------------------------------------------------------------------------
 

@@ -155,9 +155,22 @@ def run_nodes(
         status = 0
     finally:
         for node in nodes:
+            _before_stop(node, program)
             node.destroy_node()
         rclpy.try_shutdown()
     return status
+
+
+def _before_stop(node: Node, program: str) -> None:
+    """A node's last word before it goes (the controller sends its braking input), while the
+    context still works; a failure there is logged and never keeps the process alive."""
+    last_word = getattr(node, "before_stop", None)
+    if last_word is None or not rclpy.ok():
+        return
+    try:
+        last_word()
+    except Exception as error:  # stopping must go on whatever happened
+        rclpy.logging.get_logger(program).error(f"while stopping: {error!r}")
 
 
 def exit_process(status: int) -> NoReturn:
