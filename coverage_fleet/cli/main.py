@@ -20,6 +20,7 @@ COMMAND_MODULES = [
     "coverage_fleet.cli.terminal_command",
     "coverage_fleet.cli.simulate_command",
     "coverage_fleet.cli.batch_command",
+    "coverage_fleet.cli.sizing_command",
     "coverage_fleet.cli.launch_command",
 ]
 
