@@ -447,3 +447,20 @@ def test_raster_moments_do_not_depend_on_the_order_of_the_polygons() -> None:
     np.testing.assert_allclose(shuffled.first, straight.first[shuffle], rtol=1e-12,
                                atol=1e-15)
     np.testing.assert_allclose(shuffled.polar, straight.polar[shuffle], rtol=1e-12)
+
+
+def test_a_nanometre_wide_cell_far_east_keeps_its_centroid() -> None:
+    """A cell 1 nm wide inside one raster column, 90 columns east of the grid's edge: phi
+    is constant across it in x, so its centroid is its middle in x (common practice). The
+    prefix sums from the west edge are ~1e5 times larger than the cell's own integrals;
+    the per-row reference column keeps them from cancelling into the answer."""
+    rng = np.random.default_rng(15)
+    raster = RasterDensity(rng.uniform(0.5, 1.5, size=(40, 100)), origin=[-0.1, -0.05],
+                           resolution=0.05)
+    x0 = -0.1 + 90.3 * 0.05
+    sliver = np.array([[x0, 0.0], [x0 + 1e-9, 0.0], [x0 + 1e-9, 0.7], [x0, 0.7]])
+    got = raster.moments([sliver], np.array([[x0, 0.0]]))
+    assert got.mass[0] > 0
+    offset = got.first[0, 0] / got.mass[0]  # centroid, east of the cell's west side
+    assert 0.0 < offset < 1e-9  # inside the cell (before: 14 nm off, outside it)
+    assert abs(offset - 0.5e-9) < 1e-10  # within a tenth of its width of the middle

@@ -335,10 +335,13 @@ class RasterDensity(Density):
         local = (np.concatenate([polygons[i] for i in order]) - grid.origin) / h
         scale = np.array([h**2, h**3, h**4, h**3, h**4])[:, None]
         sums = np.zeros((5, count))
-        sums[:, order] = boundary_sums(local, starts, grid.table, rows, cols) * scale
+        corners = np.zeros((count, 2))
+        found, shift = boundary_sums(local, starts, grid.table, rows, cols)
+        sums[:, order] = found * scale
+        corners[order] = shift.T * h  # each polygon's moments are about its own corner
         mass, sx, sxx, sy, syy = sums
         second = sxx + syy
-        a = about - grid.origin  # about, in the grid's local metres
+        a = about - grid.origin - corners  # about, from each polygon's corner, metres
         first = np.column_stack([sx - a[:, 0] * mass, sy - a[:, 1] * mass])
         polar = second - 2.0 * (a[:, 0] * sx + a[:, 1] * sy) + (a * a).sum(axis=1) * mass
         return CellMoments(mass, first, polar)

@@ -15,6 +15,13 @@ then integrate from the gathered rows. Batches are small enough that the work ar
 in cache and are reused (fresh large arrays cost a page fault per 4 KiB). Callers pass
 the polygons of neighbouring cells one after another (`locality_order`), so the second
 walk of a shared edge finds its rows still cached.
+
+Precision: the prefix sums run from the grid's west edge, so two edges of a narrow cell
+far east would cancel large, nearly equal numbers. A function of y alone integrates to
+zero around a closed boundary, so each row's prefix at the polygon's westmost column is
+subtracted first, and x and y are measured from the polygon's own south-west corner: the
+numbers that cancel are then the size of the polygon, not of the grid (a cell a
+nanometre wide keeps its centroid inside it).
 """
 
 from __future__ import annotations
@@ -94,13 +101,23 @@ def _piece_counts(vertices, starts, rows, cols):  # pragma: no cover
 
 
 @njit(cache=True)
-def _walk(vertices, starts, polygon, rows, cols, at, geometry, piece):  # pragma: no cover
+def _walk(vertices, starts, polygon, rows, cols, at, reference, geometry, piece, shift
+          ):  # pragma: no cover
     """Cut every non-horizontal edge of one polygon at its row and column crossings, in
     the order the edge meets them, writing from slot `piece` on: the table row `at` (-1:
     nothing to add: outside the grid's rows, where phi = 0, or zero height), the piece's
     signed height (up on the east side, down on the west), its middle (v, u) in cells
-    and du/dv. Returns the next free slot."""
+    and du/dv, and `reference`: the same row's cell in the polygon's westmost column.
+    Positions are stored relative to shift[:, polygon] = (westmost column, southmost
+    row), so moments come out about that corner. Returns the next free slot."""
     begin, end = starts[polygon], starts[polygon + 1]
+    west, south = vertices[begin, 0], vertices[begin, 1]
+    for s in range(begin + 1, end):
+        west = min(west, vertices[s, 0])
+        south = min(south, vertices[s, 1])
+    west_column = min(max(math.floor(west), 0), cols - 1)
+    south_row = float(math.floor(south))
+    shift[0, polygon], shift[1, polygon] = float(west_column), south_row
     for s in range(begin, end):
         following = s + 1 if s + 1 < end else begin
         ax, ay = vertices[s, 0], vertices[s, 1]
@@ -147,9 +164,10 @@ def _walk(vertices, starts, polygon, rows, cols, at, geometry, piece):  # pragma
                 else:
                     slope = dx / dy
                 at[piece] = row * cols + min(math.floor(u_mid), cols - 1)
+                reference[piece] = row * cols + west_column
                 geometry[piece, 0] = thick
-                geometry[piece, 1] = middle
-                geometry[piece, 2] = u_mid
+                geometry[piece, 1] = middle - south_row
+                geometry[piece, 2] = u_mid - west_column
                 geometry[piece, 3] = slope
             piece += 1
             f0 = f1
@@ -157,8 +175,9 @@ def _walk(vertices, starts, polygon, rows, cols, at, geometry, piece):  # pragma
 
 
 @njit(cache=True)
-def _integrate(at, geometry, gathered, begin, end, cols):  # pragma: no cover
-    """Sums over pieces begin..end-1 of the five boundary integrands, in cell units."""
+def _integrate(at, geometry, gathered, begin, end, cols, west_column):  # pragma: no cover
+    """Sums over pieces begin..end-1 of the five boundary integrands, in cell units about
+    (west_column, the polygon's southmost row)."""
     mass = sx = sxx = sy = syy = 0.0
     for piece in range(begin, end):
         if at[piece] < 0:
@@ -167,7 +186,7 @@ def _integrate(at, geometry, gathered, begin, end, cols):  # pragma: no cover
         u_mid, k = geometry[piece, 2], geometry[piece, 3]
         prefix_mass, prefix_x = gathered[piece, 0], gathered[piece, 1]
         prefix_xx, phi = gathered[piece, 2], gathered[piece, 3]
-        c = float(at[piece] % cols)
+        c = float(at[piece] % cols) - west_column
         spread = thick * thick / 12.0  # variance of v along the piece
         mean_vv = middle * middle + spread
         k_spread = k * spread
@@ -190,12 +209,15 @@ def _integrate(at, geometry, gathered, begin, end, cols):  # pragma: no cover
 def boundary_sums(vertices, starts, table, rows, cols):  # pragma: no cover
     """Per polygon p (vertices[starts[p]:starts[p + 1]], CCW, in cell units relative to
     the grid's south-west corner): the integrals of phi, x phi, x^2 phi, y phi, y^2 phi
-    (cell units), as a (5, polygons) array."""
+    (cell units) as a (5, polygons) array, with x and y measured from the polygon's own
+    corner `shift[:, p]` = (westmost column, southmost row), also returned."""
     count = len(starts) - 1
     out = np.zeros((5, count))
+    shift = np.zeros((2, count))
     pieces = _piece_counts(vertices, starts, rows, cols)
     capacity = max(BATCH_PIECES, pieces.max()) if count else 0
     at = np.empty(capacity, dtype=np.int64)
+    reference = np.empty(capacity, dtype=np.int64)
     geometry = np.empty((capacity, 4))
     gathered = np.empty((capacity, 4))
     first_piece = np.empty(count + 1, dtype=np.int64)
@@ -208,18 +230,27 @@ def boundary_sums(vertices, starts, table, rows, cols):  # pragma: no cover
         piece = 0
         for polygon in range(low, high):
             first_piece[polygon] = piece
-            piece = _walk(vertices, starts, polygon, rows, cols, at, geometry, piece)
+            piece = _walk(vertices, starts, polygon, rows, cols, at, reference, geometry,
+                          piece, shift)
         first_piece[high] = piece
         # The gather alone: independent reads, many cache misses in flight at once.
         for slot in range(piece):
-            row = at[slot]
-            if row >= 0:
-                gathered[slot, 0], gathered[slot, 1] = table[row, 0], table[row, 1]
-                gathered[slot, 2], gathered[slot, 3] = table[row, 2], table[row, 3]
+            cell, west = at[slot], reference[slot]
+            if cell >= 0:
+                # Prefix sums from the reference column, with x measured from it too:
+                # sum phi_j (j - c0 + 1/2) and sum phi_j ((j - c0 + 1)^3 - (j - c0)^3) / 3.
+                c0 = float(west % cols)
+                mass_part = table[cell, 0] - table[west, 0]
+                x_part = (table[cell, 1] - table[west, 1]) - c0 * mass_part
+                gathered[slot, 0] = mass_part
+                gathered[slot, 1] = x_part
+                gathered[slot, 2] = ((table[cell, 2] - table[west, 2]) - 2.0 * c0 * x_part
+                                     - c0 * c0 * mass_part)
+                gathered[slot, 3] = table[cell, 3]
         for polygon in range(low, high):
             sums = _integrate(at, geometry, gathered, first_piece[polygon],
-                              first_piece[polygon + 1], cols)
+                              first_piece[polygon + 1], cols, shift[0, polygon])
             for moment in range(5):
                 out[moment, polygon] = sums[moment]
         low = high
-    return out
+    return out, shift
