@@ -151,10 +151,13 @@ def test_batch_rejects_bad_placement(
     assert not (tmp_path / "out.json").exists()
 
 
-def test_ctrl_c_in_a_terminal_stops_a_batch_on_a_local_cluster(tmp_path: Path) -> None:
-    """A terminal's Ctrl-C reaches the whole process group, workers included: once the
-    runs are under way the batch still ends with status 130 (128 + SIGINT, common practice
-    for shells), the word "interrupted", no traceback from any process and no summary."""
+@pytest.mark.parametrize("moment", ["cluster starting", "runs under way"])
+def test_ctrl_c_in_a_terminal_stops_a_batch_on_a_local_cluster(tmp_path: Path,
+                                                               moment: str) -> None:
+    """A terminal's Ctrl-C goes to the whole foreground process group: while the local
+    cluster starts or once runs are under way, the batch ends with status 130 (128 +
+    SIGINT, common practice for shells), the word "interrupted", no traceback from any
+    process and no summary."""
     summary = tmp_path / "summary.json"
     process = subprocess.Popen(
         [sys.executable, "-m", "coverage_fleet.cli.main", "batch",
@@ -165,9 +168,9 @@ def test_ctrl_c_in_a_terminal_stops_a_batch_on_a_local_cluster(tmp_path: Path) -
     )
     assert process.stderr is not None
     seen = []
-    for line in process.stderr:  # wait until a worker has finished a run
+    for line in process.stderr:  # the cluster is starting, or a worker finished a run
         seen.append(line)
-        if "done" in line:
+        if ("runs on" in line) if moment == "cluster starting" else ("done" in line):
             break
     os.killpg(process.pid, signal.SIGINT)
     _, err = process.communicate(timeout=300)

@@ -2,8 +2,9 @@
 machine's cores (the default), or on an existing Dask cluster the user points at.
 
 Engine: Dask distributed (`distributed` on the package index). Why Dask and not Ray:
-- it is pure Python and light: a local cluster is a scheduler inside this process plus one
-  worker process per core, ready in a second or two on a 2-core machine; Ray brings a
+- it is pure Python and light: the embedded local cluster (a Dask LocalCluster in a helper
+  process this command starts and stops) is a scheduler plus one worker process per core,
+  ready in a few seconds on a 2-core machine; Ray brings a
   compiled runtime, an object store and a dashboard service that cost memory and start-up
   time a study of a few dozen short simulations never earns back;
 - a cluster someone already runs is reached by one address (`tcp://HOST:PORT`, started with
@@ -19,15 +20,20 @@ started with the same variables for bit-identical results. Workers need this pac
 importable (the local cluster's workers are children of this process, so they have it).
 
 Only loopback is used by the local cluster (scheduler, workers and the scheduler's small
-status server listen on 127.0.0.1; no dashboard).
+status server listen on 127.0.0.1; no dashboard). Ctrl-C reaches only this process (the
+cluster runs in a session of its own) and stops the study at the next safe point.
 """
 
 from __future__ import annotations
 
+import contextlib
 import os
 import re
+import select
 import signal
-import threading
+import subprocess
+import sys
+import tempfile
 import time
 import warnings
 from collections.abc import Callable, Sequence
@@ -128,43 +134,109 @@ def run_all(
     finally:
         client.close()
         if cluster is not None:
-            cluster.close()
+            _stop_local_cluster(cluster)
 
 
 def _connect(placement: Placement, runs: int) -> tuple[Any, Any]:
-    """A Dask client, and the local cluster it owns (None for an existing cluster)."""
-    import dask  # imported here: the engine is only needed when runs go to workers
-    from distributed import Client, LocalCluster
+    """A Dask client, and the local cluster helper it owns (None for an existing
+    cluster)."""
+    from distributed import Client  # imported here: only needed when runs go to workers
 
+    helper = None
     if placement.scheduler is not None:
         address = _normalised(placement.scheduler)
-        try:
-            client = Client(address, timeout=CONNECT_TIMEOUT_S, set_as_default=False)
-        except (OSError, TimeoutError) as error:
-            raise ConfigError.single(
-                "command line", "--scheduler",
-                f"cannot reach a Dask scheduler at {address} within "
-                f"{CONNECT_TIMEOUT_S:g} s ({type(error).__name__}: {error})") from None
-        return client, None
-    # Ctrl-C in a terminal goes to the whole process group. The workers must not see it
-    # (one that dies mid-start takes the cluster down with a traceback); this process stops
-    # them in order. So SIGINT is ignored while the cluster starts: the worker processes
-    # inherit "ignore" and keep it. Known limit: a Ctrl-C in those few seconds is lost
-    # here too (the disposition is per process); from then on it is held for the next
-    # safe point as usual.
-    in_main_thread = threading.current_thread() is threading.main_thread()
-    previous = signal.signal(signal.SIGINT, signal.SIG_IGN) if in_main_thread else None
+    else:
+        helper, address = _start_local_cluster(min(placement.workers, runs))
     try:
-        with dask.config.set({"distributed.nanny.pre-spawn-environ": PINNED_THREADS}), \
-                warnings.catch_warnings():
-            # Its status page moves to a free loopback port when the usual one is taken.
-            warnings.filterwarnings("ignore", message="Port .* is already in use")
-            cluster = LocalCluster(
-                n_workers=min(placement.workers, runs), threads_per_worker=1,
-                processes=True, host="127.0.0.1", dashboard_address=None, silence_logs=50,
-            )
-        client = Client(cluster, set_as_default=False)
-    finally:
-        if in_main_thread:
-            signal.signal(signal.SIGINT, previous)
-    return client, cluster
+        client = Client(address, timeout=CONNECT_TIMEOUT_S, set_as_default=False)
+    except (OSError, TimeoutError) as error:
+        if helper is not None:
+            _stop_local_cluster(helper)
+        raise ConfigError.single(
+            "command line", "--scheduler",
+            f"cannot reach a Dask scheduler at {address} within "
+            f"{CONNECT_TIMEOUT_S:g} s ({type(error).__name__}: {error})") from None
+    return client, helper
+
+
+#: Seconds the local cluster may take to start (imports on a busy 2-core machine).
+LOCAL_START_TIMEOUT_S = 180.0
+
+
+def _start_local_cluster(workers: int) -> tuple[subprocess.Popen, str]:
+    """Start the embedded local cluster in a helper process and return it with the
+    scheduler's address.
+
+    Why a helper process in a session of its own: a terminal's Ctrl-C goes to the whole
+    foreground process group. Worker processes that get it die mid-start with tracebacks;
+    keeping them out of that group lets this process take the Ctrl-C alone (at its safe
+    points, never lost) and stop the cluster in order. The helper stops when its standard
+    input closes, so it also ends when this process dies."""
+    with tempfile.TemporaryFile(mode="w+") as errors:
+        helper = subprocess.Popen(
+            [sys.executable, "-m", "coverage_fleet.fleet.parallel", str(workers)],
+            stdin=subprocess.PIPE, stdout=subprocess.PIPE, stderr=errors, text=True,
+            start_new_session=True, env={**os.environ, **PINNED_THREADS},
+        )
+        try:
+            return helper, _await_address(helper, errors, workers)
+        except BaseException:
+            _stop_local_cluster(helper)
+            raise
+
+
+def _await_address(helper: subprocess.Popen, errors: Any, workers: int) -> str:
+    """The scheduler address the helper prints; Ctrl-C is honoured while waiting."""
+    assert helper.stdout is not None
+    deadline = time.monotonic() + LOCAL_START_TIMEOUT_S
+    while True:
+        raise_if_interrupted()
+        ready, _, _ = select.select([helper.stdout], [], [], _POLL_S)
+        line = helper.stdout.readline().strip() if ready else ""
+        if line.startswith("tcp://"):
+            return line
+        ended = helper.poll()
+        if ended is not None or (ready and not line) or time.monotonic() > deadline:
+            errors.seek(0)
+            tail = " ".join(errors.read().strip().splitlines()[-3:])
+            why = "no answer" if ended is None else f"exit status {ended}"
+            raise ConfigError.single(
+                "command line", "--workers",
+                f"the local cluster of {workers} workers did not start ({why}"
+                f"{': ' + tail if tail else ''})")
+
+
+def _stop_local_cluster(helper: subprocess.Popen) -> None:
+    """Close the helper's input (it closes its cluster and exits); kill its process group
+    if it has not gone within a few seconds."""
+    with contextlib.suppress(OSError):
+        if helper.stdin is not None:
+            helper.stdin.close()
+    try:
+        helper.wait(timeout=20.0)
+    except subprocess.TimeoutExpired:
+        with contextlib.suppress(ProcessLookupError):
+            os.killpg(helper.pid, signal.SIGKILL)
+        helper.wait()
+
+
+def serve_local_cluster(workers: int) -> None:
+    """The helper's side: start the cluster (loopback only, one thread and one BLAS
+    thread per worker, no dashboard), print the scheduler's address, and keep it until
+    standard input closes."""
+    import dask
+    from distributed import LocalCluster
+
+    with dask.config.set({"distributed.nanny.pre-spawn-environ": PINNED_THREADS}), \
+            warnings.catch_warnings():
+        # Its status page moves to a free loopback port when the usual one is taken.
+        warnings.filterwarnings("ignore", message="Port .* is already in use")
+        cluster = LocalCluster(n_workers=workers, threads_per_worker=1, processes=True,
+                               host="127.0.0.1", dashboard_address=None, silence_logs=50)
+    with cluster:
+        print(cluster.scheduler_address, flush=True)
+        sys.stdin.read()
+
+
+if __name__ == "__main__":
+    serve_local_cluster(int(sys.argv[1]))
