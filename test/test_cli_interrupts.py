@@ -53,8 +53,7 @@ def test_batch_stops_on_ctrl_c(tmp_path: Path) -> None:
     )
     assert process.stdout is not None
     process.stdout.readline()  # the table header
-    # The first finished run: the local cluster is up and the others are under way (a
-    # Ctrl-C while the cluster starts is a documented limit, see fleet/parallel.py).
+    # The first finished run: the local cluster is up and the other runs are under way.
     process.stdout.readline()
     process.send_signal(signal.SIGINT)
     _, err = process.communicate(timeout=180)
