@@ -21,7 +21,6 @@ from coverage_fleet.geometry.density import (
     UniformDensity,
     density_from_config,
     load_raster_values,
-    read_pgm,
 )
 from coverage_fleet.geometry.partition import compute_partition, voronoi_cells
 from coverage_fleet.geometry.polygon import uniform_moments
@@ -256,51 +255,54 @@ def test_raster_cell_layout_rows_south_first_in_memory() -> None:
 # --- files --------------------------------------------------------------------------------
 
 
-def test_pgm_8_and_16_bit_binary_match_pillow(tmp_path: Path) -> None:
-    """Reference: images written by Pillow (PIL), a general-purpose image library."""
+@pytest.mark.parametrize("suffix", [".pgm", ".png"])
+def test_images_8_and_16_bit_scale_to_full_scale(tmp_path: Path, suffix: str) -> None:
+    """Images written by Pillow (PIL), a general-purpose image library; the full scale of
+    an n-bit greyscale sample is 2**n - 1 (PNG specification, W3C 2003, section 12.5 sBIT
+    and 4.1 image data; Netpbm PGM specification, netpbm.sourceforge.net/doc/pgm.html)."""
     rng = np.random.default_rng(2)
     small = rng.integers(0, 256, size=(7, 11), dtype=np.uint8)
-    Image.fromarray(small).save(tmp_path / "eight.pgm")
-    samples, maxval = read_pgm(tmp_path / "eight.pgm")
-    assert maxval == 255
-    np.testing.assert_array_equal(samples, small)
+    Image.fromarray(small).save(tmp_path / f"eight{suffix}")
+    np.testing.assert_array_equal(load_raster_values(tmp_path / f"eight{suffix}"),
+                                  small / 255.0)
     wide = rng.integers(0, 65536, size=(5, 9)).astype(np.uint16)
-    Image.fromarray(wide).save(tmp_path / "sixteen.pgm")
-    samples, maxval = read_pgm(tmp_path / "sixteen.pgm")
-    assert maxval == 65535
-    np.testing.assert_array_equal(samples, wide)
-    # And back: what we read is what Pillow reads.
-    np.testing.assert_array_equal(samples, np.array(Image.open(tmp_path / "sixteen.pgm")))
+    Image.fromarray(wide).save(tmp_path / f"sixteen{suffix}")
+    np.testing.assert_array_equal(load_raster_values(tmp_path / f"sixteen{suffix}"),
+                                  wide / 65535.0)
 
 
 def test_pgm_plain_ascii_with_comments(tmp_path: Path) -> None:
     # Layout from the Netpbm PGM specification (netpbm.sourceforge.net/doc/pgm.html),
-    # comments in the header and a maxval other than 255.
+    # comments in the header and a maxval other than 255: values are samples / maxval.
     (tmp_path / "plain.pgm").write_text(
         "P2\n# invented frost pocket\n4 2 # width height\n15\n0 3 7 15\n# row two\n1 2 3 4\n"
     )
-    samples, maxval = read_pgm(tmp_path / "plain.pgm")
-    assert maxval == 15
-    np.testing.assert_array_equal(samples, [[0, 3, 7, 15], [1, 2, 3, 4]])
     values = load_raster_values(tmp_path / "plain.pgm")
-    np.testing.assert_allclose(values[0], [0, 0.2, 7 / 15, 1.0])
+    np.testing.assert_allclose(values, [[0, 3 / 15, 7 / 15, 1.0], [1 / 15, 2 / 15, 3 / 15,
+                                                                     4 / 15]])
 
 
 @pytest.mark.parametrize(
-    ("content", "fragment"),
+    ("name", "content", "fragment"),
     [
-        (b"P6\n1 1\n255\n\x00\x00\x00", "not a PGM"),
-        (b"P5\n4 4\n255\n\x00\x01", "short"),
-        (b"P2\n2 1\n10\n3 11\n", "0..10"),
-        (b"P5\n2 x\n255\n\x00\x00", "bad PGM header"),
-        (b"P5\n2 2\n70000\n", "maxval"),
-        (b"P2\n2 2\n", "header ends early"),
+        ("bad.pgm", b"P6\n1 1\n255\n\x00\x00\x00", "greyscale"),
+        ("bad.pgm", b"P5\n4 4\n255\n\x00\x01", "cannot read it as a PGM"),
+        ("bad.pgm", b"P5\n2 x\n255\n\x00\x00", "PGM"),
+        ("bad.pgm", b"GIF89a", "not a PGM image"),
+        ("bad.png", b"\x89PNG\r\n\x1a\n\x00", "PNG"),
     ],
 )
-def test_malformed_pgm_is_reported(tmp_path: Path, content: bytes, fragment: str) -> None:
-    (tmp_path / "bad.pgm").write_bytes(content)
+def test_malformed_images_are_reported(tmp_path: Path, name: str, content: bytes,
+                                       fragment: str) -> None:
+    (tmp_path / name).write_bytes(content)
     with pytest.raises(ValueError, match=fragment):
-        read_pgm(tmp_path / "bad.pgm")
+        load_raster_values(tmp_path / name)
+
+
+def test_colour_png_is_refused(tmp_path: Path) -> None:
+    Image.fromarray(np.zeros((2, 2, 3), dtype=np.uint8)).save(tmp_path / "colour.png")
+    with pytest.raises(ValueError, match=r"greyscale.*'RGB'"):
+        load_raster_values(tmp_path / "colour.png")
 
 
 def test_npy_and_csv_files_first_row_is_north(tmp_path: Path) -> None:

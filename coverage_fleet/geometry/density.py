@@ -365,70 +365,40 @@ class RasterDensity(Density):
 # Raster files
 
 
-def read_pgm(path: Path) -> tuple[np.ndarray, int]:
-    """parse_pgm of a file's bytes."""
-    return parse_pgm(read_bytes(path))
+#: Greyscale image modes Pillow gives for the raster image files, and the full scale each
+#: divides by: 8-bit images ("L") by 255, 16-bit ones by 65535 (PNG opens as "I;16", a PGM
+#: with maxval above 255 as "I"). Pillow rescales a PGM's samples from its maxval to the
+#: full scale of its bit depth (rounded to whole counts), so a pixel's value is
+#: sample / maxval up to that rounding.
+IMAGE_FULL_SCALE = {"L": 255.0, "I;16": 65535.0, "I;16B": 65535.0, "I;16L": 65535.0,
+                    "I": 65535.0}
+#: Raster image types and the Pillow plugin that reads each (PGM is in the PPM plugin).
+IMAGE_FORMATS = {".pgm": "PPM", ".png": "PNG"}
 
 
-def parse_pgm(data: bytes) -> tuple[np.ndarray, int]:
-    """Parse a PGM image (binary P5 or plain P2, 8 or 16 bit) as written, first row = top.
+def image_values(data: bytes, suffix: str) -> np.ndarray:
+    """Pixels of a greyscale PGM or PNG image (8 or 16 bit) divided by the full scale of
+    its bit depth, so 0..1, first row = top, read with Pillow. Raises ValueError with a
+    plain description on anything else (colour, palette or alpha images, damaged files)."""
+    from PIL import Image, UnidentifiedImageError
 
-    Format: Netpbm PGM specification (netpbm.sourceforge.net/doc/pgm.html): magic, width,
-    height, maxval as ASCII decimals separated by whitespace, '#' comments to end of line
-    in the header; P5 then one whitespace byte and the samples (1 byte each if maxval < 256,
-    else 2 bytes, most significant first); P2 samples are ASCII decimals.
-    Raises ValueError with a plain description on malformed files.
-    """
-    magic = data[:2]
-    if magic not in (b"P5", b"P2"):
-        raise ValueError("not a PGM image (expected magic P5 or P2)")
-    pos = 2
-
-    def token() -> bytes:
-        nonlocal pos
-        while pos < len(data):
-            if data[pos : pos + 1].isspace():
-                pos += 1
-            elif data[pos : pos + 1] == b"#":
-                while pos < len(data) and data[pos : pos + 1] not in (b"\n", b"\r"):
-                    pos += 1
-            else:
-                break
-        start = pos
-        while pos < len(data) and not data[pos : pos + 1].isspace() and data[pos:pos + 1] != b"#":
-            pos += 1
-        if start == pos:
-            raise ValueError("the PGM header ends early")
-        return data[start:pos]
-
+    kind = IMAGE_FORMATS[suffix]
+    label = suffix[1:].upper()
     try:
-        width, height, maxval = (int(token()) for _ in range(3))
-    except ValueError as exc:
-        raise ValueError(f"bad PGM header: {exc}") from None
-    if width <= 0 or height <= 0:
-        raise ValueError(f"PGM size must be positive, got {width} x {height}")
-    if not 0 < maxval < 65536:
-        raise ValueError(f"PGM maxval must be 1..65535, got {maxval}")
-    count = width * height
-    if magic == b"P5":
-        pos += 1  # exactly one whitespace byte ends the header
-        dtype = np.dtype(">u1") if maxval < 256 else np.dtype(">u2")
-        needed = count * dtype.itemsize
-        if len(data) - pos < needed:
-            raise ValueError(f"PGM data is short: {len(data) - pos} of {needed} bytes")
-        samples = np.frombuffer(data, dtype=dtype, count=count, offset=pos).astype(np.int64)
-    else:
-        text = b"\n".join(line.split(b"#", 1)[0] for line in data[pos:].splitlines())
-        parts = text.split()
-        if len(parts) < count:
-            raise ValueError(f"PGM data is short: {len(parts)} of {count} samples")
-        try:
-            samples = np.array([int(p) for p in parts[:count]], dtype=np.int64)
-        except ValueError:
-            raise ValueError("PGM samples must be integers") from None
-    if samples.max(initial=0) > maxval or samples.min(initial=0) < 0:
-        raise ValueError(f"PGM samples must lie in 0..{maxval}")
-    return samples.reshape(height, width), maxval
+        with Image.open(io.BytesIO(data), formats=[kind]) as image:
+            mode = image.mode
+            pixels = np.array(image) if mode in IMAGE_FULL_SCALE else None
+    except UnidentifiedImageError:
+        raise ValueError(f"not a {label} image") from None
+    # Pillow reports damaged headers as ValueError or SyntaxError, short data as OSError.
+    except (OSError, ValueError, SyntaxError, Image.DecompressionBombError) as exc:
+        raise ValueError(f"cannot read it as a {label} image: {exc}") from None
+    if pixels is None:
+        raise ValueError(f"must be a greyscale image of 8 or 16 bits, got Pillow mode "
+                         f"{mode!r}; save it as greyscale")
+    if mode == "I" and (pixels.min() < 0 or pixels.max() > 65535):
+        raise ValueError("must be a greyscale image of 8 or 16 bits (samples beyond 0..65535)")
+    return pixels.astype(float) / IMAGE_FULL_SCALE[mode]
 
 
 def load_raster_values(path: Path) -> np.ndarray:
@@ -439,7 +409,8 @@ def load_raster_values(path: Path) -> np.ndarray:
 
 def raster_values(data: bytes, suffix: str, source: str) -> np.ndarray:
     """Values of raster file content as written (first row = north): .npy (2-D numeric
-    array), .csv (comma-separated rows, '#' comments) or .pgm (pixels / maxval, so 0..1).
+    array), .csv (comma-separated rows, '#' comments), .pgm or .png (greyscale, 8 or 16
+    bit: pixels / full scale, so 0..1; see image_values).
     Raises ValueError with a plain description on malformed content (ConfigError for text
     that is not UTF-8)."""
     suffix = suffix.lower()
@@ -458,11 +429,10 @@ def raster_values(data: bytes, suffix: str, source: str) -> np.ndarray:
                                 dtype=float)
         except ValueError as exc:
             raise ValueError(f"cannot read it as CSV numbers: {exc}") from None
-    elif suffix == ".pgm":
-        samples, maxval = parse_pgm(data)
-        values = samples / float(maxval)
+    elif suffix in IMAGE_FORMATS:
+        values = image_values(data, suffix)
     else:
-        raise ValueError(f"unknown raster file type {suffix!r} (use .npy, .csv, .pgm)")
+        raise ValueError(f"unknown raster file type {suffix!r} (use .npy, .csv, .pgm, .png)")
     values = np.asarray(values, dtype=float)
     if values.ndim != 2 or values.size == 0:
         raise ValueError(f"the raster must be a non-empty 2-D array, got shape {values.shape}")
@@ -537,7 +507,7 @@ def _raster(read: FieldReader, out: Collector, base_dir: Path | None) -> RasterD
     if read.has("file") == read.has("values"):
         read.raw("file")
         read.raw("values")
-        out.add(read.section, "give exactly one of 'file' (a .npy, .csv or .pgm path) or "
+        out.add(read.section, "give exactly one of 'file' (a .npy, .csv, .pgm or .png path) or "
                 "'values' (rows of numbers, north first)")
     elif read.has("file"):
         name = read.text("file")
@@ -608,12 +578,12 @@ def density_from_config(
                        bumps: list of {weight: > 0 (the bump's mass over the plane),
                                        mean: [x, y] m, covariance: [[sxx, sxy], [sxy, syy]] m^2,
                                        symmetric positive definite}
-      raster:          file: .npy | .csv | .pgm path, relative to base_dir   (or)
+      raster:          file: .npy | .csv | .pgm | .png path, relative to base_dir   (or)
                        values: rows of numbers, north row first
                        origin: [x, y] m, south-west corner of the grid       (required)
                        resolution: > 0, metres per cell (square cells)       (required)
-                       scale: > 0, default 1.0 (multiplies the values; PGM pixels are
-                              first divided by maxval, so they run 0..1)
+                       scale: > 0, default 1.0 (multiplies the values; image pixels
+                              are first divided by 255 or 65535, so they run 0..1)
                        fill_value: >= 0, phi outside the grid; without it the grid must
                               cover the region
     """
