@@ -98,7 +98,9 @@ def test_candidate_table_round_trip() -> None:
         masses={0: 10.0, 3: 20.0},
     )
     msg = cv.candidates_to_msg(values)
-    assert [d.label for d in msg.layout.dim] == ["rows", "roster_index,px,py,cx,cy,mass"]
+    assert [d.label for d in msg.layout.dim] == [
+        "row 0: time,cost,robots; rows 1..n: one robot each", "roster_index,px,py,cx,cy,mass"
+    ]
     assert len(msg.data) == 3 * 6
     back = cv.candidates_from_msg(msg)
     assert (back.time, back.cost) == (2.5, 11.0)
@@ -130,6 +132,59 @@ def test_opening_table_round_trip() -> None:
     assert (back.generation, back.time, back.cost, back.reason) == (4, 9.0, 3.25, "progress")
     assert np.allclose(back.targets[1], [2.0, 3.0])
     assert back.distances == {1: 2.83}
+
+
+def _read_by_labels(msg) -> tuple[dict[str, float], list[dict[str, float]], str]:
+    """A reader that knows nothing but the labels (as someone echoing the topic would):
+    row 0's fields from the first label, the per-robot columns from the second."""
+    rows_label, columns_label = (d.label for d in msg.layout.dim)
+    head = rows_label.split(";")[0].removeprefix("row 0: ").split(" (")[0].split(",")
+    columns = columns_label.split(",")
+    n_rows, n_cols = (d.size for d in msg.layout.dim)
+    table = np.asarray(msg.data).reshape(n_rows, n_cols)
+    row0 = dict(zip(head, table[0], strict=False))
+    body = [dict(zip(columns, row, strict=True)) for row in table[1:]]
+    return row0, body, rows_label
+
+
+def test_candidate_table_reads_back_from_its_labels_alone() -> None:
+    values = cv.CandidateValues(
+        time=7.5, cost=2.0, positions={2: np.array([1.0, 2.0])},
+        centroids={2: np.array([3.0, 4.0])}, masses={2: 5.0},
+    )
+    row0, body, _ = _read_by_labels(cv.candidates_to_msg(values))
+    assert row0 == {"time": 7.5, "cost": 2.0, "robots": 1.0}
+    assert body == [
+        {"roster_index": 2.0, "px": 1.0, "py": 2.0, "cx": 3.0, "cy": 4.0, "mass": 5.0}
+    ]
+
+
+def test_opening_table_reads_back_from_its_labels_alone() -> None:
+    values = cv.OpeningValues(
+        generation=6, time=9.0, cost=3.25, reason="roster",
+        positions={1: np.array([0.0, 1.0])}, targets={1: np.array([2.0, 3.0])},
+        distances={1: 2.5},
+    )
+    row0, body, rows_label = _read_by_labels(cv.opening_to_msg(values))
+    assert row0 == {"generation": 6.0, "time": 9.0, "cost": 3.25, "reason": 2.0, "robots": 1.0}
+    codes = dict(
+        item.split("=") for item in rows_label.split("(reason ")[1].split(")")[0].split()
+    )
+    assert codes[str(int(row0["reason"]))] == "roster"
+    assert body[0]["tx"] == 2.0 and body[0]["distance"] == 2.5
+
+
+def test_tables_with_the_earlier_plain_rows_label_are_still_read() -> None:
+    """Readers check the column label only: tables whose first label said just "rows"
+    (written before the layout was described in the message) still read back."""
+    values = cv.OpeningValues(
+        generation=2, time=1.0, cost=4.0, reason="start",
+        positions={0: np.zeros(2)}, targets={0: np.ones(2)}, distances={0: 1.4},
+    )
+    msg = cv.opening_to_msg(values)
+    msg.layout.dim[0].label = "rows"
+    back = cv.opening_from_msg(msg)
+    assert (back.generation, back.reason, back.distances) == (2, "start", {0: 1.4})
 
 
 def test_plan_poses_are_stamped_per_sample() -> None:

@@ -19,6 +19,7 @@ import pytest
 
 rclpy = pytest.importorskip("rclpy", reason="ROS 2 wheels not installed (scripts/setup_env.sh)")
 
+from diagnostic_msgs.msg import DiagnosticArray  # noqa: E402
 from geometry_msgs.msg import PointStamped, Vector3Stamped  # noqa: E402
 from nav_msgs.msg import Odometry  # noqa: E402
 from std_msgs.msg import Float64MultiArray  # noqa: E402
@@ -59,6 +60,11 @@ class FakeFleet:
         self.target_xy: dict[str, tuple[float, float]] = {}
         self.openings: list[cv.OpeningValues] = []
         self.candidates = 0
+        #: the gate's newest /diagnostics values
+        self.gate_health: dict[str, str] = {}
+        self.node.create_subscription(
+            DiagnosticArray, topics.DIAGNOSTICS, self._on_diagnostics, qos.DISPLAY
+        )
         for name in START:
             self.node.create_subscription(
                 PointStamped, topics.robot_topic(name, topics.TARGET),
@@ -77,6 +83,11 @@ class FakeFleet:
         xy, stamp = cv.target_from_msg(msg)
         self.targets[name] = stamp
         self.target_xy[name] = (float(xy[0]), float(xy[1]))
+
+    def _on_diagnostics(self, msg: DiagnosticArray) -> None:
+        for status in msg.status:
+            if status.name == "coverage_fleet/reference_gate":
+                self.gate_health = {kv.key: kv.value for kv in status.values}
 
     def move_onto_targets(self) -> None:
         self.positions = dict(self.target_xy)
@@ -164,3 +175,13 @@ def test_a_stale_progress_report_never_opens_the_gate(base_station: FakeFleet) -
     assert [o.generation for o in fleet.openings] == [0, 1, 2]
     costs = [o.cost for o in fleet.openings]
     assert costs[0] > costs[1] > costs[2] and np.isfinite(costs[2])
+
+    # People read the generation on /diagnostics as a plain number, with the commit time
+    # in seconds (the wire names generations by nanosecond stamps).
+    fleet.spin_until(
+        lambda: fleet.gate_health.get("generation") == "2", "generation 2 on /diagnostics"
+    )
+    assert float(fleet.gate_health["committed_at"]) == pytest.approx(
+        fleet.openings[2].time, abs=1e-3
+    )
+    assert fleet.gate_health["robots"] == "rover_a,rover_b"

@@ -27,6 +27,7 @@ from diagnostic_msgs.msg import DiagnosticArray, DiagnosticStatus
 from geometry_msgs.msg import PointStamped, Vector3Stamped
 from nav_msgs.msg import Odometry, Path
 from rclpy.node import Node
+from std_msgs.msg import UInt32
 
 from coverage_fleet.control.controller import RobotController
 from coverage_fleet.control.sampling import SampledController
@@ -111,6 +112,8 @@ class ControllerNode(Node):
         self.state: np.ndarray | None = None
         self.state_time = -np.inf
         self.generation_stamp_ns = 0
+        #: The fleet's generation as the gate announces it (for people reading diagnostics).
+        self.fleet_generation: int | None = None
 
         self.cmd_pub = self.create_publisher(
             command_message_type(spec.command_kind), topics.CMD_VEL, qos.COMMAND
@@ -121,6 +124,10 @@ class ControllerNode(Node):
         self.diag_pub = self.create_publisher(DiagnosticArray, topics.DIAGNOSTICS, qos.DISPLAY)
         self.create_subscription(Odometry, topics.ODOM, self._on_odom, qos.STATE)
         self.create_subscription(PointStamped, topics.TARGET, self._on_target, qos.LATCHED)
+        self.create_subscription(
+            UInt32, topics.GENERATION,
+            lambda msg: setattr(self, "fleet_generation", int(msg.data)), qos.LATCHED,
+        )
         self.create_timer(self.sample_time, self._watchdog)
         self.create_timer(self.diagnostics_period, self._publish_diagnostics)
 
@@ -211,7 +218,10 @@ class ControllerNode(Node):
             "state_age": f"{age:.3f}",
             "solver_failures": self.controller.failures,
             "solves": self.controller.solves,
-            "generation_stamp": self.generation_stamp_ns,
+            # Readable: the fleet's generation number and, in seconds of the graph's clock,
+            # the commit stamp of the target this robot tracks (0 = no target yet).
+            "generation": "" if self.fleet_generation is None else self.fleet_generation,
+            "target_committed_at": f"{self.generation_stamp_ns * 1e-9:.3f}",
         }
         array = DiagnosticArray()
         array.header.stamp = self.get_clock().now().to_msg()

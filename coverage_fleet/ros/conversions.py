@@ -20,6 +20,12 @@ Layouts that standard types do not name by field:
   rows of OPENING_COLUMNS; row 0 is [generation, time (s), coverage cost H at the positions
   the targets came from, reason, robots, 0] with reason 0 = start, 1 = progress, 2 = roster
   change; then per robot [roster index, px, py, target x, target y, distance at commit].
+
+Both tables carry their layout in the message itself, so that `ros2 topic echo` or a
+recording is readable without this file: the first dimension's label names the fields of
+row 0 and says that one row per robot follows (`table_rows_label`), the second dimension's
+label names the columns. Readers check the column label and accept any first label (tables
+written before the first label was descriptive said only "rows").
 """
 
 from __future__ import annotations
@@ -52,8 +58,12 @@ from coverage_fleet.vehicles.base import CommandKind, CommandValues, OdometryVal
 from .topics import MAP_FRAME
 
 CANDIDATE_COLUMNS = ("roster_index", "px", "py", "cx", "cy", "mass")
+#: Fields of row 0 of a candidates table (the rest of row 0 is zero).
+CANDIDATE_HEADER = ("time", "cost", "robots")
 OPENING_COLUMNS = ("roster_index", "px", "py", "tx", "ty", "distance")
 OPENING_REASONS = ("start", "progress", "roster")
+#: Fields of row 0 of an openings table; reason is an index into OPENING_REASONS.
+OPENING_HEADER = ("generation", "time", "cost", "reason", "robots")
 
 # --- time ---------------------------------------------------------------------------------
 
@@ -227,11 +237,25 @@ class CandidateValues:
     masses: dict[int, float]
 
 
-def _table(rows: np.ndarray, columns: Sequence[str]) -> Float64MultiArray:
+def table_rows_label(header: Sequence[str], codes: str = "") -> str:
+    """Label of a table's first dimension: what row 0 holds and what follows, e.g.
+    `row 0: time,cost,robots; rows 1..n: one robot each`. `codes` explains coded fields."""
+    explained = f" ({codes})" if codes else ""
+    return f"row 0: {','.join(header)}{explained}; rows 1..n: one robot each"
+
+
+CANDIDATE_ROWS_LABEL = table_rows_label(CANDIDATE_HEADER)
+OPENING_ROWS_LABEL = table_rows_label(
+    OPENING_HEADER,
+    "reason " + " ".join(f"{k}={name}" for k, name in enumerate(OPENING_REASONS)),
+)
+
+
+def _table(rows: np.ndarray, columns: Sequence[str], rows_label: str) -> Float64MultiArray:
     msg = Float64MultiArray()
     n_rows, n_cols = rows.shape
     msg.layout.dim = [
-        MultiArrayDimension(label="rows", size=n_rows, stride=n_rows * n_cols),
+        MultiArrayDimension(label=rows_label, size=n_rows, stride=n_rows * n_cols),
         MultiArrayDimension(label=",".join(columns), size=n_cols, stride=n_cols),
     ]
     msg.layout.data_offset = 0
@@ -260,7 +284,7 @@ def candidates_to_msg(values: CandidateValues) -> Float64MultiArray:
             *values.centroids[index],
             values.masses[index],
         )
-    return _table(rows, CANDIDATE_COLUMNS)
+    return _table(rows, CANDIDATE_COLUMNS, CANDIDATE_ROWS_LABEL)
 
 
 def candidates_from_msg(msg: Float64MultiArray) -> CandidateValues:
@@ -312,7 +336,7 @@ def opening_to_msg(values: OpeningValues) -> Float64MultiArray:
             *values.targets[index],
             values.distances[index],
         )
-    return _table(rows, OPENING_COLUMNS)
+    return _table(rows, OPENING_COLUMNS, OPENING_ROWS_LABEL)
 
 
 def opening_from_msg(msg: Float64MultiArray) -> OpeningValues:

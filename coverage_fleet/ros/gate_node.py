@@ -25,11 +25,17 @@ of the current cells, at the partition's time) and each robot's latest `odom` tw
 planar speed, as the robot's localisation reports it: no differencing of noisy positions).
 Its status, "moving", "settled" or "stuck", goes out on `coverage/settling` (latched)
 whenever it changes.
+
+The gate's health goes out on /diagnostics (`coverage_fleet/reference_gate`) every
+`diagnostics_period` and at every opening: the generation as a plain number (the stamps
+that name generations on the wire are not meant for people), when and why it was
+committed, the cost then, the robots, the settle status and the reports ignored.
 """
 
 from __future__ import annotations
 
 import numpy as np
+from diagnostic_msgs.msg import DiagnosticArray, DiagnosticStatus
 from geometry_msgs.msg import PointStamped, Vector3Stamped
 from nav_msgs.msg import Odometry
 from rclpy.node import Node
@@ -45,6 +51,7 @@ from . import qos, topics
 from .conversions import (
     OpeningValues,
     candidates_from_msg,
+    diagnostic_status,
     nanoseconds_to_stamp,
     opening_to_msg,
     progress_from_msg,
@@ -142,6 +149,13 @@ class GateNode(Node):
         )
         self.settling_pub = self.create_publisher(String, topics.SETTLING, qos.LATCHED)
         self.settling_pub.publish(String(data=self.settling))
+        self.last_opening = None
+        self.diag_pub = self.create_publisher(DiagnosticArray, topics.DIAGNOSTICS, qos.DISPLAY)
+        diagnostics_period = declare(
+            self, "diagnostics_period", 1.0, "Seconds between /diagnostics messages.",
+            (0.05, 600.0),
+        )
+        self.create_timer(diagnostics_period, self._publish_diagnostics)
 
     def _on_odom(self, name: str, msg: Odometry) -> None:
         linear = msg.twist.twist.linear
@@ -194,10 +208,38 @@ class GateNode(Node):
                 )
             )
         )
+        self.last_opening = opening
+        self._publish_diagnostics()
         self.get_logger().info(
             f"generation {opening.generation} committed ({opening.reason}) at "
             f"t = {opening.time:.2f} s, cost {opening.cost:.4g}"
         )
+
+    def _publish_diagnostics(self) -> None:
+        opening = self.last_opening
+        if opening is None:
+            level, message = DiagnosticStatus.OK, "waiting for the first candidates"
+        else:
+            stuck = self.settling == "stuck"
+            level = DiagnosticStatus.WARN if stuck else DiagnosticStatus.OK
+            message = f"generation {opening.generation}: {self.settling}"
+        values = {
+            "generation": opening.generation if opening else 0,
+            "committed_at": f"{opening.time:.3f}" if opening else "",
+            "reason": opening.reason if opening else "",
+            "cost_at_commit": f"{opening.cost:.6g}" if opening else "",
+            "robots": ",".join(sorted(opening.targets)) if opening else "",
+            "settling": self.settling,
+            "ignored_reports": self.ignored_reports,
+        }
+        array = DiagnosticArray()
+        array.header.stamp = self.get_clock().now().to_msg()
+        array.status = [
+            diagnostic_status(
+                "coverage_fleet/reference_gate", "base_station", level, message, values
+            )
+        ]
+        self.diag_pub.publish(array)
 
     def _update_settling(self, candidates: Candidates, gate_shut: bool) -> None:
         status = self.monitor.update(
