@@ -46,7 +46,10 @@ from __future__ import annotations
 
 import math
 import numbers
-from collections.abc import Iterable, Mapping, Sequence
+from collections.abc import Iterable, Iterator, Mapping, Sequence
+from contextlib import contextmanager
+from contextvars import ContextVar
+from dataclasses import dataclass
 from typing import Any
 
 from coverage_fleet.errors import ConfigError, Problem
@@ -169,6 +172,43 @@ def integer_fault(value: Any, minimum: int | None = None, maximum: int | None = 
     if isinstance(value, bool) or not isinstance(value, numbers.Integral):
         return type_message("an integer", value)
     return range_fault(value, minimum, maximum)
+
+
+# --- the ranges read (for the ROS shell) -------------------------------------------------
+
+
+@dataclass(frozen=True)
+class NumberRead:
+    """One number a FieldReader read (value in effect, default included) with its range:
+    what a ROS node declares as a read-only parameter with the very same range."""
+
+    key: str
+    value: float | int
+    minimum: float | None = None
+    maximum: float | None = None
+    exclusive_minimum: bool = False
+    exclusive_maximum: bool = False
+
+
+_number_reads: ContextVar[list[NumberRead] | None] = ContextVar("number_reads", default=None)
+
+
+@contextmanager
+def recording_number_reads() -> Iterator[list[NumberRead]]:
+    """Every number FieldReader.number/.integer reads while active (any reader, also the
+    ParameterReader inside a user's vehicle model) is appended to the yielded list."""
+    reads: list[NumberRead] = []
+    token = _number_reads.set(reads)
+    try:
+        yield reads
+    finally:
+        _number_reads.reset(token)
+
+
+def _record(read: NumberRead) -> None:
+    reads = _number_reads.get()
+    if reads is not None:
+        reads.append(read)
 
 
 # --- collecting --------------------------------------------------------------------------
@@ -299,6 +339,9 @@ class FieldReader:
         With nullable, an explicit null gives None. NaN after a problem."""
         present, value = self._get(name, default, hint)
         if not present:
+            if is_number(value):
+                _record(NumberRead(self.key(name), value, minimum, maximum, exclusive_minimum,
+                                   exclusive_maximum))
             return math.nan if value is REQUIRED else value
         if value is None and nullable:
             return None
@@ -312,6 +355,8 @@ class FieldReader:
         if fault:
             self.problem(name, fault)
             return math.nan
+        _record(NumberRead(self.key(name), float(value), minimum, maximum, exclusive_minimum,
+                           exclusive_maximum))
         return float(value)
 
     def positive(self, name: str, default: Any = REQUIRED, *, maximum: float | None = None,
@@ -327,11 +372,14 @@ class FieldReader:
                 maximum: int | None = None, hint: str = "") -> int:
         present, value = self._get(name, default, hint)
         if not present:
+            if is_number(value):
+                _record(NumberRead(self.key(name), value, minimum, maximum))
             return 0 if value is REQUIRED else value
         fault = integer_fault(value, minimum, maximum)
         if fault:
             self.problem(name, fault)
             return 0
+        _record(NumberRead(self.key(name), int(value), minimum, maximum))
         return int(value)
 
     def boolean(self, name: str, default: Any = REQUIRED) -> bool:

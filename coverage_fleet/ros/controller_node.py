@@ -20,6 +20,7 @@ rule, the held input and the progress bookkeeping are the core's SampledControll
 
 from __future__ import annotations
 
+import sys
 import time as wallclock
 
 import numpy as np
@@ -35,7 +36,6 @@ from coverage_fleet.control.terminal import terminal_for_vehicle
 from coverage_fleet.errors import ConfigError
 from coverage_fleet.fleet.liveness import fresh
 from coverage_fleet.fleet.mission import load_mission
-from coverage_fleet.vehicles.loader import load_vehicle_file
 
 from . import qos, topics
 from .conversions import (
@@ -53,6 +53,7 @@ from .conversions import (
 )
 from .parameters import declare
 from .runtime import main_for
+from .vehicle_parameters import controller_vehicle, declare_vehicle_parameters
 
 
 class ControllerNode(Node):
@@ -63,7 +64,9 @@ class ControllerNode(Node):
         )
         vehicle_file = declare(
             self, "vehicle_file", "",
-            "Vehicle parameter file; empty = the one the mission's roster names for this robot.",
+            "Vehicle parameter file; empty = vehicle.* / mpc.* parameters if given (e.g. "
+            "--params-file with a vehicle file), else the file the mission's roster names for "
+            "this robot.",
         )
         robot_name = declare(
             self, "robot_name", "", "Robot name in the roster; empty = the node's namespace."
@@ -91,7 +94,8 @@ class ControllerNode(Node):
                 f"no robot named {self.robot!r} (the controller's robot_name or namespace); "
                 f"the roster has {', '.join(mission.robot_names)}",
             )
-        spec = load_vehicle_file(vehicle_file) if vehicle_file else entry.vehicle
+        spec = controller_vehicle(self, entry.vehicle, vehicle_file, sys.argv)
+        declare_vehicle_parameters(self, spec)
         self.spec = spec
         self.model = spec.model
         self.sample_time = float(spec.mpc.sample_time)

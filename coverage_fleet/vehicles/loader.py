@@ -23,7 +23,7 @@ from __future__ import annotations
 import hashlib
 import importlib
 import sys
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
@@ -32,7 +32,9 @@ from coverage_fleet.inputs.fields import (
     REQUIRED,
     Collector,
     FieldReader,
+    NumberRead,
     is_number,
+    recording_number_reads,
     required_message,
     type_message,
 )
@@ -78,6 +80,11 @@ class VehicleSpec:
     #: what caches of derived data (terminal ingredients) should key on, so editing a user
     #: model's code, not only its vehicle file, invalidates them.
     cache_key: str
+    #: The `ros__parameters` mapping as written (what a controller declares as parameters).
+    parameters: dict[str, Any] = field(default_factory=dict)
+    #: Every number read, defaults included, with the range it was checked against (keys
+    #: `vehicle.<name>`, `mpc.<name>`): the ranges of the declared node parameters.
+    number_reads: tuple[NumberRead, ...] = ()
 
 
 def load_vehicle_file(path: str | Path) -> VehicleSpec:
@@ -96,6 +103,13 @@ def load_vehicle_bytes(data: bytes, source: str) -> VehicleSpec:
 
 def vehicle_from_document(document: Any, data: bytes, source: str) -> VehicleSpec:
     parameters = _ros_parameters(document, source)
+    with recording_number_reads() as reads:
+        return _vehicle_from_parameters(parameters, data, source, reads)
+
+
+def _vehicle_from_parameters(
+    parameters: dict[str, Any], data: bytes, source: str, reads: list[NumberRead]
+) -> VehicleSpec:
     out = Collector(source)
     sections = out.fields(parameters, "")
     vehicle = sections.mapping("vehicle", REQUIRED)
@@ -128,6 +142,8 @@ def vehicle_from_document(document: Any, data: bytes, source: str) -> VehicleSpe
         command_kind=model.command_kind,
         model_name=str(model_name),
         cache_key=_cache_key(data, type(model)),
+        parameters=parameters,
+        number_reads=tuple(reads),
     )
 
 
