@@ -27,6 +27,7 @@ ROSDEP_KEY = {
     "PIL": "python3-pil",
     "shapely": "python3-shapely",
     "casadi": "python3-casadi-pip",
+    "pyproj": "python3-pyproj-pip",
     "numba": "python3-numba",
     "dask": "python3-dask-distributed-pip",
     "distributed": "python3-dask-distributed-pip",

@@ -3,7 +3,11 @@
     name: orchard_frost_watch          # optional, default: the file name without suffix;
                                        # a safe file name (it names the trial folder)
     description: ...                   # optional free text
-    region:   {vertices: [[x, y], ...]}  (metres, map frame, convex)
+    region:   {vertices: [[x, y], ...]}  (metres, map frame, convex), or
+              {geojson: file or inline GeoJSON Polygon in WGS 84 longitude/latitude,
+               origin: [longitude, latitude]}  (optional; the map frame is east-north-up
+              about the origin, default the centre of the polygon's bounding box;
+              geometry/geodetic.py)
     density:  the geometry's density mapping (uniform, gaussian bumps, raster file path
               relative to the mission file)
     roster:   list of robots:
@@ -47,6 +51,13 @@ from coverage_fleet.control.gate import GateSettings
 from coverage_fleet.errors import ConfigError
 from coverage_fleet.fleet.settling import SettleSettings, settle_problems
 from coverage_fleet.geometry.density import Density, density_from_config
+from coverage_fleet.geometry.geodetic import (
+    LocalFrame,
+    check_lonlat,
+    default_origin,
+    map_vertices,
+    polygon_ring,
+)
 from coverage_fleet.geometry.region import ConvexRegion
 from coverage_fleet.inputs.fields import (
     REQUIRED,
@@ -56,7 +67,13 @@ from coverage_fleet.inputs.fields import (
     type_message,
 )
 from coverage_fleet.inputs.names import file_name_problem, robot_name_problem
-from coverage_fleet.inputs.reader import read_yaml_file, require_mapping
+from coverage_fleet.inputs.reader import (
+    decode_text,
+    parse_yaml,
+    read_bytes,
+    read_yaml_file,
+    require_mapping,
+)
 from coverage_fleet.vehicles.loader import VehicleSpec, load_vehicle_file
 
 #: Bounds of the gate, settle and simulation sections (see the module docstring).
@@ -122,6 +139,8 @@ class Mission:
     description: str = ""
     raw: dict[str, Any] = field(default_factory=dict)
     settle: SettleSettings = field(default_factory=SettleSettings)
+    #: The map frame's geodetic origin when the region was given in longitude/latitude.
+    frame: LocalFrame | None = None
 
     @property
     def robot_names(self) -> tuple[str, ...]:
@@ -242,12 +261,14 @@ def mission_from_mapping(raw: Any, path: Path) -> Mission:
         top.problem("description", type_message("a string", description))
         description = ""
 
-    region = _load_region(top.raw("region"), out) if top.has("region") else None
+    region, frame = (_load_region(top.raw("region"), base_dir, out) if top.has("region")
+                     else (None, None))
     density = None
     if top.has("density"):
         try:
             density = density_from_config(
-                top.raw("density"), source, base_dir, region=region, key="density"
+                top.raw("density"), source, base_dir, region=region, key="density",
+                frame=frame,
             )
         except ConfigError as error:
             out.extend(error)
@@ -280,21 +301,70 @@ def mission_from_mapping(raw: Any, path: Path) -> Mission:
         description=description,
         raw=dict(raw),
         settle=settle,
+        frame=frame,
     )
 
 
-def _load_region(value: Any, out: Collector) -> ConvexRegion | None:
+def _load_region(
+    value: Any, base_dir: Path, out: Collector
+) -> tuple[ConvexRegion | None, LocalFrame | None]:
+    """The region from `vertices` (map frame, metres) or from `geojson` (WGS 84, converted
+    to the map frame about `origin`); the frame is None for a region in metres."""
     read = out.fields(value, "region")
+    if read.has("geojson"):
+        return _load_geodetic_region(read, base_dir, out)
     vertices = read.raw("vertices", REQUIRED)
     read.check_unknown()
     if vertices is REQUIRED:
-        read.problem("vertices", required_message("polygon vertices [[x, y], ...] in metres"))
-        return None
+        read.problem("vertices", required_message(
+            "polygon vertices [[x, y], ...] in metres (or `geojson` in longitude/latitude)"))
+        return None, None
     try:
-        return ConvexRegion.from_vertices(vertices, source=out.source, key="region.vertices")
+        return ConvexRegion.from_vertices(vertices, source=out.source,
+                                          key="region.vertices"), None
     except ConfigError as error:
         out.extend(error)
-    return None
+    return None, None
+
+
+def _load_geodetic_region(
+    read: FieldReader, base_dir: Path, out: Collector
+) -> tuple[ConvexRegion | None, LocalFrame | None]:
+    document = read.raw("geojson")
+    origin = read.raw("origin")
+    if read.has("vertices"):
+        read.raw("vertices")
+        out.add("region", "give exactly one of 'vertices' (metres, map frame) or 'geojson' "
+                "(WGS 84 longitude/latitude)")
+    read.check_unknown()
+    where = "region.geojson"
+    source = out.source
+    if isinstance(document, str):
+        path = Path(document).expanduser()
+        path = path if path.is_absolute() else base_dir / path
+        try:
+            document = parse_yaml(decode_text(read_bytes(path, source=source, key=where),
+                                              source, where), str(path))
+        except ConfigError as error:
+            out.extend(error)
+            return None, None
+        # Faults inside the GeoJSON file name that file and their key in it.
+        source, where = str(path), ""
+    if origin is not None:
+        problems = check_lonlat(origin, out.source, "region.origin")
+        if problems:
+            out.extend(problems)
+            return None, None
+    try:
+        ring, ring_key = polygon_ring(document, source, where)
+        frame = LocalFrame(*(origin if origin is not None else default_origin(ring)))
+        vertices = map_vertices(ring, frame, source, ring_key)
+        # Convexity and the other region rules, judged in the map frame.
+        region = ConvexRegion.from_vertices(vertices, source=source, key=ring_key)
+    except ConfigError as error:
+        out.extend(error)
+        return None, None
+    return region, frame
 
 
 def _load_roster(
@@ -459,6 +529,10 @@ def mission_as_run(
     base_dir = mission.source.parent
     raw = {k: _resolve_paths(v, base_dir) for k, v in mission.raw.items()}
     raw["name"] = mission.name
+    if mission.frame is not None:
+        # The origin actually used, so that the map frame of the run is on record.
+        raw["region"] = {**raw["region"], "origin": [mission.frame.longitude,
+                                                     mission.frame.latitude]}
     roster = []
     for entry, item in zip(mission.roster, raw["roster"], strict=True):
         item = dict(item)

@@ -13,6 +13,9 @@ Three kinds, each with the integration that suits it:
 Raster layout (files and inline values alike): rows are listed north first, i.e. the first
 row of the file is the largest y, like a map image (the ROS map_server convention); the
 `origin` is the south-west corner of the south-west cell, in metres in the `map` frame.
+In a mission whose region is given in longitude/latitude the corner may be given as
+`origin_lonlat` instead: it is converted to the map frame like the region, and the grid's
+columns run east and its rows north in the map frame (geometry/geodetic.py).
 """
 
 from __future__ import annotations
@@ -28,6 +31,7 @@ from typing import Any
 import numpy as np
 
 from coverage_fleet.errors import ConfigError, Problem
+from coverage_fleet.geometry.geodetic import LocalFrame, check_lonlat
 from coverage_fleet.geometry.polygon import clip_halfplane
 from coverage_fleet.geometry.quadrature import fan_quadrature
 from coverage_fleet.geometry.raster_moments import (
@@ -496,12 +500,36 @@ def _gaussian_bumps(read: FieldReader, out: Collector) -> GaussianBumpsDensity |
     return GaussianBumpsDensity(bumps, background)
 
 
-def _raster(read: FieldReader, out: Collector, base_dir: Path | None) -> RasterDensity | None:
+def _raster_origin(read: FieldReader, out: Collector, frame: LocalFrame | None
+                   ) -> tuple[float, ...] | None:
+    """`origin` (map frame, metres) or `origin_lonlat` (converted through the mission's
+    frame): exactly one."""
+    if not read.has("origin_lonlat"):
+        return _point(read, "origin", "x, y of the south-west corner, metres")
+    corner = read.raw("origin_lonlat")
+    if read.has("origin"):
+        read.raw("origin")
+        out.add(read.section, "give exactly one of 'origin' (metres, map frame) or "
+                "'origin_lonlat' (WGS 84 longitude, latitude)")
+        return None
+    if frame is None:
+        read.problem("origin_lonlat", "needs a region given in longitude/latitude "
+                     "(region.geojson); give 'origin' in metres instead")
+        return None
+    problems = check_lonlat(corner, out.source, read.key("origin_lonlat"))
+    if problems:
+        out.extend(problems)
+        return None
+    return tuple(float(v) for v in frame.to_map(np.asarray(corner, dtype=float))[0])
+
+
+def _raster(read: FieldReader, out: Collector, base_dir: Path | None,
+            frame: LocalFrame | None) -> RasterDensity | None:
     resolution = read.number("resolution", minimum=RESOLUTION_MIN, maximum=RESOLUTION_MAX,
                              hint="metres per cell (square cells)")
     scale = read.positive("scale", 1.0, maximum=DENSITY_VALUE_MAX)
     fill_value = read.non_negative("fill_value", None, maximum=DENSITY_VALUE_MAX)
-    origin = _point(read, "origin", "x, y of the south-west corner, metres")
+    origin = _raster_origin(read, out, frame)
     values = None
     where = read.key("file" if read.has("file") else "values")
     if read.has("file") == read.has("values"):
@@ -566,6 +594,7 @@ def density_from_config(
     base_dir: Path | str | None = None,
     region: ConvexRegion | None = None,
     key: str = "density",
+    frame: LocalFrame | None = None,
 ) -> Density:
     """Build a density from a mission file's `density` mapping; with `region`, also check it
     against the region (mass inside, raster coverage). Every problem found is raised at once
@@ -581,6 +610,8 @@ def density_from_config(
       raster:          file: .npy | .csv | .pgm | .png path, relative to base_dir   (or)
                        values: rows of numbers, north row first
                        origin: [x, y] m, south-west corner of the grid       (required)
+                       origin_lonlat: [longitude, latitude] instead of origin, when the
+                              mission's region is geodetic (`frame`, converted through it)
                        resolution: > 0, metres per cell (square cells)       (required)
                        scale: > 0, default 1.0 (multiplies the values; image pixels
                               are first divided by 255 or 65535, so they run 0..1)
@@ -602,7 +633,7 @@ def density_from_config(
         density = _gaussian_bumps(read, out)
         read.check_unknown()
     else:
-        density = _raster(read, out, base)
+        density = _raster(read, out, base, frame)
     out.raise_if_any()
     assert density is not None
     if region is not None:

@@ -20,15 +20,18 @@ def write_report(
     density: Density,
     settle_distance: float,
     footprints: dict[str, float] | None = None,
+    map_origin: str | None = None,
 ) -> dict[str, Any]:
-    """Write metrics.json and the figures into `directory`; returns the metrics."""
+    """Write metrics.json and the figures into `directory`; returns the metrics.
+    `map_origin` (a geodetic mission's origin, LocalFrame.describe) labels the map axes."""
     from coverage_fleet.report import figures
     from coverage_fleet.report.metrics import trial_metrics
 
     directory = Path(directory)
     metrics = trial_metrics(log, region, density, footprints)
     (directory / "metrics.json").write_text(json.dumps(metrics, indent=2) + "\n")
-    figures.plot_trajectories(directory / "trajectories.png", log, region, density)
+    figures.plot_trajectories(directory / "trajectories.png", log, region, density,
+                              map_origin)
     figures.plot_cost(directory / "cost.png", log)
     figures.plot_distances(directory / "distances.png", log, settle_distance)
     figures.plot_solve_times(directory / "solve_times.png", log)

@@ -54,8 +54,10 @@ def _density_grid(region: ConvexRegion, density: Density, cells: int = 160):
     return values, (x0, x1, y0, y1)
 
 
-def plot_trajectories(path: Path, log: TrialLog, region: ConvexRegion, density: Density) -> None:
-    """Trajectories over the final cells and the density."""
+def plot_trajectories(path: Path, log: TrialLog, region: ConvexRegion, density: Density,
+                      map_origin: str | None = None) -> None:
+    """Trajectories over the final cells and the density; with `map_origin` (a geodetic
+    mission) the axes say that x is east and y north of it."""
     names = list(log.robots)
     final = np.array([log.robots[n].positions()[-1] for n in names])
     partition = compute_partition(final, region, density)
@@ -87,8 +89,12 @@ def plot_trajectories(path: Path, log: TrialLog, region: ConvexRegion, density: 
         ax.plot(*track[-1], marker="D", markersize=7, color=colour, markeredgecolor="black")
         centroid = partition.centroids[index]
         ax.plot(*centroid, marker="+", markersize=12, color="black", markeredgewidth=1.6)
-    ax.set_xlabel("x (m, map frame)")
-    ax.set_ylabel("y (m, map frame)")
+    if map_origin is None:
+        ax.set_xlabel("x (m, map frame)")
+        ax.set_ylabel("y (m, map frame)")
+    else:
+        ax.set_xlabel(f"x: metres east of the map origin {map_origin}")
+        ax.set_ylabel("y: metres north of the map origin")
     ax.set_title(f"{log.mission_name}: paths over the final cells\n"
                  "open circle = start, diamond = end, + = centroid of the final cell",
                  fontsize=10)

@@ -28,6 +28,7 @@ def write_mission_trial(
                 mission.density,
                 mission.settle.distance,
                 footprints={e.name: e.footprint_radius for e in mission.roster},
+                map_origin=None if mission.frame is None else mission.frame.describe(),
             )
         )
 
