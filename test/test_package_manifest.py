@@ -66,7 +66,7 @@ def requirement_names(*files: str) -> set[str]:
 
 
 def is_ros_interface_or_library(name: str) -> bool:
-    return name.endswith(("_msgs", "_interfaces")) or name in {
+    return name.endswith(("_msgs", "_srvs", "_interfaces")) or name in {
         "rclpy", "ament_index_python", "launch", "launch_ros",
     }
 

@@ -222,6 +222,12 @@ def _run_and_record(
             f"{log_dir}; Ctrl-C stops everything",
             flush=True,
         )
+        print(
+            f"launch: `coverage-fleet stop --domain-id {env['ROS_DOMAIN_ID']}` brakes every "
+            "robot until `coverage-fleet resume`; a software stop does NOT replace the "
+            "robots' own emergency stops",
+            flush=True,
+        )
         status = _watch(graph)
     except KeyboardInterrupt as interrupt:
         name = getattr(interrupt, "signal_name", "SIGINT")

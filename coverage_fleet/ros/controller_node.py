@@ -16,6 +16,10 @@ sends the braking input while the newest state is older than `state_timeout`, an
 node sends it once more as it stops (Ctrl-C, SIGTERM, a launcher). The solve
 rule, the held input and the progress bookkeeping are the core's SampledController
 (control/sampling.py), the same object the offline simulation runs.
+
+Fleet stop (fleet_stop.py): when the stop arrives the node sends the braking input at once,
+and while stopped every command it sends is the braking input (it still answers each state
+with a progress report, so a lockstep simulator keeps its pace); on release it tracks again.
 """
 
 from __future__ import annotations
@@ -51,6 +55,7 @@ from .conversions import (
     stamp_to_seconds,
     target_from_msg,
 )
+from .fleet_stop import listen_to_fleet_stop
 from .parameters import declare
 from .runtime import main_for
 from .vehicle_parameters import controller_vehicle, declare_vehicle_parameters
@@ -126,6 +131,9 @@ class ControllerNode(Node):
         self.plan_pub = self.create_publisher(Path, topics.PLAN, qos.DISPLAY)
         self.solve_pub = self.create_publisher(DiagnosticStatus, topics.SOLVE, qos.REPORTS)
         self.diag_pub = self.create_publisher(DiagnosticArray, topics.DIAGNOSTICS, qos.DISPLAY)
+        # Before odom: when both are waiting, the executor takes the stop first.
+        self.fleet_stopped = False
+        listen_to_fleet_stop(self, self._on_fleet_stop)
         self.create_subscription(Odometry, topics.ODOM, self._on_odom, qos.STATE)
         self.create_subscription(PointStamped, topics.TARGET, self._on_target, qos.LATCHED)
         self.create_subscription(
@@ -147,15 +155,30 @@ class ControllerNode(Node):
         self.generation_stamp_ns = stamp_ns
         self.controller.set_target(stamp_ns, target)
 
+    def _on_fleet_stop(self, stopped: bool) -> None:
+        if stopped == self.fleet_stopped:
+            return
+        self.fleet_stopped = stopped
+        if stopped:
+            self._brake()
+            self.get_logger().warning(f"{self.robot}: fleet stop: braking until released")
+        else:
+            self.get_logger().info(f"{self.robot}: fleet stop released: tracking again")
+
+    def _brake(self) -> None:
+        if self.state is not None:
+            u = self.controller.brake(self.state)
+            self.cmd_pub.publish(command_to_msg(self.model.command_from_input(u, self.state)))
+
     def _stale(self) -> bool:
         now = self.get_clock().now().nanoseconds * 1e-9
         return self.state is not None and not fresh(self.state_time, now, self.state_timeout)
 
     def _watchdog(self) -> None:
-        """No fresh odometry: brake rather than drive on an old command."""
-        if self._stale():
-            u = self.controller.brake(self.state)
-            self.cmd_pub.publish(command_to_msg(self.model.command_from_input(u, self.state)))
+        """No fresh odometry, or the fleet stopped: brake at least once per sample time
+        rather than drive on an old command."""
+        if self._stale() or self.fleet_stopped:
+            self._brake()
 
     def before_stop(self) -> None:
         """The node is stopping (Ctrl-C, SIGTERM, the launcher or the launch service): the
@@ -182,7 +205,8 @@ class ControllerNode(Node):
                     )
                 )
             )
-        self.cmd_pub.publish(command_to_msg(self.model.command_from_input(answer.input, x)))
+        u = self.controller.brake(x) if self.fleet_stopped else answer.input
+        self.cmd_pub.publish(command_to_msg(self.model.command_from_input(u, x)))
         progress = answer.progress
         if progress is None:
             report = ProgressValues(0, np.nan, np.nan, self.state_time)
@@ -210,6 +234,8 @@ class ControllerNode(Node):
             level, message = DiagnosticStatus.STALE, "no odometry yet"
         elif age > self.state_timeout:
             level, message = DiagnosticStatus.ERROR, "odometry stale: braking"
+        elif self.fleet_stopped:
+            level, message = DiagnosticStatus.WARN, "fleet stop: braking"
         elif step is not None and step.used_fallback:
             level, message = DiagnosticStatus.WARN, f"solver: {step.status} ({step.fallback})"
         else:

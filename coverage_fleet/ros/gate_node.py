@@ -30,6 +30,10 @@ The gate's health goes out on /diagnostics (`coverage_fleet/reference_gate`) eve
 `diagnostics_period` and at every opening: the generation as a plain number (the stamps
 that name generations on the wire are not meant for people), when and why it was
 committed, the cost then, the robots, the settle status and the reports ignored.
+
+The gate also serves the fleet-wide software stop (fleet_stop.py): while stopped it offers
+nothing to the gate (no generation is committed) and the settle monitor does not run (a
+stopped fleet is neither settled nor stuck); on release the monitor starts afresh.
 """
 
 from __future__ import annotations
@@ -57,6 +61,7 @@ from .conversions import (
     progress_from_msg,
     target_to_msg,
 )
+from .fleet_stop import FleetStopService, listen_to_fleet_stop
 from .parameters import declare
 from .runtime import main_for
 
@@ -156,6 +161,18 @@ class GateNode(Node):
             (0.05, 600.0),
         )
         self.create_timer(diagnostics_period, self._publish_diagnostics)
+        self.settle_settings = settle
+        self.fleet_stopped = False
+        # The service sets the state before it answers; the topic also carries stops that
+        # other tools publish.
+        self.fleet_stop = FleetStopService(self, self._on_fleet_stop)
+        listen_to_fleet_stop(self, self._on_fleet_stop)
+
+    def _on_fleet_stop(self, stopped: bool) -> None:
+        if self.fleet_stopped and not stopped:
+            # Time spent stopped must not count towards settling or being stuck.
+            self.monitor = SettleMonitor(self.settle_settings)
+        self.fleet_stopped = stopped
 
     def _on_odom(self, name: str, msg: Odometry) -> None:
         linear = msg.twist.twist.linear
@@ -169,6 +186,8 @@ class GateNode(Node):
         self.keeper.acknowledge(name, generation)
 
     def _on_candidates(self, msg: Float64MultiArray) -> None:
+        if self.fleet_stopped:
+            return
         values = candidates_from_msg(msg)
         names = {i: self.names[i] for i in values.positions}
         candidates = Candidates(
@@ -223,6 +242,8 @@ class GateNode(Node):
             stuck = self.settling == "stuck"
             level = DiagnosticStatus.WARN if stuck else DiagnosticStatus.OK
             message = f"generation {opening.generation}: {self.settling}"
+        if self.fleet_stopped:
+            level, message = DiagnosticStatus.WARN, "fleet stop: committing nothing"
         values = {
             "generation": opening.generation if opening else 0,
             "committed_at": f"{opening.time:.3f}" if opening else "",
@@ -231,6 +252,7 @@ class GateNode(Node):
             "robots": ",".join(sorted(opening.targets)) if opening else "",
             "settling": self.settling,
             "ignored_reports": self.ignored_reports,
+            "fleet_stopped": int(self.fleet_stopped),
         }
         array = DiagnosticArray()
         array.header.stamp = self.get_clock().now().to_msg()

@@ -19,7 +19,9 @@ A robot without a fresh command (in realtime mode: older than `command_timeout`;
 lockstep: its controller marked not live) is given its model's braking input: a silent
 controller never leaves its robot driving on a stale command. The mission's simulation
 noise applies as offline: process noise on the positions every tick, measurement noise on
-the published positions (one numpy generator seeded with the mission's seed).
+the published positions (one numpy generator seeded with the mission's seed). While the
+fleet stop is set (fleet_stop.py) every robot gets its braking input, whatever commands
+arrive; time goes on as it would for real robots.
 """
 
 from __future__ import annotations
@@ -47,6 +49,7 @@ from .conversions import (
     progress_from_msg,
     seconds_to_stamp,
 )
+from .fleet_stop import listen_to_fleet_stop
 from .parameters import declare
 from .runtime import RunFinished, main_for
 
@@ -136,6 +139,8 @@ class SimulatorNode(Node):
             self._connect(entry)
         self.clock_pub = self.create_publisher(Clock, topics.CLOCK, qos.CLOCK)
         self.create_subscription(String, topics.SETTLING, self._on_settling, qos.LATCHED)
+        self.fleet_stopped = False
+        listen_to_fleet_stop(self, self._on_fleet_stop)
         self.end_time = start + self.duration
         self.get_logger().info(
             f"simulating {len(simulated)} robots of mission {mission.name!r} in {self.mode} "
@@ -195,6 +200,12 @@ class SimulatorNode(Node):
         if self.barrier.answer(name, report.state_time, wallclock.monotonic()):
             self.get_logger().info(f"{name}: controller answering, live")
 
+    def _on_fleet_stop(self, stopped: bool) -> None:
+        if stopped != self.fleet_stopped:
+            self.get_logger().info("fleet stop: braking every robot" if stopped
+                                   else "fleet stop released")
+        self.fleet_stopped = stopped
+
     def _on_settling(self, msg: String) -> None:
         self.settling = str(msg.data)
 
@@ -206,7 +217,7 @@ class SimulatorNode(Node):
         answered this very step; how long the step took does not matter (a slow neighbour
         must not make it brake)."""
         command = self.commands.get(name)
-        if command is None:
+        if command is None or self.fleet_stopped:
             return None
         if self.barrier is not None:
             return None if self.barrier.is_lost(name) else command[0]

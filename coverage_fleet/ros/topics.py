@@ -19,6 +19,10 @@ GENERATION = "/coverage/generation"
 OPENINGS = "/coverage/openings"
 #: "moving", "settled" or "stuck" (fleet/settling.py), latched.
 SETTLING = "/coverage/settling"
+#: Fleet-wide software stop (std_msgs/Bool, latched; true = stopped) and the service that
+#: sets it (std_srvs/SetBool, served by the reference gate): see fleet_stop.py.
+FLEET_STOP = "/coverage/fleet_stop"
+FLEET_STOP_SERVICE = "/coverage/set_fleet_stop"
 DIAGNOSTICS = "/diagnostics"
 CLOCK = "/clock"
 
