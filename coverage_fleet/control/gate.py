@@ -17,7 +17,10 @@ nobody can be closer yet): whether it has settled is judged by fleet/settling.py
 
 Robots are keyed by name so that the roster may change at run time: a robot that joins or
 leaves forces the next offer to be committed (reason "roster"); the cost is not comparable
-across such a change. Plain Python and numpy only: the ROS gate node is a thin adapter.
+across such a change. Likewise a new density (`change_density`: a risk map updated during a
+trial) forces the next offer to be committed (reason "density"): the cost is measured with
+another phi, so it may jump, and the monotone decrease starts again from that opening.
+Plain Python and numpy only: the ROS gate node is a thin adapter.
 """
 
 from __future__ import annotations
@@ -30,7 +33,7 @@ import numpy as np
 
 from coverage_fleet.control.progress import RobotProgress, judge
 
-OpeningReason = Literal["start", "progress", "roster"]
+OpeningReason = Literal["start", "progress", "roster", "density"]
 
 
 @dataclass(frozen=True)
@@ -85,6 +88,7 @@ class ReferenceGate:
     _distance_at_commit: dict[str, float] = field(default_factory=dict)
     _distance_now: dict[str, float] = field(default_factory=dict)
     _roster_changed: bool = False
+    _density_changed: bool = False
 
     # --- roster -------------------------------------------------------------------------
 
@@ -109,6 +113,10 @@ class ReferenceGate:
         self._distance_now.pop(name, None)
         self._roster_changed = True
 
+    def change_density(self) -> None:
+        """The density changed; the next offer (partitioned with the new one) is committed."""
+        self._density_changed = True
+
     # --- progress -----------------------------------------------------------------------
 
     def report(self, report: ProgressReport) -> bool:
@@ -129,7 +137,7 @@ class ReferenceGate:
 
     def ready_to_open(self) -> bool:
         """The monotone-progress condition for the current generation."""
-        if self.generation < 0 or self._roster_changed:
+        if self.generation < 0 or self._roster_changed or self._density_changed:
             return True
         standing = self.progress()
         return all(s.no_farther for s in standing.values()) and any(
@@ -148,7 +156,7 @@ class ReferenceGate:
         """Offer the centroids of the partition at `positions` (with its coverage cost).
 
         They are committed as the next generation when the gate is ready to open (always for
-        the first offer and after a roster change); otherwise nothing happens and None is
+        the first offer and after a roster or density change); otherwise nothing happens and None is
         returned. Both mappings must cover exactly the gate's roster.
         """
         if not self.ready_to_open():
@@ -163,6 +171,8 @@ class ReferenceGate:
             reason: OpeningReason = "start"
         elif self._roster_changed:
             reason = "roster"
+        elif self._density_changed:
+            reason = "density"
         else:
             reason = "progress"
         targets = {n: np.asarray(candidate_targets[n], float).copy() for n in self._robots}
@@ -175,6 +185,7 @@ class ReferenceGate:
         # robot the gate has not heard from is never assumed to be making progress.
         self._distance_now = {}
         self._roster_changed = False
+        self._density_changed = False
         opening = GateOpening(
             time=float(time),
             generation=self.generation,

@@ -11,6 +11,9 @@ each tick):
   progress report names it); the gate then judges its progress from its position in the
   candidates, the very positions whose partition would be committed, so that the cost at
   successive openings falls even though reports and partitions arrive at different moments;
+- a candidates message partitioned with another density than the last commit's (its
+  `density_version`, see fleet/density_updates.py) makes the gate commit it (reason
+  "density");
 - the candidates are offered to the gate.
 
 Offline every robot receives its target at once, so every robot acknowledges a generation
@@ -40,6 +43,8 @@ class Candidates:
     positions: dict[str, np.ndarray]
     centroids: dict[str, np.ndarray]
     masses: dict[str, float]
+    #: Which density the partition used: 0 the mission's, then one more per update.
+    density_version: int = 0
 
 
 def candidates_at(
@@ -47,8 +52,10 @@ def candidates_at(
     time: float,
     region: ConvexRegion,
     density: Density,
+    density_version: int = 0,
 ) -> tuple[Candidates, Partition]:
-    """Partition the region among the robots at `positions` (in the mapping's order)."""
+    """Partition the region among the robots at `positions` (in the mapping's order) with
+    `density` (the `density_version`-th of the run)."""
     names = list(positions)
     stacked = np.array([np.asarray(positions[n], float) for n in names]).reshape(-1, 2)
     partition = compute_partition(stacked, region, density)
@@ -58,6 +65,7 @@ def candidates_at(
         positions={n: stacked[k].copy() for k, n in enumerate(names)},
         centroids={n: np.asarray(partition.centroids[k], float) for k, n in enumerate(names)},
         masses={n: float(partition.masses[k]) for k, n in enumerate(names)},
+        density_version=int(density_version),
     )
     return candidates, partition
 
@@ -89,6 +97,8 @@ class GateKeeper:
         self.gate = ReferenceGate(settings)
         #: robot -> generation its newest progress report names
         self._acknowledged: dict[str, int] = {}
+        #: density version of the candidates last committed (None before the first)
+        self.density_version: int | None = None
 
     def acknowledge(self, name: str, generation: int | None) -> None:
         """`name`'s newest progress report names `generation` (None: a generation the gate
@@ -114,7 +124,12 @@ class GateKeeper:
             if target is not None and self.acknowledges_current(name):
                 distance = float(np.linalg.norm(candidates.positions[name] - target))
                 self.gate.report(ProgressReport(name, self.gate.generation, distance))
+        if self.density_version is not None and candidates.density_version != \
+                self.density_version:
+            self.gate.change_density()
         opening = self.gate.offer(
             candidates.centroids, candidates.positions, candidates.cost, candidates.time
         )
+        if opening is not None:
+            self.density_version = candidates.density_version
         return GateDecision(opening, joined, left)

@@ -10,6 +10,9 @@
               geometry/geodetic.py)
     density:  the geometry's density mapping (uniform, gaussian bumps, raster file path
               relative to the mission file)
+    density_updates:  optional list of {time: s, density: a density mapping}: scripted
+              density changes for rehearsal (fleet/density_updates.py); times strictly
+              increasing, within the duration
     roster:   list of robots:
         - name: rover_1                # a valid ROS name, also used as the robot's namespace
           vehicle: diff_drive.yaml     # vehicle parameter file, relative to the mission file;
@@ -49,6 +52,7 @@ import numpy as np
 
 from coverage_fleet.control.gate import GateSettings
 from coverage_fleet.errors import ConfigError
+from coverage_fleet.fleet.density_updates import DensityUpdate
 from coverage_fleet.fleet.settling import SettleSettings, settle_problems
 from coverage_fleet.geometry.density import Density, density_from_config
 from coverage_fleet.geometry.geodetic import (
@@ -141,6 +145,8 @@ class Mission:
     settle: SettleSettings = field(default_factory=SettleSettings)
     #: The map frame's geodetic origin when the region was given in longitude/latitude.
     frame: LocalFrame | None = None
+    #: Scripted density changes (the `density_updates` section), by time.
+    density_updates: tuple[DensityUpdate, ...] = ()
 
     @property
     def robot_names(self) -> tuple[str, ...]:
@@ -272,6 +278,8 @@ def mission_from_mapping(raw: Any, path: Path) -> Mission:
             )
         except ConfigError as error:
             out.extend(error)
+    updates = (_load_density_updates(top.raw("density_updates"), base_dir, region, frame, out)
+               if top.has("density_updates") else [])
     gate = _read_gate(out.fields(top.raw("gate"), "gate", optional=True))
     settle = _read_settle(out.fields(top.raw("settle"), "settle", optional=True))
     simulation = _read_simulation(out.fields(top.raw("simulation"), "simulation",
@@ -282,6 +290,10 @@ def mission_from_mapping(raw: Any, path: Path) -> Mission:
         if not top.has(key):
             top.problem(key, required_message())
     top.check_unknown()
+    if updates and updates[-1].time > simulation.duration:
+        out.add(f"density_updates[{len(updates) - 1}].time",
+                f"must be at most the simulation duration {simulation.duration:g} s, got "
+                f"{updates[-1].time:g}")
     if roster and not out.problems:
         _check_sample_times(roster, simulation, out)
     if roster and not out.problems:
@@ -302,7 +314,45 @@ def mission_from_mapping(raw: Any, path: Path) -> Mission:
         raw=dict(raw),
         settle=settle,
         frame=frame,
+        density_updates=tuple(updates),
     )
+
+
+def _load_density_updates(
+    value: Any, base_dir: Path, region: ConvexRegion | None, frame: LocalFrame | None,
+    out: Collector,
+) -> list[DensityUpdate]:
+    """The `density_updates` section: [{time, density}], times strictly increasing."""
+    if not isinstance(value, list) or not value:
+        out.add("density_updates", type_message("a non-empty list of {time, density}", value))
+        return []
+    updates: list[DensityUpdate] = []
+    for index, item in enumerate(value):
+        where = f"density_updates[{index}]"
+        before = len(out.problems)
+        read = out.fields(item, where)
+        if len(out.problems) > before:
+            continue
+        time = read.positive("time", maximum=DURATION_MAX)
+        mapping = read.raw("density", REQUIRED)
+        read.check_unknown()
+        if mapping is REQUIRED:
+            read.problem("density", required_message("a density mapping (as `density`)"))
+            continue
+        try:
+            density = density_from_config(mapping, out.source, base_dir, region=region,
+                                          key=f"{where}.density", frame=frame)
+        except ConfigError as error:
+            out.extend(error)
+            continue
+        if time is None or len(out.problems) > before:
+            continue
+        if updates and time <= updates[-1].time:
+            read.problem("time", f"must be later than the previous update's "
+                         f"{updates[-1].time:g} s, got {time:g}")
+            continue
+        updates.append(DensityUpdate(time, density))
+    return updates
 
 
 def _load_region(

@@ -71,7 +71,8 @@ def simulate_mission(
         raise_if_interrupted()
         if on_step is not None:
             on_step(StepInfo(outcome.time, duration, outcome.candidates.cost, fleet.generation))
-        if outcome.settling != "moving" and stop_at_rest:
+        # A fleet at rest before a scripted density update waits for it (rehearsal).
+        if outcome.settling != "moving" and stop_at_rest and not fleet.densities.pending:
             break
         if tick < ticks:
             fleet.advance()

@@ -2,7 +2,9 @@
 
  1. measure: every robot's state (plus measurement noise on its position) at time t;
  2. partition: the cells of the robots' positions, their centroids (the candidate targets)
-    and the coverage cost H (fleet/coordination.py, what the partition node publishes);
+    and the coverage cost H (fleet/coordination.py, what the partition node publishes),
+    with the density in force (a scripted update whose time has come replaces it first:
+    fleet/density_updates.py, as the partition node does);
  3. progress reports and gate offer: the gate judges each robot's progress from its
     position and may commit the candidates as the next generation (GateKeeper, what the
     gate node runs); committed targets reach the robots at once; the settle monitor
@@ -31,6 +33,7 @@ from coverage_fleet.control.gate import GateOpening
 from coverage_fleet.control.sampling import SampledController
 from coverage_fleet.control.terminal import terminal_for_vehicle
 from coverage_fleet.fleet.coordination import Candidates, GateKeeper, candidates_at
+from coverage_fleet.fleet.density_updates import DensitySource
 from coverage_fleet.fleet.mission import Mission, RobotEntry
 from coverage_fleet.fleet.plants import FleetPlants, NoiseLevels, Pose
 from coverage_fleet.fleet.settling import SettleMonitor, SettleStatus
@@ -98,6 +101,7 @@ class FleetStep:
             starts,
         )
         self.keeper = GateKeeper(mission.gate)
+        self.densities = DensitySource(mission.density, mission.density_updates)
         self.monitor = SettleMonitor(mission.settle)
         # Ticks are exact multiples of the step: half a tick of tolerance makes "a sample is
         # due" the same as counting ticks.
@@ -128,7 +132,9 @@ class FleetStep:
             n: self.mission.roster[k].vehicle.model.position(measured[n])
             for k, n in enumerate(self.names)
         }
-        candidates, _ = candidates_at(positions, t, self.mission.region, self.mission.density)
+        self.densities.apply_due(t)
+        candidates, _ = candidates_at(positions, t, self.mission.region, self.densities.density,
+                                      self.densities.version)
         decision = self.keeper.offer(candidates)
         opening = decision.opening
         if opening is not None:

@@ -24,7 +24,9 @@ record, so a run stamped with the wall clock starts at 0 too):
   cost, largest distance of a robot in it from its committed target).
 - OpeningRecord: a gate opening (control.gate.GateOpening).
 - SettlingRecord: the settle monitor's status ("moving", "settled", "stuck"); the first
-  "settled" and the first "stuck" count, at the newest state time recorded so far.
+  "settled" and the first "stuck" count, at the newest state time recorded so far. A
+  density opening (a new density: a new job for the fleet) forgets both, so they then
+  count from the newest density on.
 """
 
 from __future__ import annotations
@@ -199,6 +201,8 @@ class TrialAssembler:
                         distances=opening.distances,
                     )
                 )
+                if opening.reason == "density":
+                    self.log.settled_time = self.log.stuck_time = None
             case SettlingRecord():
                 times = [r.time[-1] for r in self.log.robots.values() if r.time]
                 now = max(times, default=0.0)

@@ -115,6 +115,10 @@ def plot_cost(path: Path, log: TrialLog) -> None:
                 label=f"gate opening ({len(openings)}): cost at the positions used")
     ax.plot(log.time, log.cost, color="#1f6fb2", linewidth=1.4, zorder=3,
             label="cost H at current positions")
+    for k, change in enumerate(o for o in log.openings if o.reason == "density"):
+        # A new density: the cost is measured with another phi from here on and may jump.
+        ax.axvline(change.time, color="#8e44ad", linestyle="--", linewidth=1.2,
+                   label="density update (new generation)" if k == 0 else None)
     if min(log.cost, default=0.0) > 0:
         ax.set_yscale("log")
     if log.settled_time is not None:

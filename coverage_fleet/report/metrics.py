@@ -97,7 +97,8 @@ def trial_metrics(
     footprints: dict[str, float] | None = None,
 ) -> dict[str, Any]:
     """outcome (settled / stuck / duration reached) and its time, final_cost, the CVT gap,
-    final_largest_distance_to_centroid, generations, limit_violations, solver_failures,
+    final_largest_distance_to_centroid, generations, the reason of each opening and the
+    times of density updates, limit_violations, solver_failures,
     solve-time statistics and the opening costs."""
     names = list(log.robots)
     final = np.array([log.robots[n].positions()[-1] for n in names])
@@ -128,6 +129,9 @@ def trial_metrics(
         },
         "generations": len(log.openings),
         "opening_costs": [o.cost for o in log.openings],
+        "opening_reasons": [o.reason for o in log.openings],
+        # Times of the generations a new density started (cost may jump there).
+        "density_update_times_s": [o.time for o in log.openings if o.reason == "density"],
         "limit_violations": len(log.violations),
         "solver_failures": sum(log.robots[n].solver_failures() for n in names),
         **closest_approach(log, footprints),

@@ -7,6 +7,7 @@ from __future__ import annotations
 from pathlib import Path
 from typing import Any
 
+from coverage_fleet.fleet.density_updates import density_in_force
 from coverage_fleet.fleet.mission import Mission, mission_as_run
 from coverage_fleet.fleet.trial import TrialLog, write_trial
 
@@ -18,6 +19,10 @@ def write_mission_trial(
     from coverage_fleet.report import write_report
 
     metrics: dict[str, Any] = {}
+    # The final cells, the CVT gap and the density drawn are judged with the density in
+    # force at the end (a scripted update may have replaced the mission's).
+    end = log.time[-1] if log.time else 0.0
+    density = density_in_force(mission.density, mission.density_updates, end)
 
     def report(folder: Path) -> None:
         metrics.update(
@@ -25,7 +30,7 @@ def write_mission_trial(
                 folder,
                 log,
                 mission.region,
-                mission.density,
+                density,
                 mission.settle.distance,
                 footprints={e.name: e.footprint_radius for e in mission.roster},
                 map_origin=None if mission.frame is None else mission.frame.describe(),
