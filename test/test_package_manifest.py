@@ -31,6 +31,7 @@ ROSDEP_KEY = {
     "numba": "python3-numba",
     "dask": "python3-dask-distributed-pip",
     "distributed": "python3-dask-distributed-pip",
+    "rich": "python3-rich-pip",
     "pytest": "python3-pytest",
     "hypothesis": "python3-hypothesis",
 }

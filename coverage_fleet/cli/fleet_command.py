@@ -57,7 +57,14 @@ def graph_environment(args: argparse.Namespace) -> None:
     options = Collector("command line")
     options.check("--wait", number_fault(args.wait, minimum=0.0, exclusive_minimum=True,
                                          maximum=WAIT_MAX))
-    domain = args.domain_id
+    domain = graph_domain(args.domain_id, options)
+    options.raise_if_any()
+    join_domain(domain)
+
+
+def graph_domain(domain: int | None, options: Collector) -> int | None:
+    """The running fleet's domain: --domain-id, else ROS_DOMAIN_ID; faults go to `options`
+    (shared by every command that joins a running graph: stop, resume, watch)."""
     if domain is None:
         text = os.environ.get("ROS_DOMAIN_ID", "")
         if not text:
@@ -69,7 +76,11 @@ def graph_environment(args: argparse.Namespace) -> None:
             domain = int(text)
     if domain is not None:
         options.check("--domain-id", integer_fault(domain, 0, DOMAIN_ID_MAX))
-    options.raise_if_any()
+    return domain
+
+
+def join_domain(domain: int) -> None:
+    """This process joins `domain` with the launcher's discovery setting."""
     env, _ = ros_environment({**os.environ, "ROS_DOMAIN_ID": str(domain)})
     os.environ.update(
         {k: env[k] for k in ("ROS_AUTOMATIC_DISCOVERY_RANGE", "ROS_DOMAIN_ID")}

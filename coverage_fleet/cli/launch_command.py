@@ -1,7 +1,12 @@
 """`coverage-fleet launch MISSION`: start the mission's ROS graph as separate processes
 (base station, one controller per robot, optionally the headless simulator), record the run
 and end with the trial directory and its report. The same node list as launch/*.launch.py
-(coverage_fleet.cli.graph)."""
+(coverage_fleet.cli.graph).
+
+While the graph runs the launcher shows the live view of `coverage-fleet watch` (redrawn in
+place in a terminal; plain status lines every LAUNCH_PLAIN_PERIOD seconds when its output
+is a pipe or a log) and relays the nodes' warnings and errors from /rosout to stderr.
+"""
 
 from __future__ import annotations
 
@@ -10,6 +15,7 @@ import os
 import sys
 import threading
 import time
+from collections.abc import Callable
 from dataclasses import dataclass
 from datetime import UTC, datetime
 from pathlib import Path
@@ -28,6 +34,8 @@ EXIT_NODE_DIED = 1
 EXIT_INTERRUPTED = 130
 #: Simulator exit status 0 means its run is over (duration reached, fleet settled or stuck).
 SIMULATOR_ROLE = "simulator"
+#: Seconds between plain status blocks when the launcher's output is not a terminal.
+LAUNCH_PLAIN_PERIOD = 5.0
 
 
 def register(subparsers: argparse._SubParsersAction) -> None:
@@ -208,6 +216,7 @@ def _run_and_record(
     graph = GraphProcesses(log_dir, env)
     started = time.monotonic()
     status = 0
+    view = None
     try:
         graph.start(specs)
         print(
@@ -217,8 +226,9 @@ def _run_and_record(
         )
         graph.describe(sys.stdout)
         print(
-            "launch: watch /coverage/cells (RViz, frame map), /coverage/cost, "
-            "/coverage/generation, /<robot>/coverage/target and /diagnostics; node logs in "
+            "launch: from another terminal: "
+            f"coverage-fleet watch --domain-id {env['ROS_DOMAIN_ID']} "
+            f"--mission {mission.source}; RViz: /coverage/cells in frame map; node logs in "
             f"{log_dir}; Ctrl-C stops everything",
             flush=True,
         )
@@ -228,7 +238,8 @@ def _run_and_record(
             "robots' own emergency stops",
             flush=True,
         )
-        status = _watch(graph)
+        view = _start_view(mission)
+        status = _watch(graph, view.wait if view is not None else time.sleep)
     except KeyboardInterrupt as interrupt:
         name = getattr(interrupt, "signal_name", "SIGINT")
         print(
@@ -239,6 +250,8 @@ def _run_and_record(
     finally:
         # From here on a stop signal only hurries the stop: no node is ever left running.
         stop_signals.stopping()
+        if view is not None:
+            view.close()
         graph.stop(hurry=lambda: stop_signals.hurry)
         if stop_recorder is not None:
             stop_recorder()
@@ -254,9 +267,30 @@ def _run_and_record(
     return GraphRun(status, path, metrics)
 
 
-def _watch(graph: GraphProcesses) -> int:
+def _relay(line) -> None:
+    print(f"launch: {line.level} from {line.node}: {line.message}", file=sys.stderr, flush=True)
+
+
+def _start_view(mission: Mission):
+    """The live view of the graph, or None (said so) if it cannot start: the run goes on
+    without it."""
+    from .watch_command import LiveView, is_terminal
+
+    plain = not is_terminal(sys.stdout)
+    try:
+        return LiveView(
+            list(mission.robot_names), sys.stdout, plain,
+            period=LAUNCH_PLAIN_PERIOD if plain else None, on_log=_relay,
+        )
+    except Exception as error:  # the view is for people; the run must not depend on it
+        print(f"launch: no live view ({error!r})", file=sys.stderr, flush=True)
+        return None
+
+
+def _watch(graph: GraphProcesses, wait: Callable[[float], None] = time.sleep) -> int:
     """Until the simulation is over or a node other than a controller exits; returns the
-    exit status (EXIT_NODE_DIED when any node died)."""
+    exit status (EXIT_NODE_DIED when any node died). `wait` passes the time between checks
+    (the live view handles its messages and redraws meanwhile)."""
     status = 0
     while True:
         for node in graph.exited():
@@ -279,4 +313,4 @@ def _watch(graph: GraphProcesses) -> int:
                 file=sys.stderr, flush=True,
             )
             return EXIT_NODE_DIED
-        time.sleep(0.1)
+        wait(0.1)

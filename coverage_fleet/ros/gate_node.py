@@ -253,6 +253,9 @@ class GateNode(Node):
             "settling": self.settling,
             "ignored_reports": self.ignored_reports,
             "fleet_stopped": int(self.fleet_stopped),
+            # The tolerances of the progress rule, so that a viewer judges flags alike.
+            "noise_tolerance": repr(self.gate.settings.noise_tolerance),
+            "progress_tolerance": repr(self.gate.settings.progress_tolerance),
         }
         array = DiagnosticArray()
         array.header.stamp = self.get_clock().now().to_msg()
