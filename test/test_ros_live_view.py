@@ -28,6 +28,7 @@ rclpy = pytest.importorskip("rclpy", reason="ROS 2 wheels not installed (scripts
 from geometry_msgs.msg import Vector3Stamped  # noqa: E402
 from nav_msgs.msg import Odometry  # noqa: E402
 from std_msgs.msg import Float64, UInt32  # noqa: E402
+from std_srvs.srv import SetBool  # noqa: E402
 from support_processes import WatchedProcess  # noqa: E402
 
 from coverage_fleet.ros import conversions as cv  # noqa: E402
@@ -155,6 +156,7 @@ def test_watch_shows_a_running_graph_and_a_robot_that_falls_silent(graph) -> Non
         "both robots live, a cost and generation 0",
     )
     assert robots.generation == 0
+    assert "stop: off" in block[0]  # the gate's fleet stop, released
     # The cost shown is the one on the wire (5 significant digits): the robots stand still.
     shown = float(block[0].split(" cost ")[1].split()[0])
     assert robots.cost is not None and shown == pytest.approx(robots.cost, rel=1e-4)
@@ -178,6 +180,14 @@ def test_watch_shows_a_running_graph_and_a_robot_that_falls_silent(graph) -> Non
         "rover_b stale",
     )
     assert robot_line(block, "rover_a").startswith("robot rover_a live")
+
+    # The fleet stop, set through the gate's service, shows at once.
+    client = robots.node.create_client(SetBool, topics.FLEET_STOP_SERVICE)
+    assert client.wait_for_service(timeout_sec=PATIENCE)
+    future = client.call_async(SetBool.Request(data=True))
+    rclpy.spin_until_future_complete(robots.node, future, timeout_sec=PATIENCE)
+    assert future.result() is not None and future.result().success
+    wait_for_block(robots, watch, lambda b: "stop: STOPPED" in b[0], "the fleet stop shown")
 
     # Ctrl-C ends the watch cleanly.
     watch.process.send_signal(signal.SIGINT)
