@@ -24,6 +24,7 @@ from coverage_fleet.fleet.parallel import (
     scheduler_address_fault,
 )
 from coverage_fleet.inputs.fields import Collector, integer_fault, number_fault
+from coverage_fleet.inputs.outputs import check_output_location, output_fault
 from coverage_fleet.interrupts import interrupts_at_safe_points
 from coverage_fleet.report.metrics import trial_metrics
 
@@ -123,6 +124,8 @@ def run(args: argparse.Namespace) -> int:
         options.check("--duration", number_fault(
             args.duration, minimum=0.0, exclusive_minimum=True, maximum=DURATION_MAX))
     placement = placement_from(args, options)
+    if args.json is not None:
+        options.check("--json", output_fault(args.json))
     mission = load_mission_with(args.mission, options)
     stamp = datetime.now(UTC).strftime("%Y%m%dT%H%M%SZ")
     out = args.json or Path("trials") / f"{mission.name}-batch-{stamp}.json"
@@ -130,6 +133,7 @@ def run(args: argparse.Namespace) -> int:
         raise ConfigError.single(
             str(out), "--json", "already exists; a summary is never overwritten"
         )
+    check_output_location(out, "--json")
     seeds = list(range(args.first_seed, args.first_seed + args.seeds))
     footprints = {e.name: e.footprint_radius for e in mission.roster}
     print(f"batch: {len(seeds)} runs on {placement.describe()}", file=sys.stderr)

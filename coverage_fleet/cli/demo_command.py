@@ -17,6 +17,7 @@ from coverage_fleet.cli.simulate_command import (
 )
 from coverage_fleet.errors import ConfigError
 from coverage_fleet.fleet.mission import load_mission, package_config_dir
+from coverage_fleet.inputs.outputs import check_output_location
 
 DEMO_MISSION = "orchard_frost_watch.yaml"
 
@@ -53,6 +54,7 @@ def run(args: argparse.Namespace) -> int:
     print(f"demo: invented mission {mission.name} ({len(mission.roster)} robots), {how}")
     print(f"demo: mission file {path}")
     out = args.out or default_trial_directory(mission, mission.simulation.seed)
+    check_output_location(out, "--out")
     if args.offline:
         progress = ProgressBar("demo")
         trial, _, metrics = simulate_to_trial(mission, out, progress=progress)

@@ -23,6 +23,7 @@ from typing import TYPE_CHECKING, Any
 
 from coverage_fleet.errors import ConfigError
 from coverage_fleet.inputs.fields import Collector, number_fault
+from coverage_fleet.inputs.outputs import check_output_location
 
 from .graph import SIMULATION_MODES, SimulationMode, fleet_nodes, select_nodes
 from .launcher import SAFETY_CAUTION, GraphProcesses, StopSignals, ros_environment
@@ -187,6 +188,7 @@ def run_graph(
     out = out or Path("trials") / f"{mission.name}-ros-{stamp}"
     if out.exists():
         raise ConfigError.single(str(out), "--out", "already exists; a trial is never overwritten")
+    check_output_location(out, "--out")
     log_dir = Path(f"{out}.logs")
     env, notes = ros_environment(os.environ)
     # This process hosts the recorder: it joins the same domain on loopback.

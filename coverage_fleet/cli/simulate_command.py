@@ -20,6 +20,7 @@ from coverage_fleet.fleet.mission import (
 from coverage_fleet.fleet.simulation import StepInfo, simulate_mission
 from coverage_fleet.fleet.trial import TrialLog
 from coverage_fleet.inputs.fields import Collector, integer_fault, number_fault
+from coverage_fleet.inputs.outputs import check_output_location, output_fault
 from coverage_fleet.interrupts import interrupts_at_safe_points
 from coverage_fleet.report.trial import write_mission_trial
 
@@ -161,9 +162,12 @@ def run(args: argparse.Namespace) -> int:
             args.duration, minimum=0.0, exclusive_minimum=True, maximum=DURATION_MAX))
     if args.seed is not None:
         options.check("--seed", integer_fault(args.seed, 0, SEED_MAX))
+    if args.out is not None:
+        options.check("--out", output_fault(args.out))
     mission = load_mission_with(args.mission, options)
     seed = mission.simulation.seed if args.seed is None else args.seed
     out = args.out or default_trial_directory(mission, seed)
+    check_output_location(out, "--out")
     real = [entry.name for entry in mission.roster if not entry.simulated]
     if real:
         print(

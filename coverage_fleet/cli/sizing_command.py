@@ -43,6 +43,7 @@ from coverage_fleet.fleet.mission import (
 )
 from coverage_fleet.fleet.parallel import run_all
 from coverage_fleet.inputs.fields import Collector, integer_fault, number_fault
+from coverage_fleet.inputs.outputs import check_output_location
 from coverage_fleet.interrupts import interrupts_at_safe_points
 from coverage_fleet.report.metrics import trial_metrics
 from coverage_fleet.vehicles.loader import load_vehicle_file
@@ -348,6 +349,7 @@ def run(args: argparse.Namespace) -> int:
     if out.exists():
         raise ConfigError.single(str(out), "--out", "already exists; a study is never "
                                  "overwritten")
+    check_output_location(out, "--out")
     seeds = list(range(args.first_seed, args.first_seed + args.seeds))
     jobs = [(c["roster"], seed, args.duration) for c in configurations for seed in seeds]
     print(f"sizing: {len(configurations)} configurations x {len(seeds)} seeds = {len(jobs)} "

@@ -54,6 +54,7 @@ from coverage_fleet.vehicles.settings import (
     MpcSettings,
     not_stabilisable_reason,
 )
+from coverage_fleet.vehicles.solver_options import solver_option_problems
 
 BUILTIN_MODELS: dict[str, str] = {
     "differential_drive": "coverage_fleet.vehicles.differential_drive:DifferentialDriveModel",
@@ -300,6 +301,12 @@ def _read_solver(value: Any, out: Collector) -> dict[str, Any]:
                     read.problem("options", f"option names must be strings, got {key!r}")
             solver["options"] = options
     read.check_unknown(SOLVER_KEYS)
+    # The first plugin is the default (control/solver_chain.DEFAULT_PLUGIN).
+    plugin = solver.get("plugin") if read.has("plugin") else SOLVER_PLUGINS[0]
+    options = solver.get("options") or {}
+    if plugin in SOLVER_PLUGINS and all(isinstance(key, str) for key in options):
+        for name, message in solver_option_problems(plugin, options):
+            out.add(f"mpc.solver.options.{name}", message)
     return solver
 
 
