@@ -96,10 +96,12 @@ def test_candidate_table_round_trip() -> None:
         positions={0: np.array([1.0, 2.0]), 3: np.array([5.0, 6.0])},
         centroids={0: np.array([1.5, 2.5]), 3: np.array([4.0, 6.5])},
         masses={0: 10.0, 3: 20.0},
+        density_version=2,
     )
     msg = cv.candidates_to_msg(values)
     assert [d.label for d in msg.layout.dim] == [
-        "row 0: time,cost,robots; rows 1..n: one robot each", "roster_index,px,py,cx,cy,mass"
+        "row 0: time,cost,robots,density_version; rows 1..n: one robot each",
+        "roster_index,px,py,cx,cy,mass",
     ]
     assert len(msg.data) == 3 * 6
     back = cv.candidates_from_msg(msg)
@@ -107,6 +109,7 @@ def test_candidate_table_round_trip() -> None:
     assert sorted(back.positions) == [0, 3]
     assert np.allclose(back.centroids[3], [4.0, 6.5])
     assert back.masses == {0: 10.0, 3: 20.0}
+    assert back.density_version == 2
 
 
 def test_a_table_that_does_not_match_its_layout_is_refused() -> None:
@@ -153,7 +156,7 @@ def test_candidate_table_reads_back_from_its_labels_alone() -> None:
         centroids={2: np.array([3.0, 4.0])}, masses={2: 5.0},
     )
     row0, body, _ = _read_by_labels(cv.candidates_to_msg(values))
-    assert row0 == {"time": 7.5, "cost": 2.0, "robots": 1.0}
+    assert row0 == {"time": 7.5, "cost": 2.0, "robots": 1.0, "density_version": 0.0}
     assert body == [
         {"roster_index": 2.0, "px": 1.0, "py": 2.0, "cx": 3.0, "cy": 4.0, "mass": 5.0}
     ]
@@ -225,3 +228,20 @@ def test_solve_outcome_round_trip_keeps_the_state_time_exactly() -> None:
                             "previous plan", 40)
     assert cv.solve_to_msg(failed).level == msg.WARN
     assert cv.solve_from_msg(cv.solve_to_msg(failed)) == failed
+
+
+def test_occupancy_grid_is_row_major_from_its_origin() -> None:
+    """nav_msgs/OccupancyGrid (ROS 2 common_interfaces, OccupancyGrid.msg): "The map data,
+    in row-major order, starting with (0,0)"; cell (0,0) lies at info.origin."""
+    msg = cv.occupancy_to_msg(
+        cv.OccupancyValues("map", np.array([[0, 10, 20], [-1, 100, 50]]), (2.0, 3.0), 0.0,
+                           0.5),
+        cv.seconds_to_stamp(1.0),
+    )
+    assert (msg.info.width, msg.info.height) == (3, 2)
+    assert list(msg.data) == [0, 10, 20, -1, 100, 50]
+    back = cv.occupancy_from_msg(msg)
+    assert back.cells[1, 0] == -1 and back.origin == (2.0, 3.0) and back.resolution == 0.5
+    msg.info.width = 4
+    with pytest.raises(ValueError, match="4 x 2"):
+        cv.occupancy_from_msg(msg)

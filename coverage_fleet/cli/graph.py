@@ -58,13 +58,17 @@ def _spec(role: str, executable: str, name: str | None, namespace: str = "", **p
     return NodeSpec(role, executable, EXECUTABLES[executable], name, namespace, dict(params))
 
 
-def base_station_nodes(mission_file: str | Path, use_sim_time: bool = False) -> list[NodeSpec]:
-    """The base-station part: partition node and reference gate in one process."""
+def base_station_nodes(
+    mission_file: str | Path, use_sim_time: bool = False, density_updates: bool = False
+) -> list[NodeSpec]:
+    """The base-station part: partition node and reference gate in one process
+    (`density_updates`: the partition node takes densities from coverage/density)."""
     mission_file = str(Path(mission_file).resolve())
     return [
         _spec(
             "base_station", "coverage_fleet_base_station", None,
             mission_file=mission_file, use_sim_time=use_sim_time,
+            density_updates=density_updates,
         )
     ]
 
@@ -112,6 +116,7 @@ def fleet_nodes(
     duration: float = 0.0,
     stop_when_settled: bool = True,
     recorded: bool = False,
+    density_updates: bool = False,
 ) -> list[NodeSpec]:
     """The whole graph of a mission: base station, one controller per roster robot, and
     (when `simulation` is given) the headless simulator for the simulated robots.
@@ -132,7 +137,7 @@ def fleet_nodes(
         )
     any_real = any(not e.simulated for e in mission.roster)
     use_sim_time = simulation is not None and not any_real
-    nodes = base_station_nodes(mission.source, use_sim_time)
+    nodes = base_station_nodes(mission.source, use_sim_time, density_updates)
     for entry in mission.roster:
         nodes.append(
             controller_node_spec(

@@ -71,6 +71,11 @@ def register(subparsers: argparse._SubParsersAction) -> None:
         help="start only this part (repeatable): base_station, simulator, or a robot's name "
         "(its controller), e.g. on a robot's own computer",
     )
+    parser.add_argument(
+        "--density-updates", action="store_true",
+        help="the partition node takes nav_msgs/OccupancyGrid densities from "
+        "/coverage/density at run time (README, Density updates)",
+    )
     parser.add_argument("--out", type=Path, help="trial directory (default: trials/...)")
     parser.add_argument(
         "--no-record", action="store_true", help="do not record a trial (just run the graph)"
@@ -152,6 +157,7 @@ def run(args: argparse.Namespace) -> int:
         out=args.out,
         record=not args.no_record,
         only=args.only,
+        density_updates=args.density_updates,
     )
     return result.status
 
@@ -174,12 +180,14 @@ def run_graph(
     out: Path | None = None,
     record: bool = True,
     only: list[str] | None = None,
+    density_updates: bool = False,
 ) -> GraphRun:
     """Start the mission's graph, watch it until the simulation is over, a node other than a
     controller dies or Ctrl-C, stop it and write the trial (when recording)."""
     specs = select_nodes(
         fleet_nodes(
-            mission.source, simulation, vehicle_overrides, duration=duration, recorded=record
+            mission.source, simulation, vehicle_overrides, duration=duration, recorded=record,
+            density_updates=density_updates,
         ),
         only or [],
         str(mission.source),

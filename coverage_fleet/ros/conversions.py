@@ -14,12 +14,14 @@ Layouts that standard types do not name by field:
   WARN (a fallback input was used), message the solver status; values state_time (s, the
   state solved on), solve_time (s), status, success (1/0), fallback, iterations.
 - candidate centroids (`coverage/candidates`, std_msgs/Float64MultiArray): rows of
-  CANDIDATE_COLUMNS; row 0 is [time of the states (s), coverage cost H, robots, 0, 0, 0],
-  then one row per live robot: [index in the mission roster, px, py, cx, cy, cell mass].
+  CANDIDATE_COLUMNS; row 0 is [time of the states (s), coverage cost H, robots, density
+  version (0 = the mission's density, +1 per update), 0, 0], then one row per live robot:
+  [index in the mission roster, px, py, cx, cy, cell mass].
 - gate openings (`coverage/openings`, std_msgs/Float64MultiArray): one opening per message,
   rows of OPENING_COLUMNS; row 0 is [generation, time (s), coverage cost H at the positions
   the targets came from, reason, robots, 0] with reason 0 = start, 1 = progress, 2 = roster
-  change; then per robot [roster index, px, py, target x, target y, distance at commit].
+  change, 3 = density update; then per robot [roster index, px, py, target x, target y,
+  distance at commit].
 
 Both tables carry their layout in the message itself, so that `ros2 topic echo` or a
 recording is readable without this file: the first dimension's label names the fields of
@@ -49,7 +51,7 @@ from geometry_msgs.msg import (
     Vector3Stamped,
     Wrench,
 )
-from nav_msgs.msg import Odometry, Path
+from nav_msgs.msg import OccupancyGrid, Odometry, Path
 from std_msgs.msg import ColorRGBA, Float64MultiArray, Header, MultiArrayDimension
 from visualization_msgs.msg import Marker, MarkerArray
 
@@ -59,9 +61,9 @@ from .topics import MAP_FRAME
 
 CANDIDATE_COLUMNS = ("roster_index", "px", "py", "cx", "cy", "mass")
 #: Fields of row 0 of a candidates table (the rest of row 0 is zero).
-CANDIDATE_HEADER = ("time", "cost", "robots")
+CANDIDATE_HEADER = ("time", "cost", "robots", "density_version")
 OPENING_COLUMNS = ("roster_index", "px", "py", "tx", "ty", "distance")
-OPENING_REASONS = ("start", "progress", "roster")
+OPENING_REASONS = ("start", "progress", "roster", "density")
 #: Fields of row 0 of an openings table; reason is an index into OPENING_REASONS.
 OPENING_HEADER = ("generation", "time", "cost", "reason", "robots")
 
@@ -235,6 +237,7 @@ class CandidateValues:
     positions: dict[int, np.ndarray]
     centroids: dict[int, np.ndarray]
     masses: dict[int, float]
+    density_version: int = 0
 
 
 def table_rows_label(header: Sequence[str], codes: str = "") -> str:
@@ -276,7 +279,7 @@ def _rows(msg: Float64MultiArray, columns: Sequence[str]) -> np.ndarray:
 def candidates_to_msg(values: CandidateValues) -> Float64MultiArray:
     indices = sorted(values.positions)
     rows = np.zeros((len(indices) + 1, len(CANDIDATE_COLUMNS)))
-    rows[0, :3] = (values.time, values.cost, len(indices))
+    rows[0, :4] = (values.time, values.cost, len(indices), values.density_version)
     for row, index in enumerate(indices, start=1):
         rows[row] = (
             index,
@@ -299,7 +302,55 @@ def candidates_from_msg(msg: Float64MultiArray) -> CandidateValues:
         positions={i: body[k, 1:3].copy() for k, i in enumerate(indices)},
         centroids={i: body[k, 3:5].copy() for k, i in enumerate(indices)},
         masses={i: float(body[k, 5]) for k, i in enumerate(indices)},
+        density_version=int(rows[0, 3]),
     )
+
+
+# --- density raster -----------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class OccupancyValues:
+    """A nav_msgs/OccupancyGrid as plain values: cells (height, width) int, row 0 at the
+    origin; origin corner (m) and yaw (rad) of the grid in `frame_id`."""
+
+    frame_id: str
+    cells: np.ndarray
+    origin: tuple[float, float]
+    yaw: float
+    resolution: float
+
+
+def occupancy_from_msg(msg: OccupancyGrid) -> OccupancyValues:
+    """Cells row-major from the origin, as nav_msgs/OccupancyGrid documents. Raises
+    ValueError when the data does not fill width x height."""
+    info = msg.info
+    width, height = int(info.width), int(info.height)
+    data = np.asarray(msg.data, dtype=np.int16)
+    if width <= 0 or height <= 0 or data.size != width * height:
+        raise ValueError(f"the grid is {width} x {height} but holds {data.size} values")
+    pose = info.origin
+    return OccupancyValues(
+        frame_id=msg.header.frame_id,
+        cells=data.reshape(height, width),
+        origin=(float(pose.position.x), float(pose.position.y)),
+        yaw=quaternion_to_yaw(pose.orientation),
+        resolution=float(info.resolution),
+    )
+
+
+def occupancy_to_msg(values: OccupancyValues, stamp: Time) -> OccupancyGrid:
+    msg = OccupancyGrid()
+    msg.header = Header(stamp=stamp, frame_id=values.frame_id)
+    height, width = values.cells.shape
+    msg.info.resolution = float(values.resolution)
+    msg.info.width, msg.info.height = int(width), int(height)
+    msg.info.origin = Pose(
+        position=Point(x=float(values.origin[0]), y=float(values.origin[1]), z=0.0),
+        orientation=yaw_to_quaternion(values.yaw),
+    )
+    msg.data = [int(v) for v in np.asarray(values.cells).ravel()]
+    return msg
 
 
 # --- gate openings ------------------------------------------------------------------------

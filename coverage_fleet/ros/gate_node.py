@@ -196,6 +196,7 @@ class GateNode(Node):
             positions={names[i]: p for i, p in values.positions.items()},
             centroids={names[i]: c for i, c in values.centroids.items()},
             masses={names[i]: m for i, m in values.masses.items()},
+            density_version=values.density_version,
         )
         decision = self.keeper.offer(candidates)
         for name in decision.left:

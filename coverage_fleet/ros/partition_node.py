@@ -7,20 +7,32 @@ At `rate` Hz (ROS clock) it takes every robot that is live, meaning its odometry
 coverage cost H, and publishes `coverage/candidates` (layout in conversions.py),
 `coverage/cost` and `coverage/cells` (RViz markers: cells, centroids, committed targets).
 A robot that falls silent is left out, so the live robots share its cell: a fault in one
-robot never stalls the fleet. The liveness rules and the partition are core objects
-(fleet/liveness.py, fleet/coordination.py); this node converts messages and calls them.
+robot never stalls the fleet.
+
+Density updates (fleet/density_updates.py): the mission's scripted `density_updates` are
+applied at their times (ROS clock, counted from the first partition); with the parameter
+`density_updates` true the node also takes every nav_msgs/OccupancyGrid on
+`coverage/density` (map frame, not rotated) as the new density, by the occupancy rule
+(-1 unknown -> `unknown_density`, 0..100 -> 0..1). Each new density gets the next
+version, carried in the candidates, and the gate commits a fresh generation for it
+(reason "density"). A grid that breaks the rule is refused with a warning and the
+density in force stays.
+
+The liveness rules and the partition are core objects (fleet/liveness.py,
+fleet/coordination.py); this node converts messages and calls them.
 """
 
 from __future__ import annotations
 
 import numpy as np
 from geometry_msgs.msg import PointStamped, Vector3Stamped
-from nav_msgs.msg import Odometry
+from nav_msgs.msg import OccupancyGrid, Odometry
 from rclpy.node import Node
 from std_msgs.msg import Float64, Float64MultiArray
 from visualization_msgs.msg import MarkerArray
 
 from coverage_fleet.fleet.coordination import candidates_at
+from coverage_fleet.fleet.density_updates import UNKNOWN_DENSITY, DensitySource, occupancy_density
 from coverage_fleet.fleet.liveness import FleetLiveness
 from coverage_fleet.fleet.mission import load_mission
 
@@ -28,6 +40,7 @@ from . import qos, topics
 from .conversions import (
     CandidateValues,
     candidates_to_msg,
+    occupancy_from_msg,
     odometry_from_msg,
     partition_markers,
     seconds_to_stamp,
@@ -62,11 +75,23 @@ class PartitionNode(Node):
             "Seconds the first partition waits for every roster robot to be live; after "
             "that it starts with the live ones (the others join later).", (0.0, 600.0),
         )
+        take_density = declare(
+            self, "density_updates", False,
+            "Take nav_msgs/OccupancyGrid messages on coverage/density as the density at run "
+            "time (-1 unknown -> unknown_density, 0..100 -> 0..1).",
+        )
+        self.unknown_density = declare(
+            self, "unknown_density", UNKNOWN_DENSITY,
+            "Density of unknown (-1) occupancy cells and of the area outside the grid.",
+            (0.0, 1.0),
+        )
         self.mission = load_mission(mission_file)
+        self.densities = DensitySource(self.mission.density, self.mission.density_updates)
         self.names = list(self.mission.robot_names)
         self.liveness = FleetLiveness(
             self.names, state_timeout, controller_timeout, startup_grace
         )
+        self.run_start: float | None = None
         self.positions: dict[str, np.ndarray] = {}
         self.targets: dict[str, np.ndarray] = {}
         for name in self.names:
@@ -82,6 +107,9 @@ class PartitionNode(Node):
                 PointStamped, topics.robot_topic(name, topics.TARGET),
                 lambda msg, n=name: self._on_target(n, msg), qos.LATCHED,
             )
+        if take_density:
+            self.create_subscription(OccupancyGrid, topics.DENSITY, self._on_density,
+                                     qos.LATCHED)
         self.candidates_pub = self.create_publisher(
             Float64MultiArray, topics.CANDIDATES, qos.REPORTS
         )
@@ -99,6 +127,27 @@ class PartitionNode(Node):
         odom = odometry_from_msg(msg)
         self.positions[name] = np.array([odom.x, odom.y])
         self.liveness.saw_state(name, stamp_to_seconds(msg.header.stamp))
+
+    def _on_density(self, msg: OccupancyGrid) -> None:
+        try:
+            grid = occupancy_from_msg(msg)
+            if grid.frame_id != topics.MAP_FRAME:
+                raise ValueError(f"frame {grid.frame_id!r}, expected {topics.MAP_FRAME!r}")
+            if abs(grid.yaw) > 1e-9:
+                raise ValueError(f"the grid is rotated (yaw {grid.yaw:.3g} rad); publish it "
+                                 "aligned with the map axes")
+            density = occupancy_density(grid.cells, grid.origin, grid.resolution,
+                                        self.mission.region, self.unknown_density)
+        except ValueError as exc:
+            self.get_logger().warning(f"density update refused ({exc}); the density in "
+                                      "force stays")
+            return
+        version = self.densities.replace(density)
+        height, width = grid.cells.shape
+        self.get_logger().info(
+            f"density update {version} from {topics.DENSITY}: {width} x {height} cells of "
+            f"{grid.resolution:g} m; the next candidates start a new generation"
+        )
 
     def _on_target(self, name: str, msg: PointStamped) -> None:
         self.targets[name] = target_from_msg(msg)[0]
@@ -118,6 +167,14 @@ class PartitionNode(Node):
                     f"starting without {', '.join(missing)} (not live after the start-up "
                     "grace)"
                 )
+        # Scripted density updates count from the first partition (time 0 of an offline run;
+        # on wall time the clock's epoch would make every update due at once).
+        if self.run_start is None:
+            self.run_start = now
+        if self.densities.apply_due(now - self.run_start):
+            self.get_logger().info(
+                f"density update {self.densities.version} (scripted in the mission)"
+            )
         live = self.liveness.live
         if not live:
             return
@@ -126,7 +183,8 @@ class PartitionNode(Node):
             {n: self.positions[n] for n in live},
             latest_state,
             self.mission.region,
-            self.mission.density,
+            self.densities.density,
+            self.densities.version,
         )
         index = {n: self.names.index(n) for n in live}
         values = CandidateValues(
@@ -135,6 +193,7 @@ class PartitionNode(Node):
             positions={index[n]: p for n, p in candidates.positions.items()},
             centroids={index[n]: c for n, c in candidates.centroids.items()},
             masses={index[n]: m for n, m in candidates.masses.items()},
+            density_version=candidates.density_version,
         )
         self.candidates_pub.publish(candidates_to_msg(values))
         self.cost_pub.publish(Float64(data=candidates.cost))

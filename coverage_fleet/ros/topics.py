@@ -15,6 +15,9 @@ SOLVE = "coverage/solve"
 CELLS = "/coverage/cells"
 COST = "/coverage/cost"
 CANDIDATES = "/coverage/candidates"
+#: Density raster at run time (nav_msgs/OccupancyGrid, latched; the partition node reads it
+#: when its `density_updates` parameter is true; rule in fleet/density_updates.py).
+DENSITY = "/coverage/density"
 GENERATION = "/coverage/generation"
 OPENINGS = "/coverage/openings"
 #: "moving", "settled" or "stuck" (fleet/settling.py), latched.
