@@ -10,7 +10,10 @@ from coverage_fleet.fleet.trial import TrialLog
 from coverage_fleet.geometry.density import Density
 from coverage_fleet.geometry.region import ConvexRegion
 
-FIGURES = ("trajectories.png", "cost.png", "distances.png", "solve_times.png")
+FIGURES = (
+    "trajectories.png", "cost.png", "distances.png", "solve_times.png", "motion.png",
+    "clearance.png",
+)
 
 
 def write_report(
@@ -35,4 +38,6 @@ def write_report(
     figures.plot_cost(directory / "cost.png", log)
     figures.plot_distances(directory / "distances.png", log, settle_distance)
     figures.plot_solve_times(directory / "solve_times.png", log)
+    figures.plot_motion(directory / "motion.png", log)
+    figures.plot_clearance(directory / "clearance.png", log, footprints)
     return metrics

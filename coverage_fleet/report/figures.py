@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from dataclasses import dataclass
 from pathlib import Path
 
 import matplotlib
@@ -13,7 +14,7 @@ import numpy as np
 from matplotlib.colors import LinearSegmentedColormap
 from matplotlib.path import Path as PolygonPath
 
-from coverage_fleet.fleet.trial import TrialLog
+from coverage_fleet.fleet.trial import RobotLog, TrialLog
 from coverage_fleet.geometry.density import Density
 from coverage_fleet.geometry.partition import compute_partition
 from coverage_fleet.geometry.region import ConvexRegion
@@ -179,3 +180,101 @@ def plot_solve_times(path: Path, log: TrialLog) -> None:
     fig.tight_layout()
     fig.savefig(path)
     plt.close(fig)
+
+
+@dataclass(frozen=True)
+class MotionSeries:
+    """One robot's planar motion over a run, from its logged positions (and yaw)."""
+
+    time: np.ndarray
+    #: speed along the robot's heading (m/s): negative while it drives backwards; robots
+    #: without a yaw state (point-mass models) have no backwards: their planar speed
+    speed: np.ndarray
+    #: yaw (deg, -180..180) where the model has one, else the direction of travel (NaN at rest)
+    heading_deg: np.ndarray
+    has_yaw: bool
+
+
+#: Below this planar speed (m/s) a robot without a yaw state has no direction of travel.
+AT_REST_SPEED = 1e-3
+
+
+def motion_series(robot: RobotLog) -> MotionSeries:
+    """Velocity from the logged positions by finite differences (central inside, one-sided
+    at the ends: numpy.gradient), so every vehicle model is treated alike and the figure
+    shows what the robot did, not what it was told."""
+    t = np.asarray(robot.time, float)
+    p = robot.positions()
+    if len(t) < 2:
+        empty = np.full(len(t), np.nan)
+        return MotionSeries(t, empty, empty, "yaw" in robot.state_names)
+    velocity = np.gradient(p, t, axis=0)
+    if "yaw" in robot.state_names:
+        yaw = np.asarray(robot.state, float)[:, robot.state_names.index("yaw")]
+        speed = velocity[:, 0] * np.cos(yaw) + velocity[:, 1] * np.sin(yaw)
+        heading = np.degrees(np.arctan2(np.sin(yaw), np.cos(yaw)))
+        return MotionSeries(t, speed, heading, True)
+    speed = np.hypot(velocity[:, 0], velocity[:, 1])
+    heading = np.degrees(np.arctan2(velocity[:, 1], velocity[:, 0]))
+    return MotionSeries(t, speed, np.where(speed > AT_REST_SPEED, heading, np.nan), False)
+
+
+def plot_motion(path: Path, log: TrialLog) -> dict[str, MotionSeries]:
+    """Speed along the heading and heading against time, per robot; stretches driven
+    backwards are shaded and counted in the legend. Returns the plotted series."""
+    series = {name: motion_series(robot) for name, robot in log.robots.items()}
+    fig, (top, bottom) = plt.subplots(2, 1, figsize=(8, 6), dpi=DPI, sharex=True)
+    for index, (name, motion) in enumerate(series.items()):
+        colour = robot_colour(index)
+        backwards = motion.speed < 0
+        share = float(np.mean(backwards)) if len(backwards) else 0.0
+        label = name if not motion.has_yaw else f"{name} (backwards {100 * share:.0f}% of samples)"
+        top.plot(motion.time, motion.speed, color=colour, linewidth=1.2, label=label)
+        top.fill_between(motion.time, motion.speed, 0.0, where=backwards, color=colour,
+                         alpha=0.25, linewidth=0)
+        bottom.plot(motion.time, motion.heading_deg, color=colour, linewidth=1.0,
+                    marker=".", markersize=1.5, linestyle="none")
+    top.axhline(0.0, color="black", linewidth=0.8)
+    top.set_ylabel("speed along heading (m/s)\nbelow 0 = backwards")
+    top.set_title(f"{log.mission_name}: speed and heading (from logged positions)",
+                  fontsize=10)
+    top.grid(alpha=0.3)
+    top.legend(fontsize=8, ncol=2)
+    bottom.set_ylim(-185, 185)
+    bottom.set_yticks([-180, -90, 0, 90, 180])
+    bottom.set_ylabel("heading (deg, yaw;\nno yaw: direction of travel)")
+    bottom.set_xlabel("time (s)")
+    bottom.grid(alpha=0.3)
+    fig.tight_layout()
+    fig.savefig(path)
+    plt.close(fig)
+    return series
+
+
+def plot_clearance(
+    path: Path, log: TrialLog, footprints: dict[str, float] | None = None
+) -> tuple[np.ndarray, np.ndarray]:
+    """The smallest clearance between any two robots against time (footprint discs; centre
+    distance without footprints); zero and below means footprints overlap. Returns the
+    plotted (times, clearance)."""
+    from coverage_fleet.report.metrics import clearance_over_time
+
+    times, clearance = clearance_over_time(log, footprints)
+    what = "clearance between footprints" if footprints is not None else "centre distance"
+    fig, ax = plt.subplots(figsize=(8, 3.5), dpi=DPI)
+    ax.plot(times, clearance, color="#1f6fb2", linewidth=1.3,
+            label=f"smallest {what} over all pairs")
+    ax.axhline(0.0, color="#c0392b", linestyle="--", linewidth=1, label="touching")
+    if np.isfinite(clearance).any():
+        k = int(np.nanargmin(clearance))
+        ax.plot(times[k], clearance[k], marker="v", color="#c0392b", linestyle="none",
+                label=f"smallest {clearance[k]:.2f} m at {times[k]:.1f} s")
+    ax.set_xlabel("time (s)")
+    ax.set_ylabel(f"smallest {what} (m)")
+    ax.set_title(f"{log.mission_name}: how close the robots came to each other", fontsize=10)
+    ax.grid(alpha=0.3)
+    ax.legend(fontsize=8)
+    fig.tight_layout()
+    fig.savefig(path)
+    plt.close(fig)
+    return times, clearance

@@ -62,7 +62,7 @@ def closest_approach(log: TrialLog, footprints: dict[str, float] | None = None) 
     closest, clearance = np.inf, np.inf
     for a_index, a in enumerate(names):
         for b in names[a_index + 1:]:
-            gap = _pair_gaps(log.robots[a], log.robots[b])
+            _, gap = _pair_gaps(log.robots[a], log.robots[b])
             if len(gap):
                 closest = min(closest, float(gap.min()))
                 clearance = min(clearance, float(gap.min()) - radii[a] - radii[b])
@@ -73,21 +73,48 @@ def closest_approach(log: TrialLog, footprints: dict[str, float] | None = None) 
     return result
 
 
-def _pair_gaps(a: RobotLog, b: RobotLog) -> np.ndarray:
+def _pair_gaps(
+    a: RobotLog, b: RobotLog, extra_times: np.ndarray | None = None
+) -> tuple[np.ndarray, np.ndarray]:
+    """(times, centre distances) of two robots: at their shared sample times, or, when
+    their rows differ, at the union of their sample times (and `extra_times`) within the
+    span both cover, positions linearly interpolated between samples."""
     ta, tb = np.asarray(a.time, float), np.asarray(b.time, float)
     pa, pb = a.positions(), b.positions()
     if len(ta) == 0 or len(tb) == 0:
-        return np.zeros(0)
-    if len(ta) == len(tb) and np.array_equal(ta, tb):
-        return np.linalg.norm(pa - pb, axis=1)
+        return np.zeros(0), np.zeros(0)
+    if extra_times is None and len(ta) == len(tb) and np.array_equal(ta, tb):
+        return ta, np.linalg.norm(pa - pb, axis=1)
     start, stop = max(ta[0], tb[0]), min(ta[-1], tb[-1])
     times = np.union1d(ta, tb)
+    if extra_times is not None:
+        times = np.union1d(times, extra_times)
     times = times[(times >= start) & (times <= stop)]
 
     def at(t: np.ndarray, p: np.ndarray) -> np.ndarray:
         return np.column_stack([np.interp(times, t, p[:, 0]), np.interp(times, t, p[:, 1])])
 
-    return np.linalg.norm(at(ta, pa) - at(tb, pb), axis=1)
+    return times, np.linalg.norm(at(ta, pa) - at(tb, pb), axis=1)
+
+
+def clearance_over_time(
+    log: TrialLog, footprints: dict[str, float] | None = None
+) -> tuple[np.ndarray, np.ndarray]:
+    """(times, smallest clearance between any two robots' footprint discs at each time);
+    without footprints, the smallest centre distance. Times are every robot's sample times;
+    a pair counts where both robots were logged (NaN where no pair was)."""
+    names = list(log.robots)
+    radii = {n: 0.0 for n in names} if footprints is None else footprints
+    times = np.unique(np.concatenate(
+        [np.asarray(r.time, float) for r in log.robots.values()] or [np.zeros(0)]
+    ))
+    smallest = np.full(len(times), np.inf)
+    for a_index, a in enumerate(names):
+        for b in names[a_index + 1:]:
+            pair_times, gaps = _pair_gaps(log.robots[a], log.robots[b], times)
+            index = np.searchsorted(times, pair_times)
+            smallest[index] = np.minimum(smallest[index], gaps - radii[a] - radii[b])
+    return times, np.where(np.isfinite(smallest), smallest, np.nan)
 
 
 def trial_metrics(
