@@ -37,6 +37,7 @@ setup(
         (f"share/{PACKAGE}", ["package.xml"]),
         *_tree("launch"),
         *_tree("config"),
+        *_tree("rviz"),
     ],
     install_requires=["setuptools"],
     zip_safe=True,

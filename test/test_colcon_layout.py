@@ -1,5 +1,5 @@
 """`colcon build` of a copy of the package installs the layout a ROS 2 workspace expects:
-the ament index entry, share/coverage_fleet/{package.xml, launch/, config/} and every
+the ament index entry, share/coverage_fleet/{package.xml, launch/, config/, rviz/} and every
 console script under lib/coverage_fleet/ (where `ros2 run` looks; common practice for
 ament_python packages, see setup.cfg)."""
 
@@ -40,11 +40,12 @@ def test_ament_index_marker(install_dir: Path) -> None:
     assert marker.is_file()
 
 
-def test_share_holds_package_xml_launch_and_config(install_dir: Path) -> None:
+def test_share_holds_package_xml_launch_config_and_rviz(install_dir: Path) -> None:
     share = install_dir / "share/coverage_fleet"
     assert (share / "package.xml").is_file()
-    expected = tracked_files("launch") + tracked_files("config")
+    expected = tracked_files("launch") + tracked_files("config") + tracked_files("rviz")
     assert any(str(p).startswith("config") for p in expected), "config/ has no files"
+    assert Path("rviz/coverage_fleet_demo.rviz") in expected
     missing = [str(p) for p in expected if not (share / p).is_file()]
     assert not missing, f"not installed under share/coverage_fleet: {missing}"
 

@@ -24,6 +24,7 @@ COMMAND_MODULES = [
     "coverage_fleet.cli.launch_command",
     "coverage_fleet.cli.fleet_command",
     "coverage_fleet.cli.watch_command",
+    "coverage_fleet.cli.rviz_command",
 ]
 
 EXIT_BAD_INPUT = 2

@@ -431,8 +431,9 @@ def plan_positions(msg: Path) -> np.ndarray:
     return np.array([[p.pose.position.x, p.pose.position.y] for p in msg.poses], dtype=float)
 
 
-# Marker colours: our own palette, one hue per robot, cycling.
-_PALETTE = (
+#: Marker colours: our own palette, one hue per robot (by roster index), cycling; the RViz
+#: configuration (cli/rviz_command.py) draws each robot's plan and odometry in its hue.
+MARKER_PALETTE = (
     (0.18, 0.55, 0.34),
     (0.85, 0.47, 0.10),
     (0.26, 0.42, 0.78),
@@ -443,7 +444,7 @@ _PALETTE = (
 
 
 def _colour(index: int, alpha: float = 1.0) -> ColorRGBA:
-    r, g, b = _PALETTE[index % len(_PALETTE)]
+    r, g, b = MARKER_PALETTE[index % len(MARKER_PALETTE)]
     return ColorRGBA(r=r, g=g, b=b, a=alpha)
 
 
