@@ -16,6 +16,7 @@ from typing import Any
 
 from coverage_fleet.errors import ConfigError
 from coverage_fleet.fleet.batch import run_batch, summarise
+from coverage_fleet.fleet.density_updates import density_in_force
 from coverage_fleet.fleet.mission import DURATION_MAX, SEED_MAX, load_mission_with
 from coverage_fleet.fleet.parallel import (
     WORKERS_MAX,
@@ -155,8 +156,12 @@ def run(args: argparse.Namespace) -> int:
             mission,
             seeds,
             duration=args.duration,
+            # Judged with the density in force at the end (scripted updates included).
             metrics=functools.partial(trial_metrics, region=mission.region,
-                                      density=mission.density, footprints=footprints),
+                                      density=density_in_force(
+                                          mission.density, mission.density_updates,
+                                          args.duration or mission.simulation.duration),
+                                      footprints=footprints),
             on_run=show,
             placement=placement,
         )

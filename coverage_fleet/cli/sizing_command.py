@@ -31,6 +31,7 @@ import numpy as np
 from coverage_fleet.cli.batch_command import add_placement_options, placement_from
 from coverage_fleet.errors import ConfigError
 from coverage_fleet.fleet.batch import run_seed
+from coverage_fleet.fleet.density_updates import density_in_force
 from coverage_fleet.fleet.mission import (
     DURATION_MAX,
     SEED_MAX,
@@ -208,7 +209,10 @@ def run_configuration(mission: Mission, job: tuple[tuple[RobotEntry, ...], int, 
     roster, seed, duration = job
     sized = dataclasses.replace(mission, roster=roster)
     footprints = {entry.name: entry.footprint_radius for entry in roster}
-    metrics = functools.partial(trial_metrics, region=mission.region, density=mission.density,
+    # Judged with the density in force at the end (scripted updates included).
+    final_density = density_in_force(mission.density, mission.density_updates,
+                                     duration or mission.simulation.duration)
+    metrics = functools.partial(trial_metrics, region=mission.region, density=final_density,
                                 footprints=footprints)
     return run_seed(sized, (seed, duration, metrics))
 
