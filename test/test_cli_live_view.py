@@ -188,3 +188,16 @@ def test_bad_watch_options_are_refused_with_every_problem_and_status_2(capsys) -
     assert "--stale-after: must be at least 0.1, got -1" in err
     assert "--period: must be at least 0.05, got 0" in err
     assert "Traceback" not in err
+
+
+def test_plain_lines_print_each_warning_once() -> None:
+    watch = fleet_at_ten_seconds()
+    watch.saw_log("WARN", "reference_gate", "first")
+    first = watch.snapshot(100.5)
+    assert plain_lines(first, logs_since=0)[0] == "log WARN reference_gate: first"
+    watch.saw_log("ERROR", "partition", "second")
+    later = plain_lines(watch.snapshot(100.6), logs_since=first.log_count)
+    assert [line for line in later if line.startswith("log ")] == [
+        "log ERROR partition: second"
+    ]
+    assert not any(line.startswith("log ") for line in plain_lines(watch.snapshot(100.7)))

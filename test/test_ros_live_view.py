@@ -8,8 +8,9 @@ What it must show: a row per robot with live/stale, the fleet's cost and generat
 base station publishes them (checked against this test's own subscriber: the messages on
 the wire are the reference), a robot whose odometry stops turns stale (its newest state
 older than the limit: common practice for watchdogs) while the other stays live, a robot
-that appears in the graph gets a row, the odd message is counted, and Ctrl-C ends the watch
-with status 0 and no traceback.
+that appears in the graph gets a row, the odd message is counted, a node's warning on
+/rosout is printed, the fleet stop shows, and Ctrl-C ends the watch with status 0 and no
+traceback.
 """
 
 from __future__ import annotations
@@ -180,6 +181,14 @@ def test_watch_shows_a_running_graph_and_a_robot_that_falls_silent(graph) -> Non
         "rover_b stale",
     )
     assert robot_line(block, "rover_a").startswith("robot rover_a live")
+    # The partition leaves rover_b out; the gate's warning reaches the watch via /rosout.
+    watch.wait_until(
+        lambda: robots.spin(0.2) or any(
+            line.startswith("log WARN") and "rover_b leaves the gate" in line
+            for line in list(watch.lines)
+        ),
+        "the gate's warning about rover_b",
+    )
 
     # The fleet stop, set through the gate's service, shows at once.
     client = robots.node.create_client(SetBool, topics.FLEET_STOP_SERVICE)

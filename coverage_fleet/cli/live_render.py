@@ -72,8 +72,11 @@ def fleet_summary(snapshot: WatchSnapshot) -> list[str]:
     return lines
 
 
-def log_lines(snapshot: WatchSnapshot) -> list[str]:
-    return [f"{level} {node}: {message}" for level, node, message in snapshot.recent_log]
+def log_lines(snapshot: WatchSnapshot, since: int = 0) -> list[str]:
+    """The newest log lines; with `since` (a log_count seen before) only those heard after."""
+    fresh = min(len(snapshot.recent_log), max(0, snapshot.log_count - since))
+    recent = snapshot.recent_log[len(snapshot.recent_log) - fresh :]
+    return [f"{level} {node}: {message}" for level, node, message in recent]
 
 
 def _short_age(seconds: float | None) -> str:
@@ -118,9 +121,13 @@ def render(snapshot: WatchSnapshot) -> Group:
     return Group(header, table, footer)
 
 
-def plain_lines(snapshot: WatchSnapshot) -> list[str]:
-    """The same figures as plain lines: `fleet ...` then one `robot ...` line each."""
-    lines = ["fleet " + " | ".join(fleet_summary(snapshot))]
+def plain_lines(snapshot: WatchSnapshot, logs_since: int | None = None) -> list[str]:
+    """The same figures as plain lines: `log ...` lines for warnings heard since
+    `logs_since` (None: none), then `fleet ...`, then one `robot ...` line each."""
+    lines = []
+    if logs_since is not None:
+        lines = [f"log {line}" for line in log_lines(snapshot, logs_since)]
+    lines.append("fleet " + " | ".join(fleet_summary(snapshot)))
     for row in snapshot.rows:
         solve_time, solve_status = _solve(row)
         lines.append(

@@ -113,6 +113,8 @@ class WatchSnapshot:
     last_odd: str
     #: (level, node, message) of the newest warnings and errors in the nodes' logs
     recent_log: tuple[tuple[str, str, str], ...] = ()
+    #: how many such lines were heard in all (the newest are `recent_log`)
+    log_count: int = 0
 
     @property
     def live_count(self) -> int:
@@ -150,6 +152,7 @@ class FleetWatch:
     _costs: deque = field(default_factory=deque)
     _other_health: dict[str, tuple[int, str]] = field(default_factory=dict)
     _log: deque = field(default_factory=lambda: deque(maxlen=RECENT_LOG_LINES))
+    _log_count: int = 0
 
     # --- robots -----------------------------------------------------------------------
 
@@ -263,6 +266,7 @@ class FleetWatch:
     def saw_log(self, level: str, node: str, message: str) -> None:
         """A warning or error from a node's log (/rosout)."""
         self._log.append((str(level), str(node), str(message)))
+        self._log_count += 1
 
     # --- the snapshot -----------------------------------------------------------------
 
@@ -336,4 +340,5 @@ class FleetWatch:
             odd_messages=self.odd_messages,
             last_odd=self.last_odd,
             recent_log=tuple(self._log),
+            log_count=self._log_count,
         )

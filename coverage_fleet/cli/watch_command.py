@@ -74,9 +74,15 @@ class WatchDisplay:
     """Shows snapshots: redrawn in place in a terminal (rich Live), else plain lines at most
     every `period` seconds. Anything printed meanwhile appears above the live view."""
 
-    def __init__(self, stream: TextIO, plain: bool, period: float | None = None) -> None:
+    def __init__(
+        self, stream: TextIO, plain: bool, period: float | None = None, show_log: bool = True
+    ) -> None:
         self.stream = stream
         self.plain = plain
+        #: plain mode: print each warning from the nodes' logs once (the launcher relays
+        #: them itself and passes False)
+        self.show_log = show_log
+        self._logs_shown = 0
         self.period = period if period is not None else PLAIN_PERIOD if plain else TERMINAL_PERIOD
         self._next = 0.0
         self._live = None
@@ -101,7 +107,9 @@ class WatchDisplay:
         if self._live is not None:
             self._live.update(render(snapshot), refresh=True)
         else:
-            self.stream.write("\n".join(plain_lines(snapshot)) + "\n")
+            since = self._logs_shown if self.show_log else None
+            self._logs_shown = snapshot.log_count
+            self.stream.write("\n".join(plain_lines(snapshot, since)) + "\n")
             self.stream.flush()
 
     def close(self) -> None:
@@ -127,7 +135,7 @@ class LiveView:
 
         self.watch = FleetWatch(stale_after=stale_after)
         self.listener = LiveListener(self.watch, robots, on_log=on_log)
-        self.display = WatchDisplay(stream, plain, period)
+        self.display = WatchDisplay(stream, plain, period, show_log=on_log is None)
 
     def wait(self, seconds: float) -> None:
         self.listener.spin(seconds)
