@@ -17,9 +17,9 @@ import pytest
 
 from coverage_fleet.control.gate import GateSettings, ProgressReport, ReferenceGate
 from coverage_fleet.control.progress import ProgressTracker, judge
+from coverage_fleet.fleet.controllers import sampled_controller
 from coverage_fleet.fleet.mission import load_mission
 from coverage_fleet.fleet.plants import initial_state
-from coverage_fleet.fleet.step import sampled_controller
 
 MISSIONS = Path(__file__).resolve().parents[1] / "config" / "missions"
 

@@ -11,12 +11,17 @@ from pathlib import Path
 from typing import Any, TextIO
 
 from coverage_fleet.errors import ConfigError
+from coverage_fleet.fleet.controller_pool import (
+    ROBOTS_PER_WORKER_MIN,
+    default_simulation_workers,
+)
 from coverage_fleet.fleet.mission import (
     DURATION_MAX,
     SEED_MAX,
     Mission,
     load_mission_with,
 )
+from coverage_fleet.fleet.parallel import WORKERS_MAX, default_workers
 from coverage_fleet.fleet.simulation import StepInfo, simulate_mission
 from coverage_fleet.fleet.trial import TrialLog
 from coverage_fleet.inputs.fields import Collector, integer_fault, number_fault
@@ -79,6 +84,10 @@ class ProgressBar:
         self.stream.flush()
 
 
+def placement_text(workers: int) -> str:
+    return "this process" if workers == 1 else f"{workers} worker processes"
+
+
 def default_trial_directory(mission: Mission, seed: int) -> Path:
     stamp = datetime.now(UTC).strftime("%Y%m%dT%H%M%SZ")
     return Path("trials") / f"{mission.name}-seed{seed}-{stamp}"
@@ -95,11 +104,14 @@ def simulate_to_trial(
     seed: int | None = None,
     duration: float | None = None,
     progress: ProgressBar | None = None,
+    workers: int = 1,
 ) -> tuple[Path, TrialLog, dict[str, Any]]:
-    """Simulate the mission and write its trial directory; returns (path, log, metrics)."""
+    """Simulate the mission and write its trial directory; returns (path, log, metrics).
+    workers > 1: the controllers run on that many worker processes (same log)."""
     check_output_free(out)
     with interrupts_at_safe_points():
-        log = simulate_mission(mission, seed=seed, duration=duration, on_step=progress)
+        log = simulate_mission(mission, seed=seed, duration=duration, on_step=progress,
+                               workers=workers)
     path, metrics = write_mission_trial(out, mission, log)
     return path, log, metrics
 
@@ -152,6 +164,11 @@ def register(subparsers: argparse._SubParsersAction) -> None:
     )
     parser.add_argument("--seed", type=int, help="noise seed (default: the mission's)")
     parser.add_argument("--duration", type=float, help="simulated seconds (default: the mission's)")
+    parser.add_argument(
+        "--workers", type=int,
+        help="worker processes for the robots' controllers (default: one per core, here "
+             f"{default_workers()}, when each gets at least {ROBOTS_PER_WORKER_MIN} robots; "
+             "1 runs everything in this process); the result is the same either way")
     parser.set_defaults(handler=run)
 
 
@@ -164,7 +181,11 @@ def run(args: argparse.Namespace) -> int:
         options.check("--seed", integer_fault(args.seed, 0, SEED_MAX))
     if args.out is not None:
         options.check("--out", output_fault(args.out))
+    if args.workers is not None:
+        options.check("--workers", integer_fault(args.workers, 1, WORKERS_MAX))
     mission = load_mission_with(args.mission, options)
+    workers = (args.workers if args.workers is not None
+               else default_simulation_workers(len(mission.roster)))
     seed = mission.simulation.seed if args.seed is None else args.seed
     out = args.out or default_trial_directory(mission, seed)
     check_output_location(out, "--out")
@@ -175,8 +196,9 @@ def run(args: argparse.Namespace) -> int:
             "simulated too; this is an offline run",
             file=sys.stderr,
         )
+    print(f"simulate: controllers on {placement_text(workers)}", file=sys.stderr)
     progress = ProgressBar("simulate")
-    path, _, metrics = simulate_to_trial(mission, out, seed, args.duration, progress)
+    path, _, metrics = simulate_to_trial(mission, out, seed, args.duration, progress, workers)
     progress.finish("done")
     for line in summary_lines(metrics):
         print(line)

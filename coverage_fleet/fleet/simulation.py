@@ -18,9 +18,10 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from coverage_fleet.fleet.controller_pool import ControllerPool
 from coverage_fleet.fleet.mission import Mission, simulation_step
 from coverage_fleet.fleet.plants import Pose
-from coverage_fleet.fleet.step import FleetStep
+from coverage_fleet.fleet.step import FleetStep, StageTimes
 from coverage_fleet.fleet.trial import TrialLog
 from coverage_fleet.fleet.trial_records import SettlingRecord, TrialAssembler
 from coverage_fleet.interrupts import raise_if_interrupted
@@ -44,6 +45,8 @@ def simulate_mission(
     initial_poses: Mapping[str, Pose | OdometryValues] | None = None,
     on_step: Callable[[StepInfo], None] | None = None,
     stop_at_rest: bool = True,
+    workers: int = 1,
+    stage_times: StageTimes | None = None,
 ) -> TrialLog:
     """Run the mission offline in closed loop; returns the trial log.
 
@@ -52,22 +55,51 @@ def simulate_mission(
     roster's poses at rest. With stop_at_rest=False the run goes on for the whole duration
     (as the ROS graph does); settled_time and stuck_time are then the first times the
     settle monitor reported the fleet settled or stuck.
+
+    workers > 1 runs the controllers on that many worker processes
+    (fleet/controller_pool.py; the log is the same but for the measured solve times);
+    1 keeps everything in this process. `stage_times`, if given, receives the wall time per
+    stage (fleet/step.StageTimes).
     """
     settings = mission.simulation
     seed = settings.seed if seed is None else int(seed)
     duration = settings.duration if duration is None else float(duration)
     step = simulation_step(mission.roster, settings)
-    fleet = FleetStep(mission, step, seed, initial_poses)
+    pool = ControllerPool(mission, step, workers) if workers > 1 else None
+    try:
+        return _run(mission, seed, duration, step, initial_poses, on_step, stop_at_rest,
+                    pool, stage_times)
+    finally:
+        if pool is not None:
+            pool.close()
+
+
+def _run(
+    mission: Mission,
+    seed: int,
+    duration: float,
+    step: float,
+    initial_poses: Mapping[str, Pose | OdometryValues] | None,
+    on_step: Callable[[StepInfo], None] | None,
+    stop_at_rest: bool,
+    pool: ControllerPool | None,
+    stage_times: StageTimes | None,
+) -> TrialLog:
+    fleet = FleetStep(mission, step, seed, initial_poses, controllers=pool)
+    if stage_times is not None:
+        fleet.times = stage_times
     assembler = TrialAssembler(mission, seed)
     started = wallclock.perf_counter()
     ticks = int(np.floor(duration / step + 1e-9))
 
     for tick in range(ticks + 1):
         outcome = fleet.tick()
+        logging = wallclock.perf_counter()
         for record in outcome.records:
             assembler.add(record)
         if outcome.settling != "moving":
             assembler.add(SettlingRecord(outcome.settling))
+        fleet.times.logging += wallclock.perf_counter() - logging
         raise_if_interrupted()
         if on_step is not None:
             on_step(StepInfo(outcome.time, duration, outcome.candidates.cost, fleet.generation))
@@ -77,6 +109,9 @@ def simulate_mission(
         if tick < ticks:
             fleet.advance()
 
-    return assembler.finish(
-        wall_time=wallclock.perf_counter() - started, duration=duration, step=step
+    finishing = wallclock.perf_counter()
+    log = assembler.finish(
+        wall_time=finishing - started, duration=duration, step=step
     )
+    fleet.times.logging += wallclock.perf_counter() - finishing
+    return log

@@ -25,16 +25,16 @@ from __future__ import annotations
 
 from collections.abc import Mapping
 from dataclasses import dataclass
+from time import perf_counter
+from typing import ClassVar
 
 import numpy as np
 
-from coverage_fleet.control.controller import RobotController
 from coverage_fleet.control.gate import GateOpening
-from coverage_fleet.control.sampling import SampledController
-from coverage_fleet.control.terminal import terminal_for_vehicle
+from coverage_fleet.fleet.controllers import FleetControllers, LocalControllers
 from coverage_fleet.fleet.coordination import Candidates, GateKeeper, candidates_at
 from coverage_fleet.fleet.density_updates import DensitySource
-from coverage_fleet.fleet.mission import Mission, RobotEntry
+from coverage_fleet.fleet.mission import Mission
 from coverage_fleet.fleet.plants import FleetPlants, NoiseLevels, Pose
 from coverage_fleet.fleet.settling import SettleMonitor, SettleStatus
 from coverage_fleet.fleet.trial_records import (
@@ -51,20 +51,28 @@ from coverage_fleet.fleet.trial_records import (
 from coverage_fleet.vehicles.base import OdometryValues
 
 
-def sampled_controller(
-    entry: RobotEntry, mission: Mission, sample_tolerance: float
-) -> SampledController:
-    """The robot's tracking MPC with failure fallback, sampled at its vehicle's sample time."""
-    spec = entry.vehicle
-    terminal, _ = terminal_for_vehicle(spec)
-    controller = RobotController(spec.model, spec.mpc, mission.region.halfspaces(), terminal)
-    return SampledController(
-        controller,
-        spec.mpc.sample_time,
-        sample_tolerance,
-        mission.gate.noise_tolerance,
-        mission.gate.progress_tolerance,
-    )
+@dataclass
+class StageTimes:
+    """Wall time spent per stage of the tick loop (seconds, perf_counter), and counts: plain
+    counters the benchmark reads. `plants` covers measuring and advancing the plants;
+    `gate` the gate offer, target commits and the settle monitor; `solves` the controllers'
+    answers (wherever they run, waiting included); `logging` building the trial records
+    and handing them to the trial assembler."""
+
+    partition: float = 0.0
+    gate: float = 0.0
+    solves: float = 0.0
+    plants: float = 0.0
+    logging: float = 0.0
+    ticks: int = 0
+    robot_steps: int = 0
+    solves_run: int = 0
+
+    STAGES: ClassVar[tuple[str, ...]] = ("partition", "gate", "solves", "plants", "logging")
+
+    @property
+    def total(self) -> float:
+        return sum(getattr(self, stage) for stage in self.STAGES)
 
 
 @dataclass(frozen=True)
@@ -80,7 +88,11 @@ class Tick:
 
 
 class FleetStep:
-    """The offline fleet: plants, base station and one sampled controller per robot."""
+    """The offline fleet: plants, base station and one sampled controller per robot.
+
+    `controllers` default to all in this process (`LocalControllers`); pass a
+    `controller_pool.ControllerPool` to run them on worker processes (same answers).
+    The caller closes what it passed in. Time per stage accumulates in `times`."""
 
     def __init__(
         self,
@@ -88,6 +100,7 @@ class FleetStep:
         step: float,
         seed: int,
         starts: Mapping[str, Pose | OdometryValues] | None = None,
+        controllers: FleetControllers | None = None,
     ) -> None:
         self.mission = mission
         self.names = list(mission.robot_names)
@@ -103,12 +116,10 @@ class FleetStep:
         self.keeper = GateKeeper(mission.gate)
         self.densities = DensitySource(mission.density, mission.density_updates)
         self.monitor = SettleMonitor(mission.settle)
-        # Ticks are exact multiples of the step: half a tick of tolerance makes "a sample is
-        # due" the same as counting ticks.
-        self.controllers = {
-            e.name: sampled_controller(e, mission, sample_tolerance=step / 2)
-            for e in mission.roster
-        }
+        self.controllers = (
+            LocalControllers(mission, step) if controllers is None else controllers
+        )
+        self.times = StageTimes()
         # Until the first answers the plants hold the rest input (its speed is the robot's).
         self._inputs: dict[str, np.ndarray] = {
             e.name: np.clip(np.zeros(e.vehicle.model.nu), *e.vehicle.model.input_bounds())
@@ -125,6 +136,8 @@ class FleetStep:
 
     def tick(self) -> Tick:
         """Steps 1-4 at the current time; `advance` then does step 5."""
+        times = self.times
+        started = perf_counter()
         t = self.plants.time
         records: list[TrialRecord] = []
         measured = self.plants.measure()
@@ -132,9 +145,13 @@ class FleetStep:
             n: self.mission.roster[k].vehicle.model.position(measured[n])
             for k, n in enumerate(self.names)
         }
+        partitioned = perf_counter()
+        times.plants += partitioned - started
         self.densities.apply_due(t)
         candidates, _ = candidates_at(positions, t, self.mission.region, self.densities.density,
                                       self.densities.version)
+        gated = perf_counter()
+        times.partition += gated - partitioned
         decision = self.keeper.offer(candidates)
         opening = decision.opening
         if opening is not None:
@@ -142,8 +159,8 @@ class FleetStep:
             for name, target in opening.targets.items():
                 # Offline the target arrives at once (the robot acknowledges it), and the
                 # robot's distance at commit is the gate's.
-                self.controllers[name].set_target(
-                    opening.generation, target, opening.distances[name]
+                self.controllers.set_target(
+                    name, opening.generation, target, opening.distances[name]
                 )
                 self.keeper.acknowledge(name, opening.generation)
                 records.append(TargetRecord(name, target))
@@ -152,11 +169,17 @@ class FleetStep:
         settling = self.monitor.update(
             t, positions, speeds, candidates.centroids, gate_shut=opening is None
         )
+        solving = perf_counter()
+        times.gate += solving - gated
+
+        answers = self.controllers.answer_all(measured, t)
+        logging = perf_counter()
+        times.solves += logging - solving
 
         inputs: dict[str, np.ndarray] = {}
         for name in self.names:
             records.append(StateRecord(name, t, self.plants.states[name]))
-            answer = self.controllers[name].answer(measured[name], t)
+            answer = answers[name]
             inputs[name] = answer.input
             records.append(CommandRecord(name, answer.input))
             progress = answer.progress
@@ -170,6 +193,7 @@ class FleetStep:
             )
             if answer.step is not None:
                 step = answer.step
+                times.solves_run += 1
                 records.append(
                     SolveRecord(
                         name, t, float(step.solve_time), str(step.status), bool(step.success),
@@ -178,6 +202,9 @@ class FleetStep:
                 )
         records.append(CandidatesRecord(t, candidates.cost, candidates.positions))
         self._inputs = inputs
+        times.ticks += 1
+        times.robot_steps += len(self.names)
+        times.logging += perf_counter() - logging
         return Tick(t, candidates, opening, settling, records)
 
     def _planar_speed(self, name: str, x: np.ndarray) -> float:
@@ -189,4 +216,6 @@ class FleetStep:
 
     def advance(self) -> None:
         """Step 5: every plant advances by one step under the inputs of the last tick."""
+        started = perf_counter()
         self.plants.advance(self._inputs)
+        self.times.plants += perf_counter() - started

@@ -231,6 +231,26 @@ def write_log(directory: Path, log: TrialLog) -> None:
     )
 
 
+#: Log columns measured on the wall clock: they differ between two runs of the same
+#: mission and seed, everything else agrees bit for bit.
+WALL_CLOCK_COLUMNS = ("solve_time",)
+
+
+def log_texts_without_wall_clock(log: TrialLog) -> dict[str, str]:
+    """The CSV files of `log` (as `write_log` writes them) by relative path, without the
+    wall-clock columns: what two runs of the same mission and seed are compared by."""
+    with tempfile.TemporaryDirectory() as folder:
+        write_log(Path(folder), log)
+        texts = {}
+        for path in sorted(Path(folder).rglob("*.csv")):
+            with path.open(newline="") as handle:
+                rows = list(csv.reader(handle))
+            dropped = [k for k, title in enumerate(rows[0]) if title in WALL_CLOCK_COLUMNS]
+            kept = [[v for k, v in enumerate(row) if k not in dropped] for row in rows]
+            texts[str(path.relative_to(folder))] = "\n".join(",".join(r) for r in kept)
+    return texts
+
+
 def write_trial(
     directory: str | Path,
     mission_as_run: dict[str, Any],

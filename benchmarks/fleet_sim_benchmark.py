@@ -1,0 +1,167 @@
+"""Offline fleet simulation at scale: real-time factor, time per stage and cost per
+robot-step for mixed fleets of 4, 16, 64 and 256 robots, controllers in this process
+(baseline) against controllers on worker processes, in the same run.
+
+Scenario (invented, not a real site): a hexagonal reservoir-shore survey area whose size
+grows with the fleet (about 150 m^2 per robot), a raster of invented inspection priority
+(a shoreline band plus two inlets; 1 m cells), and a fleet that cycles through the four
+shipped vehicle types (differential-drive rover, car-like utility vehicle, multirotor,
+surface vessel) and starts packed in a grid in the south-west corner, so that every robot
+has far to go and its MPC works for the whole run. The run does not stop when the fleet
+settles (it would not within these durations anyway).
+
+For each fleet size the same mission, seed and duration run twice, alternating:
+- baseline: every controller in this process (`--workers 1` of `coverage-fleet simulate`);
+- method:   controllers on N worker processes (fleet/controller_pool.py; default N = cores).
+Printed per run: simulated seconds, wall seconds of the tick loop, real-time factor
+(simulated / wall), wall time per robot-step (one robot for one tick: its share of
+partition, gate, solve, plant and logging), share of the tick loop per stage (plain
+counters in fleet/step.StageTimes), and the worker start-up time (spawn, imports,
+building the controllers; paid once per run, outside the tick loop). Then the ratios
+method/baseline, how the cost per robot-step grows with the fleet (slope of log cost
+against log robots between sizes: 0 is flat, 1 is linear), and whether the two logs are
+identical (every logged value but the measured solve times).
+
+Targets (issue 13): at least 10x faster than real time for 16 mixed robots on a 2-core
+machine; cost per robot-step flat as the fleet grows.
+
+Durations are short for large fleets so that the whole script takes a few minutes;
+`--quick` runs 4, 16 and 64 robots for even shorter durations (a check that it works).
+The machine may be shared: the load average is printed at the start and the end.
+Run: .venv/bin/python benchmarks/fleet_sim_benchmark.py [--quick] [--workers N]
+     [--sizes 4,16]
+"""
+
+from __future__ import annotations
+
+import argparse
+import itertools
+import math
+import os
+import tempfile
+import time
+from pathlib import Path
+
+import numpy as np
+
+from coverage_fleet.fleet.mission import Mission, mission_from_mapping
+from coverage_fleet.fleet.parallel import default_workers
+from coverage_fleet.fleet.simulation import simulate_mission
+from coverage_fleet.fleet.step import StageTimes
+from coverage_fleet.fleet.trial import TrialLog, log_texts_without_wall_clock
+
+VEHICLES = ("differential_drive", "car_like", "multirotor", "surface_vessel")
+#: Simulated seconds per fleet size (full run, quick run).
+DURATIONS = {4: (20.0, 5.0), 16: (20.0, 5.0), 64: (5.0, 1.0), 256: (1.5, None)}
+AREA_PER_ROBOT = 150.0  # m^2
+GRID_SPACING = 3.0  # m between starting positions (larger than two footprints)
+RESOLUTION = 1.0  # m per raster cell
+SEED = 3
+
+
+def survey_mission(robots: int, duration: float, directory: Path) -> Mission:
+    """The invented survey mission for `robots` robots (see the module docstring)."""
+    radius = math.sqrt(AREA_PER_ROBOT * robots / (1.5 * math.sqrt(3.0)))
+    angles = np.arange(6) * np.pi / 3
+    vertices = [[radius * (1 + math.cos(a)), radius * (1 + math.sin(a))] for a in angles]
+    cells = math.ceil(2 * radius / RESOLUTION) + 1
+    centres = (np.arange(cells) + 0.5) * RESOLUTION
+    x, y = np.meshgrid(centres, centres[::-1])  # north row first
+    shore = np.exp(-(((x - radius) ** 2 + (y - radius) ** 2) ** 0.5 - 0.7 * radius) ** 2
+                   / (0.02 * radius**2))
+    inlets = (np.exp(-((x - 1.5 * radius) ** 2 + (y - 1.4 * radius) ** 2) / (0.03 * radius**2))
+              + np.exp(-((x - 0.6 * radius) ** 2 + (y - 1.5 * radius) ** 2)
+                       / (0.05 * radius**2)))
+    values = 0.2 + shore + 2.0 * inlets
+    columns = math.ceil(math.sqrt(robots))
+    start_x = radius * 0.55
+    start_y = radius * (1 - math.sin(np.pi / 3)) + 2.0
+    roster = []
+    for k in range(robots):
+        row, column = divmod(k, columns)
+        roster.append({
+            "name": f"robot_{k:03d}",
+            "vehicle": VEHICLES[k % len(VEHICLES)],
+            "initial_pose": [start_x + GRID_SPACING * column, start_y + GRID_SPACING * row,
+                             0.0],
+        })
+    raw = {
+        "name": f"survey_{robots}",
+        "description": "Invented reservoir-shore survey area (benchmark scenario).",
+        "region": {"vertices": vertices},
+        "density": {"kind": "raster", "values": values.tolist(), "origin": [0.0, 0.0],
+                    "resolution": RESOLUTION},
+        "roster": roster,
+        "gate": {"noise_tolerance": 0.02, "progress_tolerance": 0.05},
+        "settle": {"distance": 0.2, "speed": 0.05, "dwell": 2.0, "stuck_timeout": 30.0},
+        "simulation": {"duration": duration, "seed": SEED, "plant_substeps": 8},
+    }
+    return mission_from_mapping(raw, directory / f"survey_{robots}.yaml")
+
+
+def run_once(mission: Mission, workers: int) -> tuple[TrialLog, StageTimes, float]:
+    times = StageTimes()
+    started = time.perf_counter()
+    log = simulate_mission(mission, stop_at_rest=False, workers=workers, stage_times=times)
+    setup = time.perf_counter() - started - log.wall_time
+    return log, times, setup
+
+
+def describe(label: str, log: TrialLog, times: StageTimes, setup: float) -> str:
+    simulated = log.duration
+    per_step = log.wall_time / max(1, times.robot_steps)
+    shares = "  ".join(f"{getattr(times, s) / times.total:6.1%}" for s in StageTimes.STAGES)
+    return (f"  {label:<10} {simulated:6.1f} s sim  {log.wall_time:7.2f} s wall  "
+            f"RTF {simulated / log.wall_time:6.2f}x  {per_step * 1e3:7.3f} ms/robot-step  "
+            f"{shares}  setup {setup:5.1f} s")
+
+
+def load_text() -> str:
+    one, five, fifteen = os.getloadavg()
+    return f"load average {one:.2f} {five:.2f} {fifteen:.2f} on {os.cpu_count()} cores"
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser(description=__doc__.split("\n")[0])
+    parser.add_argument("--quick", action="store_true", help="4, 16, 64 robots, short runs")
+    parser.add_argument("--workers", type=int, default=default_workers(),
+                        help="worker processes of the method (default: one per core)")
+    parser.add_argument("--sizes", help="fleet sizes, comma-separated (default: all)")
+    args = parser.parse_args()
+    if args.workers < 2:
+        parser.error("--workers must be at least 2 (1 is the baseline)")
+    column = 1 if args.quick else 0
+    sizes = [n for n in DURATIONS if DURATIONS[n][column] is not None]
+    if args.sizes:
+        sizes = [int(text) for text in args.sizes.split(",")]
+    print(f"fleet simulation benchmark, {load_text()}")
+    print(f"  {'':<10} {'':>6}        {'':>7}        {'':>10}  {'':>7}              "
+          + "  ".join(f"{s:>6}" for s in StageTimes.STAGES))
+    results = {}
+    with tempfile.TemporaryDirectory() as folder:
+        for robots in sizes:
+            duration = DURATIONS.get(robots, (5.0, 1.0))[column] or 1.0
+            mission = survey_mission(robots, duration, Path(folder))
+            print(f"{robots} robots ({', '.join(VEHICLES)} in turn), {duration:g} s simulated")
+            serial = run_once(mission, 1)
+            print(describe("1 process", *serial))
+            parallel = run_once(mission, args.workers)
+            print(describe(f"{args.workers} workers", *parallel))
+            same = (log_texts_without_wall_clock(serial[0])
+                    == log_texts_without_wall_clock(parallel[0]))
+            ratio = serial[0].wall_time / parallel[0].wall_time
+            print(f"  tick loop {ratio:.2f}x faster on {args.workers} workers; logs "
+                  f"{'identical' if same else 'DIFFERENT'} (solve times aside)")
+            results[robots] = (serial, parallel)
+    print("cost per robot-step as the fleet grows (slope of log cost / log robots; 0 = flat):")
+    for label, pick in (("1 process", 0), (f"{args.workers} workers", 1)):
+        costs = [(n, results[n][pick][0].wall_time / results[n][pick][1].robot_steps)
+                 for n in results]
+        slopes = [f"{a}->{b}: {math.log(cb / ca) / math.log(b / a):+.2f}"
+                  for (a, ca), (b, cb) in itertools.pairwise(costs)]
+        print(f"  {label:<10} " + "  ".join(slopes))
+    print(f"done, {load_text()}")
+
+
+if __name__ == "__main__":
+    main()
