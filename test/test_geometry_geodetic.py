@@ -18,6 +18,7 @@ import numpy as np
 import pytest
 import yaml
 
+from coverage_fleet.cli.main import main
 from coverage_fleet.errors import ConfigError
 from coverage_fleet.fleet.mission import load_mission, mission_as_run, mission_from_mapping
 from coverage_fleet.fleet.simulation import simulate_mission
@@ -164,3 +165,23 @@ def test_geodetic_demo_mission_settles_offline(tmp_path: Path) -> None:
     final = np.array([robot.positions()[-1] for robot in log.robots.values()])
     assert mission.region.contains(final, tol=1e-6).all()
     assert yaml.safe_dump(mission_as_run(mission, 0, 1.0))  # writable as run
+
+
+def test_bad_geojson_file_exits_2_naming_file_and_key(tmp_path: Path, capsys) -> None:
+    """Through the command line: a hole in the GeoJSON file is named by that file and its
+    key; the raster placed by longitude/latitude adds no follow-on complaint."""
+    (tmp_path / "field.geojson").write_text(json.dumps({"type": "Feature", "geometry": polygon(
+        FIELD, holes=[[[-71.02, 42.355], [-71.01, 42.355], [-71.01, 42.36],
+                       [-71.02, 42.355]]])}))
+    density = {"kind": "raster", "origin_lonlat": FIELD[0], "resolution": 500.0,
+               "values": [[1.0] * 6] * 5}
+    mission = tmp_path / "m.yaml"
+    mission.write_text(yaml.safe_dump(
+        geodetic_mission(tmp_path, "field.geojson", density=density)))
+    assert main(["simulate", str(mission), "--out", str(tmp_path / "trial")]) == 2
+    err = capsys.readouterr().err
+    problems = [line.strip() for line in err.splitlines() if line.startswith("  ")]
+    assert problems == [f"{tmp_path / 'field.geojson'}: geometry.coordinates: the polygon "
+                        "has 1 hole(s); holes (keep-out zones) are not supported yet: give "
+                        "the outer ring only"], err
+    assert "Traceback" not in err

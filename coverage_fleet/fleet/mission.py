@@ -269,16 +269,22 @@ def mission_from_mapping(raw: Any, path: Path) -> Mission:
 
     region, frame = (_load_region(top.raw("region"), base_dir, out) if top.has("region")
                      else (None, None))
+    geodetic = isinstance(raw.get("region"), Mapping) and "geojson" in raw["region"]
+    # A geodetic region that failed has no frame; a stand-in lets the densities' own
+    # checks run (the mission is refused anyway) instead of a misleading "needs a region
+    # given in longitude/latitude" on top of the region's problem.
+    density_frame = frame if frame is not None or not geodetic else LocalFrame(0.0, 0.0)
     density = None
     if top.has("density"):
         try:
             density = density_from_config(
                 top.raw("density"), source, base_dir, region=region, key="density",
-                frame=frame,
+                frame=density_frame,
             )
         except ConfigError as error:
             out.extend(error)
-    updates = (_load_density_updates(top.raw("density_updates"), base_dir, region, frame, out)
+    updates = (_load_density_updates(top.raw("density_updates"), base_dir, region,
+                                     density_frame, out)
                if top.has("density_updates") else [])
     gate = _read_gate(out.fields(top.raw("gate"), "gate", optional=True))
     settle = _read_settle(out.fields(top.raw("settle"), "settle", optional=True))
