@@ -1,4 +1,5 @@
-"""`coverage-fleet stop | resume`: the fleet-wide software stop of a running fleet.
+"""`coverage-fleet stop | resume`: the fleet-wide software stop of a running fleet;
+`coverage-fleet arm`: let the controllers of real robots command them (ros/arming.py).
 
 The command joins the running graph as a short-lived node with the launcher's network
 settings (ROS_AUTOMATIC_DISCOVERY_RANGE=LOCALHOST unless set; the ROS_DOMAIN_ID the launch
@@ -13,6 +14,7 @@ from __future__ import annotations
 import argparse
 import os
 import sys
+from pathlib import Path
 
 from coverage_fleet.inputs.fields import Collector, integer_fault, number_fault
 
@@ -38,6 +40,19 @@ def register(subparsers: argparse._SubParsersAction) -> None:
         )
         add_graph_options(parser)
         parser.set_defaults(handler=run_stop, stopped=stopped)
+    parser = subparsers.add_parser(
+        "arm", help="let the controllers of a running fleet's real robots command them",
+        description="Controllers of robots the roster marks real start disarmed (they send "
+        "nothing); this arms them (lifecycle configure if needed, then activate). Robots "
+        "the roster marks simulated arm themselves.",
+    )
+    parser.add_argument("mission", type=Path, help="mission file of the running fleet")
+    parser.add_argument(
+        "--robot", action="append", default=[], metavar="NAME",
+        help="arm only this robot (repeatable; default: every robot marked real)",
+    )
+    add_graph_options(parser)
+    parser.set_defaults(handler=run_arm)
 
 
 def add_graph_options(parser: argparse.ArgumentParser) -> None:
@@ -108,4 +123,40 @@ def run_stop(args: argparse.Namespace) -> int:
         print(f"{verb}: release with `coverage-fleet resume --domain-id {domain}`")
     else:
         print(STOP_CAUTION)
+    return 0
+
+
+def run_arm(args: argparse.Namespace) -> int:
+    from coverage_fleet.fleet.mission import load_mission_with
+    from coverage_fleet.ros.arming import arm_controllers
+
+    from .graph import controller_node_spec
+    from .launcher import SAFETY_CAUTION
+
+    options = Collector("command line")
+    options.check("--wait", number_fault(args.wait, minimum=0.0, exclusive_minimum=True,
+                                         maximum=WAIT_MAX))
+    domain = graph_domain(args.domain_id, options)
+    mission = load_mission_with(args.mission, options)
+    unknown = sorted(set(args.robot) - set(mission.robot_names))
+    if unknown:
+        options.add("--robot", f"not in the roster: {', '.join(unknown)}")
+    options.raise_if_any()
+    join_domain(domain)
+    robots = args.robot or [e.name for e in mission.roster if not e.simulated]
+    if not robots:
+        print("arm: the roster marks no robot real; simulated robots arm themselves")
+        return 0
+    print(SAFETY_CAUTION)
+    paths = {}
+    for robot in robots:
+        spec = controller_node_spec(mission.source, robot)
+        paths[robot] = f"{spec.namespace.rstrip('/')}/{spec.name}"
+    outcomes = arm_controllers(paths, args.wait)
+    for robot, outcome in outcomes.items():
+        print(f"arm: {robot}: {outcome}")
+    if any(o.startswith("NOT") for o in outcomes.values()):
+        return EXIT_NOT_REACHED
+    print(f"arm: stop every robot with `coverage-fleet stop --domain-id {domain}`; it does "
+          "not replace the robots' own emergency stops")
     return 0

@@ -33,6 +33,7 @@ if TYPE_CHECKING:
 
 EXIT_NODE_DIED = 1
 EXIT_INTERRUPTED = 130
+EXIT_NOT_CONFIRMED = 1
 #: Simulator exit status 0 means its run is over (duration reached, fleet settled or stuck).
 SIMULATOR_ROLE = "simulator"
 #: Seconds between plain status blocks when the launcher's output is not a terminal.
@@ -80,6 +81,12 @@ def register(subparsers: argparse._SubParsersAction) -> None:
     parser.add_argument(
         "--no-record", action="store_true", help="do not record a trial (just run the graph)"
     )
+    parser.add_argument(
+        "--confirm-real-robots", action="store_true",
+        help="start controllers of robots marked real without asking (they start disarmed "
+             "all the same: `coverage-fleet arm`); required when no one can answer, e.g. "
+             "stdin is not a terminal",
+    )
     parser.set_defaults(handler=run)
 
 
@@ -96,6 +103,29 @@ def _overrides(items: list[str], options: Collector) -> dict[str, Path]:
         else:
             found[robot] = Path(path)
     return found
+
+
+def confirm_real_robots(mission: Mission, only: list[str], confirmed: bool) -> bool:
+    """Controllers of real robots are about to start: ask the person at the terminal (they
+    start disarmed, but arming is then one command away). Refused up front when nobody can
+    answer and --confirm-real-robots is not given."""
+    real = [e.name for e in mission.roster if not e.simulated and (not only or e.name in only)]
+    if not real or confirmed:
+        return True
+    if not sys.stdin.isatty():
+        raise ConfigError.single(
+            "command line", "--confirm-real-robots",
+            f"is required: the roster has real robots ({', '.join(real)}) and stdin is not a "
+            "terminal, so nobody can confirm",
+        )
+    print(SAFETY_CAUTION)
+    print(
+        f"launch: real robots: {', '.join(real)}. Their controllers start DISARMED; "
+        "`coverage-fleet arm` lets them move. Check that the area is clear, the emergency "
+        "stops work and a qualified operator supervises."
+    )
+    answer = input("launch: start the graph? Type 'yes' to go on: ")
+    return answer.strip().lower() == "yes"
 
 
 def _start_recorder(mission_file: Path):
@@ -149,6 +179,9 @@ def run(args: argparse.Namespace) -> int:
         options.extend(error)
         options.raise_if_any()
     mission = with_vehicle_overrides(mission, overrides, options)
+    if not confirm_real_robots(mission, args.only, args.confirm_real_robots):
+        print("launch: not started")
+        return EXIT_NOT_CONFIRMED
     result = run_graph(
         mission,
         args.sim_mode if args.headless_sim else None,

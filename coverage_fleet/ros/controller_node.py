@@ -20,6 +20,15 @@ rule, the held input and the progress bookkeeping are the core's SampledControll
 Fleet stop (fleet_stop.py): when the stop arrives the node sends the braking input at once,
 and while stopped every command it sends is the braking input (it still answers each state
 with a progress report, so a lockstep simulator keeps its pace); on release it tracks again.
+
+Arming: the node is a lifecycle node (ROS 2 managed nodes: unconfigured -> configure ->
+inactive -> activate -> active). Start-up checks (mission, vehicle) run when the node is
+built; the heavy set-up (terminal ingredients, the MPC) runs in on_configure, which the node
+triggers itself at start. Motion only while active ("armed"): a robot the roster marks
+simulated arms itself; a real robot's controller stays inactive, disarmed, publishing
+nothing at all (no command, no progress report, so the partition leaves the robot out)
+until an explicit `activate` (`coverage-fleet arm`, or any lifecycle client). `deactivate`
+disarms: the braking input once, then silence.
 """
 
 from __future__ import annotations
@@ -31,7 +40,7 @@ import numpy as np
 from diagnostic_msgs.msg import DiagnosticArray, DiagnosticStatus
 from geometry_msgs.msg import PointStamped, Vector3Stamped
 from nav_msgs.msg import Odometry, Path
-from rclpy.node import Node
+from rclpy.lifecycle import LifecycleNode, LifecycleState, TransitionCallbackReturn
 from std_msgs.msg import UInt32
 
 from coverage_fleet.control.controller import RobotController
@@ -61,7 +70,7 @@ from .runtime import main_for
 from .vehicle_parameters import controller_vehicle, declare_vehicle_parameters
 
 
-class ControllerNode(Node):
+class ControllerNode(LifecycleNode):
     def __init__(self) -> None:
         super().__init__("controller")
         mission_file = declare(
@@ -104,20 +113,14 @@ class ControllerNode(Node):
         self.spec = spec
         self.model = spec.model
         self.sample_time = float(spec.mpc.sample_time)
-        started = wallclock.perf_counter()
-        terminal, _ = terminal_for_vehicle(spec)
-        self.controller = SampledController(
-            RobotController(self.model, spec.mpc, mission.region.halfspaces(), terminal),
-            self.sample_time,
-            sample_tolerance,
-            mission.gate.noise_tolerance,
-            mission.gate.progress_tolerance,
-        )
-        self.get_logger().info(
-            f"{self.robot}: {self.model.kind} from {spec.source}, sample time "
-            f"{self.sample_time:g} s, command {spec.command_kind}; MPC ready in "
-            f"{wallclock.perf_counter() - started:.1f} s"
-        )
+        self._mission = mission
+        self._sample_tolerance = sample_tolerance
+        self.simulated = entry.simulated
+        #: Built in on_configure; motion commands only while armed (active).
+        self.controller: SampledController | None = None
+        self.armed = False
+        self._configure_failure: Exception | None = None
+        self._target: tuple[int, np.ndarray] | None = None
         self.state: np.ndarray | None = None
         self.state_time = -np.inf
         self.generation_stamp_ns = 0
@@ -142,18 +145,78 @@ class ControllerNode(Node):
         )
         self.create_timer(self.sample_time, self._watchdog)
         self.create_timer(self.diagnostics_period, self._publish_diagnostics)
+        if self.trigger_configure() != TransitionCallbackReturn.SUCCESS:
+            raise self._configure_failure or RuntimeError("configure failed")
+        if self.simulated:
+            self.trigger_activate()
+        else:
+            self.get_logger().warning(
+                f"{self.robot}: real robot: DISARMED, no commands until armed "
+                "(`coverage-fleet arm`, or the lifecycle transition `activate`)"
+            )
+
+    # --- lifecycle (arming) -------------------------------------------------------------
+
+    def on_configure(self, state: LifecycleState) -> TransitionCallbackReturn:
+        """The heavy set-up: terminal ingredients and the MPC (seconds for some models)."""
+        started = wallclock.perf_counter()
+        try:
+            terminal, _ = terminal_for_vehicle(self.spec)
+            self.controller = SampledController(
+                RobotController(
+                    self.model, self.spec.mpc, self._mission.region.halfspaces(), terminal
+                ),
+                self.sample_time,
+                self._sample_tolerance,
+                self._mission.gate.noise_tolerance,
+                self._mission.gate.progress_tolerance,
+            )
+        except Exception as error:  # kept for __init__ (rclpy would swallow it)
+            self._configure_failure = error
+            return TransitionCallbackReturn.FAILURE
+        if self._target is not None:
+            self.controller.set_target(*self._target)
+        self.get_logger().info(
+            f"{self.robot}: {self.model.kind} from {self.spec.source}, sample time "
+            f"{self.sample_time:g} s, command {self.spec.command_kind}; MPC ready in "
+            f"{wallclock.perf_counter() - started:.1f} s"
+        )
+        return TransitionCallbackReturn.SUCCESS
+
+    def on_activate(self, state: LifecycleState) -> TransitionCallbackReturn:
+        self.armed = True
+        self.get_logger().warning(f"{self.robot}: ARMED: commanding the robot")
+        return super().on_activate(state)
+
+    def on_deactivate(self, state: LifecycleState) -> TransitionCallbackReturn:
+        self._brake()
+        self.armed = False
+        self.get_logger().warning(f"{self.robot}: disarmed: braking input sent, then silence")
+        return super().on_deactivate(state)
+
+    def on_cleanup(self, state: LifecycleState) -> TransitionCallbackReturn:
+        self.controller = None
+        return TransitionCallbackReturn.SUCCESS
+
+    def on_shutdown(self, state: LifecycleState) -> TransitionCallbackReturn:
+        self._brake()
+        self.armed = False
+        return TransitionCallbackReturn.SUCCESS
 
     # --- inputs -------------------------------------------------------------------------
 
     def _on_odom(self, msg: Odometry) -> None:
         self.state = np.asarray(self.model.state_from_odometry(odometry_from_msg(msg)), float)
         self.state_time = stamp_to_seconds(msg.header.stamp)
-        self._control()
+        if self.armed:
+            self._control()
 
     def _on_target(self, msg: PointStamped) -> None:
         target, stamp_ns = target_from_msg(msg)
         self.generation_stamp_ns = stamp_ns
-        self.controller.set_target(stamp_ns, target)
+        self._target = (stamp_ns, target)
+        if self.controller is not None:
+            self.controller.set_target(stamp_ns, target)
 
     def _on_fleet_stop(self, stopped: bool) -> None:
         if stopped == self.fleet_stopped:
@@ -166,7 +229,8 @@ class ControllerNode(Node):
             self.get_logger().info(f"{self.robot}: fleet stop released: tracking again")
 
     def _brake(self) -> None:
-        if self.state is not None:
+        """The braking input, when this node commands the robot at all (armed)."""
+        if self.state is not None and self.armed and self.controller is not None:
             u = self.controller.brake(self.state)
             self.cmd_pub.publish(command_to_msg(self.model.command_from_input(u, self.state)))
 
@@ -183,10 +247,9 @@ class ControllerNode(Node):
     def before_stop(self) -> None:
         """The node is stopping (Ctrl-C, SIGTERM, the launcher or the launch service): the
         robot's last command from here is its braking input, never the last motion command."""
-        if self.state is None:
+        if self.state is None or not self.armed:
             return
-        u = self.controller.brake(self.state)
-        self.cmd_pub.publish(command_to_msg(self.model.command_from_input(u, self.state)))
+        self._brake()
         self.get_logger().info(f"{self.robot}: stopping; braking input sent")
 
     # --- control ------------------------------------------------------------------------
@@ -228,9 +291,11 @@ class ControllerNode(Node):
 
     def _publish_diagnostics(self) -> None:
         now = self.get_clock().now().nanoseconds * 1e-9
-        step = self.controller.last_step
+        step = self.controller.last_step if self.controller is not None else None
         age = now - self.state_time if self.state is not None else float("inf")
-        if self.state is None:
+        if not self.armed:
+            level, message = DiagnosticStatus.WARN, "disarmed: no commands until armed"
+        elif self.state is None:
             level, message = DiagnosticStatus.STALE, "no odometry yet"
         elif age > self.state_timeout:
             level, message = DiagnosticStatus.ERROR, "odometry stale: braking"
@@ -246,8 +311,9 @@ class ControllerNode(Node):
             "iterations": step.iterations if step else "",
             "fallback": step.fallback if step else "",
             "state_age": f"{age:.3f}",
-            "solver_failures": self.controller.failures,
-            "solves": self.controller.solves,
+            "solver_failures": self.controller.failures if self.controller else 0,
+            "solves": self.controller.solves if self.controller else 0,
+            "armed": int(self.armed),
             # Readable: the fleet's generation number and, in seconds of the graph's clock,
             # the commit stamp of the target this robot tracks (0 = no target yet).
             "generation": "" if self.fleet_generation is None else self.fleet_generation,
