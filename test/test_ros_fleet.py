@@ -295,6 +295,9 @@ def test_a_killed_controller_does_not_take_down_the_fleet(faulty) -> None:
     status, output, trial = faulty
     assert "drone_b/controller exited" in output, output[-3000:]
     assert status == 1  # the launcher reports the dead node in its exit status
+    # Its output is a pipe: plain status lines, and the gate's warning relayed from /rosout.
+    assert re.search(r"^fleet graph time .* generation \d+", output, re.MULTILINE), output[-3000:]
+    assert "launch: WARN from reference_gate: drone_b leaves the gate" in output, output[-3000:]
     simulator_log = Path(f"{trial}.logs/simulator.log").read_text()
     assert "drone_b: no answer" in simulator_log
     assert "(fleet settled within tolerance)" in simulator_log  # the other three settled

@@ -18,11 +18,12 @@ from __future__ import annotations
 
 import argparse
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import yaml
 
-from coverage_fleet.fleet.mission import Mission
+if TYPE_CHECKING:
+    from coverage_fleet.fleet.mission import Mission
 
 #: Where the package keeps the demo mission's configuration (installed under share/).
 DEMO_CONFIG = Path("rviz") / "coverage_fleet_demo.rviz"

@@ -14,6 +14,10 @@ hands plain values to coverage_fleet.cli.live_state.FleetWatch, where the rules 
   watch and the view goes on: one bad publisher never stops it.
 - /rosout warnings and errors of other nodes go to the watch (and to `on_log`, which the
   launcher uses to relay them to its terminal).
+- It samples, it does not record: per topic it keeps only the newest message (keep-last 1,
+  see NEWEST) and `spin` handles what is waiting once per call, then sleeps. So its work is
+  bounded by the number of topics, not by their rates: in the launcher's process it shares
+  the interpreter with the recorder, which must see every message of a fast lockstep run.
 """
 
 from __future__ import annotations
@@ -60,6 +64,21 @@ LOG_LEVEL_NAMES = {Log.WARN: "WARN", Log.ERROR: "ERROR", Log.FATAL: "FATAL"}
 ROSOUT = QoSProfile(
     history=HistoryPolicy.KEEP_LAST, depth=100, reliability=ReliabilityPolicy.RELIABLE,
     durability=DurabilityPolicy.TRANSIENT_LOCAL,
+)
+#: The view's QoS for a topic it samples: the newest message only (reliable, as published;
+#: transient-local where the graph latches, so a late joiner gets the latest at once).
+NEWEST = QoSProfile(
+    history=HistoryPolicy.KEEP_LAST, depth=1, reliability=ReliabilityPolicy.RELIABLE,
+    durability=DurabilityPolicy.VOLATILE,
+)
+NEWEST_LATCHED = QoSProfile(
+    history=HistoryPolicy.KEEP_LAST, depth=1, reliability=ReliabilityPolicy.RELIABLE,
+    durability=DurabilityPolicy.TRANSIENT_LOCAL,
+)
+#: /diagnostics has a publisher per node on one topic: keep enough for one round of all.
+DIAGNOSTICS = QoSProfile(
+    history=HistoryPolicy.KEEP_LAST, depth=50, reliability=ReliabilityPolicy.RELIABLE,
+    durability=DurabilityPolicy.VOLATILE,
 )
 _ODOM_TOPIC = re.compile(r"^/(.+)/" + re.escape(topics.ODOM) + "$")
 
@@ -117,22 +136,24 @@ class LiveListener:
         self.roster = list(robots)
         self.listened: set[str] = set()
         self._next_discovery = 0.0
+        self._handled = 0
         node = self.node
         node.create_subscription(
             Float64MultiArray, topics.CANDIDATES,
-            self._guarded(topics.CANDIDATES, self._on_candidates), qos.REPORTS,
+            self._guarded(topics.CANDIDATES, self._on_candidates), NEWEST,
         )
         node.create_subscription(
             Float64MultiArray, topics.OPENINGS,
-            self._guarded(topics.OPENINGS, self._on_opening), qos.OPENINGS,
+            self._guarded(topics.OPENINGS, self._on_opening), NEWEST_LATCHED,
         )
         node.create_subscription(
             String, topics.SETTLING,
-            self._guarded(topics.SETTLING, lambda m: watch.saw_settling(m.data)), qos.LATCHED,
+            self._guarded(topics.SETTLING, lambda m: watch.saw_settling(m.data)),
+            NEWEST_LATCHED,
         )
         node.create_subscription(
             DiagnosticArray, topics.DIAGNOSTICS,
-            self._guarded(topics.DIAGNOSTICS, self._on_diagnostics), qos.DISPLAY,
+            self._guarded(topics.DIAGNOSTICS, self._on_diagnostics), DIAGNOSTICS,
         )
         node.create_subscription(
             Clock, topics.CLOCK,
@@ -151,6 +172,7 @@ class LiveListener:
         view must outlive whatever a publisher sends (the reason is shown, not raised)."""
 
         def guarded(msg) -> None:
+            self._handled += 1
             try:
                 callback(msg)
             except Exception as error:  # any fault while reading: see the docstring
@@ -170,22 +192,22 @@ class LiveListener:
 
         node.create_subscription(
             Odometry, topic(topics.ODOM),
-            self._guarded(topic(topics.ODOM), lambda m: self._on_odom(robot, m)), qos.STATE,
+            self._guarded(topic(topics.ODOM), lambda m: self._on_odom(robot, m)), NEWEST,
         )
         node.create_subscription(
             PointStamped, topic(topics.TARGET),
             self._guarded(topic(topics.TARGET), lambda m: self._on_target(robot, m)),
-            qos.LATCHED,
+            NEWEST_LATCHED,
         )
         node.create_subscription(
             Vector3Stamped, topic(topics.PROGRESS),
             self._guarded(topic(topics.PROGRESS), lambda m: self._on_progress(robot, m)),
-            qos.REPORTS,
+            NEWEST,
         )
         node.create_subscription(
             DiagnosticStatus, topic(topics.SOLVE),
             self._guarded(topic(topics.SOLVE), lambda m: self._on_solve(robot, m)),
-            qos.REPORTS,
+            NEWEST,
         )
 
     def discover(self) -> None:
@@ -193,17 +215,21 @@ class LiveListener:
             self._listen_to(robot)
 
     def spin(self, seconds: float) -> None:
-        """Handle messages for about `seconds` (and look for new robots when due)."""
+        """Handle the messages waiting (at most one per topic, see NEWEST), look for new
+        robots when due, then sleep out the rest of `seconds`."""
         deadline = self.clock() + seconds
-        while True:
-            now = self.clock()
-            if now >= self._next_discovery:
-                self._next_discovery = now + DISCOVERY_PERIOD
-                self.discover()
-            remaining = deadline - now
-            if remaining <= 0:
-                return
-            self.executor.spin_once(timeout_sec=min(remaining, 0.05))
+        if self.clock() >= self._next_discovery:
+            self._next_discovery = self.clock() + DISCOVERY_PERIOD
+            self.discover()
+        # Each pass handles one ready message; stop at the first pass that handled none.
+        for _ in range(4 * sum(1 for _ in self.node.subscriptions) + 4):
+            before = self._handled
+            self.executor.spin_once(timeout_sec=0.0)
+            if self._handled == before:
+                break
+        remaining = deadline - self.clock()
+        if remaining > 0:
+            time.sleep(remaining)
 
     def close(self) -> None:
         self.executor.shutdown(timeout_sec=1.0)
