@@ -281,6 +281,13 @@ def _run_and_record(
             "robots' own emergency stops",
             flush=True,
         )
+        real = [e.name for e in mission.roster if not e.simulated]
+        if real:
+            print(
+                f"launch: real robots ({', '.join(real)}) start DISARMED: arm them with "
+                f"`coverage-fleet arm {mission.source} --domain-id {env['ROS_DOMAIN_ID']}`",
+                flush=True,
+            )
         view = _start_view(mission)
         status = _watch(graph, view.wait if view is not None else time.sleep)
     except KeyboardInterrupt as interrupt:
