@@ -201,3 +201,20 @@ def test_plain_lines_print_each_warning_once() -> None:
         "log ERROR partition: second"
     ]
     assert not any(line.startswith("log ") for line in plain_lines(watch.snapshot(100.7)))
+
+
+def test_a_disarmed_controller_is_shown_disarmed() -> None:
+    watch = fleet_at_ten_seconds()
+    watch.saw_diagnostic(
+        "coverage_fleet/rover_a/controller", "rover_a", 1, "disarmed: no commands until armed",
+        {"armed": "0"},
+    )
+    watch.saw_diagnostic("coverage_fleet/rover_c/controller", "rover_c", 0, "ok", {"armed": "1"})
+    lines = plain_lines(watch.snapshot(100.5))
+    by_robot = {line.split()[1]: line for line in lines[1:]}
+    assert by_robot["rover_a"].endswith("diagnostics WARN armed NO")
+    assert by_robot["rover_c"].endswith("armed yes")
+    assert by_robot["drone_b"].endswith("armed -")  # its diagnostics did not say
+    console = Console(record=True, width=80, color_system=None)
+    console.print(render(watch.snapshot(100.5)))
+    assert "DISARMED" in console.export_text()

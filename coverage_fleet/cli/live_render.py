@@ -103,6 +103,8 @@ def render(snapshot: WatchSnapshot) -> Group:
         name = row.name if len(row.name) <= NAME_WIDTH else row.name[: NAME_WIDTH - 1] + "~"
         solve_time, solve_status = _solve(row)
         fallback = row.fallback or ("-" if row.solve_time is None else "none")
+        if row.armed is False:
+            fallback = "DISARMED"  # the controller sends no commands: nothing falls back
         level_style = {"OK": "green", "WARN": "yellow", "ERROR": "bold red"}.get(
             row.diagnostic_level, ""
         )
@@ -136,6 +138,7 @@ def plain_lines(snapshot: WatchSnapshot, logs_since: int | None = None) -> list[
             f"distance commit {_number(row.distance_at_commit)} now "
             f"{_number(row.distance_now)} progress {row.progress_word} "
             f"solve {solve_time} {solve_status or '-'} fallback {row.fallback or '-'} "
-            f"diagnostics {row.diagnostic_level}"
+            f"diagnostics {row.diagnostic_level} "
+            f"armed {'-' if row.armed is None else 'yes' if row.armed else 'NO'}"
         )
     return lines

@@ -54,6 +54,8 @@ class RobotWatch:
     fallback: str = ""
     diagnostic_level: int | None = None
     diagnostic_message: str = ""
+    #: whether the controller may command the robot (its diagnostics' `armed`; None: not said)
+    armed: bool | None = None
 
 
 @dataclass(frozen=True)
@@ -79,6 +81,7 @@ class RobotRow:
     fallback: str
     diagnostic_level: str
     diagnostic_message: str
+    armed: bool | None = None
 
     @property
     def progress_word(self) -> str:
@@ -224,6 +227,8 @@ class FleetWatch:
             robot = self.robot(parts[1])
             robot.diagnostic_level = level
             robot.diagnostic_message = str(message)
+            armed = values.get("armed")
+            robot.armed = None if armed not in ("0", "1") else armed == "1"
             return
         if name == "coverage_fleet/reference_gate":
             try:
@@ -315,6 +320,7 @@ class FleetWatch:
             fallback=robot.fallback,
             diagnostic_level="-" if level is None else LEVEL_NAMES[level],
             diagnostic_message=robot.diagnostic_message,
+            armed=robot.armed,
         )
 
     def snapshot(self, now: float) -> WatchSnapshot:
