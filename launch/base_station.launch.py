@@ -20,7 +20,12 @@ def generate_launch_description():
 
     def nodes(context):
         use_sim_time = LaunchConfiguration("use_sim_time").perform(context).lower() == "true"
-        specs = base_station_nodes(LaunchConfiguration("mission").perform(context), use_sim_time)
+        density_updates = (
+            LaunchConfiguration("density_updates").perform(context).lower() == "true"
+        )
+        specs = base_station_nodes(
+            LaunchConfiguration("mission").perform(context), use_sim_time, density_updates
+        )
         return launch_actions(specs)
 
     return LaunchDescription(
@@ -30,6 +35,11 @@ def generate_launch_description():
             ),
             DeclareLaunchArgument(
                 "use_sim_time", default_value="false", description="follow /clock"
+            ),
+            DeclareLaunchArgument(
+                "density_updates", default_value="false",
+                description="true: the partition node takes nav_msgs/OccupancyGrid densities "
+                "from /coverage/density (README, Density updates)",
             ),
             OpaqueFunction(function=nodes),
         ]

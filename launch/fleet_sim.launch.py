@@ -24,6 +24,8 @@ def generate_launch_description():
             LaunchConfiguration("mission").perform(context),
             LaunchConfiguration("sim_mode").perform(context),
             duration=float(duration) if duration else 0.0,
+            density_updates=LaunchConfiguration("density_updates").perform(context).lower()
+            == "true",
         )
         return launch_actions(specs)
 
@@ -38,6 +40,11 @@ def generate_launch_description():
             DeclareLaunchArgument(
                 "duration", default_value="0",
                 description="simulated seconds before the run ends (0: the mission's)",
+            ),
+            DeclareLaunchArgument(
+                "density_updates", default_value="false",
+                description="true: the partition node takes nav_msgs/OccupancyGrid densities "
+                "from /coverage/density (README, Density updates)",
             ),
             OpaqueFunction(function=nodes),
         ]

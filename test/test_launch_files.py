@@ -123,12 +123,13 @@ def test_base_station_and_robot_launches_take_their_arguments(
     vehicle = tmp_path / "rover_for_launch_test.yaml"
     vehicle.write_text((share / "config" / "vehicles" / "differential_drive.yaml").read_text())
     base = LaunchRun(install_prefix, "base_station.launch.py", mission=str(mission),
-                     use_sim_time="false")
+                     use_sim_time="false", density_updates="true")
     robot = LaunchRun(install_prefix, "robot_controller.launch.py", robot="rover_b",
                       mission=str(mission), vehicle_file=str(vehicle), use_sim_time="false")
     try:
         robot.wait_for(f"rover_b: differential_drive from {vehicle}")
         base.wait_for(f"partitioning {mission.stem!r}")
+        base.wait_for("densities from /coverage/density")
     finally:
         statuses = [run.interrupt() for run in (robot, base)]
     assert statuses == [0, 0], robot.output[-2000:] + base.output[-2000:]

@@ -118,6 +118,7 @@ class PartitionNode(Node):
         self.create_timer(1.0 / rate, self._on_timer)
         self.get_logger().info(
             f"partitioning {self.mission.name!r} for {len(self.names)} robots at {rate:g} Hz"
+            + (f"; densities from {topics.DENSITY}" if take_density else "")
         )
 
     def _now(self) -> float:
