@@ -234,7 +234,9 @@ class SimulatorNode(Node):
         for name, x in self.plants.measure().items():
             model = self.plants.entries[name].vehicle.model
             command = self.commands.get(name)
-            odom = model.odometry_from_state(x, None if command is None else command[0])
+            # While the fleet is stopped the plant brakes: report that, not the command.
+            applied = None if command is None or self.fleet_stopped else command[0]
+            odom = model.odometry_from_state(x, applied)
             self.odom_pubs[name].publish(
                 odometry_to_msg(odom, stamp, child_frame_id=f"{name}/base_link")
             )
