@@ -44,6 +44,16 @@ def test_simulate_stops_on_ctrl_c_whenever_it_comes(tmp_path: Path, delay: float
     assert list(tmp_path.iterdir()) == []
 
 
+def test_simulate_with_controller_workers_stops_on_ctrl_c(tmp_path: Path) -> None:
+    """The workers run in a session of their own; the command stops them in order."""
+    status, err = interrupt_after_first_progress(
+        ["simulate", str(MISSION), "--workers", "2", "--out", str(tmp_path / "trial")], 0.1,
+        "generation")
+    assert status == 130, err[-2000:]
+    assert "interrupted" in err and "Traceback" not in err
+    assert list(tmp_path.iterdir()) == []
+
+
 def test_batch_stops_on_ctrl_c(tmp_path: Path) -> None:
     summary = tmp_path / "summary.json"
     process = subprocess.Popen(
