@@ -245,3 +245,23 @@ def test_occupancy_grid_is_row_major_from_its_origin() -> None:
     msg.info.width = 4
     with pytest.raises(ValueError, match="4 x 2"):
         cv.occupancy_from_msg(msg)
+
+
+def test_candidates_without_layout_or_naming_robot_99_are_refused_as_bad_messages() -> None:
+    """Issue 9's fault rows: a candidates table without its layout, or with roster index 99
+    in a roster of 4, is a BadMessageError (dropped by the nodes), never an IndexError."""
+    from std_msgs.msg import Float64MultiArray
+
+    from coverage_fleet.fleet.message_checks import BAD_INDEX, BAD_TABLE, BadMessageError
+
+    bare = Float64MultiArray(data=[0.0, 1.0, 1.0, 0.0, 0.0, 0.0, 0.0, 1.0, 1.0, 2.0, 2.0, 3.0])
+    with pytest.raises(BadMessageError) as caught:
+        cv.candidates_from_msg(bare, roster_size=4)
+    assert caught.value.reason == BAD_TABLE
+    far = cv.candidates_to_msg(
+        cv.CandidateValues(0.0, 1.0, {99: np.zeros(2)}, {99: np.zeros(2)}, {99: 1.0})
+    )
+    with pytest.raises(BadMessageError) as caught:
+        cv.candidates_from_msg(far, roster_size=4)
+    assert caught.value.reason == BAD_INDEX
+    assert sorted(cv.candidates_from_msg(far).positions) == [99]  # no roster: any index

@@ -29,6 +29,15 @@ simulated arms itself; a real robot's controller stays inactive, disarmed, publi
 nothing at all (no command, no progress report, so the partition leaves the robot out)
 until an explicit `activate` (`coverage-fleet arm`, or any lifecycle client). `deactivate`
 disarms: the braking input once, then silence.
+
+Every message is checked first (ros/inbox.py, fleet/message_checks.py): odometry that is
+not finite, not in the map frame, stamped more than `stamp_future_tolerance` ahead of the
+node's clock or more than `state_timeout` behind it, or farther than `implausible_distance`
+outside the region is dropped, and so is a target that is not finite or not in the map
+frame (throttled warning, counted on /diagnostics). A dropped state is never solved on: the
+newest good state ages, and the watchdog brakes once it is stale. States beyond
+`max_state_rate` per second (a flood on the robot's odometry) are dropped and counted too,
+so that a flood cannot make the controller flood the rest of the graph with answers.
 """
 
 from __future__ import annotations
@@ -48,6 +57,13 @@ from coverage_fleet.control.sampling import SampledController
 from coverage_fleet.control.terminal import terminal_for_vehicle
 from coverage_fleet.errors import ConfigError
 from coverage_fleet.fleet.liveness import fresh
+from coverage_fleet.fleet.message_checks import (
+    FLOOD,
+    BadMessageError,
+    RateLimit,
+    check_finite,
+    check_frame,
+)
 from coverage_fleet.fleet.mission import load_mission
 
 from . import qos, topics
@@ -57,14 +73,13 @@ from .conversions import (
     command_message_type,
     command_to_msg,
     diagnostic_status,
-    odometry_from_msg,
     plan_to_msg,
     progress_to_msg,
     solve_to_msg,
-    stamp_to_seconds,
     target_from_msg,
 )
 from .fleet_stop import listen_to_fleet_stop
+from .inbox import Inbox, declare_state_checks
 from .parameters import declare
 from .runtime import main_for
 from .vehicle_parameters import controller_vehicle, declare_vehicle_parameters
@@ -99,8 +114,17 @@ class ControllerNode(LifecycleNode):
             self, "diagnostics_period", 1.0, "Seconds between /diagnostics messages.",
             (0.05, 600.0),
         )
+        max_state_rate = declare(
+            self, "max_state_rate", 200.0,
+            "States answered per wall-clock second at most (bursts of a tenth of that); "
+            "more (a flood on odom) are dropped and counted. Lockstep runs far below it.",
+            (1.0, 1e5),
+        )
+        self.state_limit = RateLimit(max_state_rate, max(1.0, max_state_rate / 10.0))
         self.robot = robot_name or self.get_namespace().strip("/").split("/")[-1]
         mission = load_mission(mission_file)
+        self.state_checks = declare_state_checks(self, mission.region, self.state_timeout)
+        self.inbox = Inbox(self)
         entry = next((e for e in mission.roster if e.name == self.robot), None)
         if entry is None:
             raise ConfigError.single(
@@ -206,13 +230,32 @@ class ControllerNode(LifecycleNode):
     # --- inputs -------------------------------------------------------------------------
 
     def _on_odom(self, msg: Odometry) -> None:
-        self.state = np.asarray(self.model.state_from_odometry(odometry_from_msg(msg)), float)
-        self.state_time = stamp_to_seconds(msg.header.stamp)
+        if not self.state_limit.allow(wallclock.monotonic()):
+            self.inbox.rates.saw(self.robot)
+            self.inbox.drop(
+                self.robot, BadMessageError(FLOOD, "more states than max_state_rate"), "odometry"
+            )
+            return
+        good = self.inbox.odometry(self.robot, msg, self.state_checks)
+        if good is None:
+            return
+        odom, stamp = good
+        self.state = np.asarray(self.model.state_from_odometry(odom), float)
+        self.state_time = stamp
         if self.armed:
             self._control()
 
     def _on_target(self, msg: PointStamped) -> None:
-        target, stamp_ns = target_from_msg(msg)
+        def convert():
+            target, stamp_ns = target_from_msg(msg)
+            check_frame(msg.header.frame_id, self.state_checks.frame)
+            check_finite({"x": target[0], "y": target[1]})
+            return target, stamp_ns
+
+        good = self.inbox.accept(self.robot, "target", convert)
+        if good is None:
+            return
+        target, stamp_ns = good
         self.generation_stamp_ns = stamp_ns
         self._target = (stamp_ns, target)
         if self.controller is not None:
@@ -301,6 +344,8 @@ class ControllerNode(LifecycleNode):
             level, message = DiagnosticStatus.ERROR, "odometry stale: braking"
         elif self.fleet_stopped:
             level, message = DiagnosticStatus.WARN, "fleet stop: braking"
+        elif self.inbox.new_drops():
+            level, message = DiagnosticStatus.WARN, "messages dropped (see dropped.*)"
         elif step is not None and step.used_fallback:
             level, message = DiagnosticStatus.WARN, f"solver: {step.status} ({step.fallback})"
         else:
@@ -318,6 +363,7 @@ class ControllerNode(LifecycleNode):
             # the commit stamp of the target this robot tracks (0 = no target yet).
             "generation": "" if self.fleet_generation is None else self.fleet_generation,
             "target_committed_at": f"{self.generation_stamp_ns * 1e-9:.3f}",
+            **self.inbox.diagnostic_values([self.robot]),
         }
         array = DiagnosticArray()
         array.header.stamp = self.get_clock().now().to_msg()

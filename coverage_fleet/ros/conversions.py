@@ -55,6 +55,13 @@ from nav_msgs.msg import OccupancyGrid, Odometry, Path
 from std_msgs.msg import ColorRGBA, Float64MultiArray, Header, MultiArrayDimension
 from visualization_msgs.msg import Marker, MarkerArray
 
+from coverage_fleet.fleet.message_checks import (
+    BAD_TABLE,
+    BadMessageError,
+    TableDimension,
+    roster_indices,
+    table_rows,
+)
 from coverage_fleet.vehicles.base import CommandKind, CommandValues, OdometryValues
 
 from .topics import MAP_FRAME
@@ -267,13 +274,10 @@ def _table(rows: np.ndarray, columns: Sequence[str], rows_label: str) -> Float64
 
 
 def _rows(msg: Float64MultiArray, columns: Sequence[str]) -> np.ndarray:
-    dims = msg.layout.dim
-    if len(dims) != 2 or dims[1].size != len(columns) or dims[1].label != ",".join(columns):
-        raise ValueError(f"expected a table with columns {','.join(columns)}")
-    data = np.asarray(msg.data, dtype=float)[msg.layout.data_offset :]
-    if data.size != dims[0].size * dims[1].size:
-        raise ValueError("table data does not match its layout")
-    return data.reshape(dims[0].size, dims[1].size)
+    """The table's rows; BadMessageError (message_checks) when the layout is not the documented
+    one or a value is not finite."""
+    dims = [TableDimension(str(d.label), int(d.size), int(d.stride)) for d in msg.layout.dim]
+    return table_rows(dims, int(msg.layout.data_offset), msg.data, columns)
 
 
 def candidates_to_msg(values: CandidateValues) -> Float64MultiArray:
@@ -290,12 +294,17 @@ def candidates_to_msg(values: CandidateValues) -> Float64MultiArray:
     return _table(rows, CANDIDATE_COLUMNS, CANDIDATE_ROWS_LABEL)
 
 
-def candidates_from_msg(msg: Float64MultiArray) -> CandidateValues:
+def candidates_from_msg(
+    msg: Float64MultiArray, roster_size: int | None = None
+) -> CandidateValues:
+    """The candidates; BadMessageError (message_checks) for a table that is not the documented
+    layout, holds a value that is not finite or names a robot outside a roster of
+    `roster_size`."""
     rows = _rows(msg, CANDIDATE_COLUMNS)
-    if rows.shape[0] < 1 or int(rows[0, 2]) != rows.shape[0] - 1:
-        raise ValueError("candidate table: the robot count in row 0 does not match the rows")
+    if rows[0, 2] != rows.shape[0] - 1:
+        raise BadMessageError(BAD_TABLE, "candidate table: the robot count in row 0 does not match")
     body = rows[1:]
-    indices = [int(i) for i in body[:, 0]]
+    indices = roster_indices(body[:, 0], roster_size)
     return CandidateValues(
         time=float(rows[0, 0]),
         cost=float(rows[0, 1]),
@@ -390,12 +399,16 @@ def opening_to_msg(values: OpeningValues) -> Float64MultiArray:
     return _table(rows, OPENING_COLUMNS, OPENING_ROWS_LABEL)
 
 
-def opening_from_msg(msg: Float64MultiArray) -> OpeningValues:
+def opening_from_msg(msg: Float64MultiArray, roster_size: int | None = None) -> OpeningValues:
+    """The opening; BadMessageError (message_checks) as for candidates_from_msg, or for an
+    unknown reason code."""
     rows = _rows(msg, OPENING_COLUMNS)
-    if rows.shape[0] < 1 or int(rows[0, 4]) != rows.shape[0] - 1:
-        raise ValueError("opening table: the robot count in row 0 does not match the rows")
+    if rows[0, 4] != rows.shape[0] - 1:
+        raise BadMessageError(BAD_TABLE, "opening table: the robot count in row 0 does not match")
+    if rows[0, 3] not in range(len(OPENING_REASONS)):
+        raise BadMessageError(BAD_TABLE, f"opening table: unknown reason code {rows[0, 3]!r}")
     body = rows[1:]
-    indices = [int(i) for i in body[:, 0]]
+    indices = roster_indices(body[:, 0], roster_size)
     return OpeningValues(
         generation=int(rows[0, 0]),
         time=float(rows[0, 1]),

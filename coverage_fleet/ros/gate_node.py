@@ -31,6 +31,12 @@ The gate's health goes out on /diagnostics (`coverage_fleet/reference_gate`) eve
 that name generations on the wire are not meant for people), when and why it was
 committed, the cost then, the robots, the settle status and the reports ignored.
 
+Every message is checked first (ros/inbox.py): a candidates table without the documented
+layout, with values that are not finite or with robot indices outside the roster, a progress
+report with a time that is not finite, and odometry that fails the state checks are dropped
+(throttled warning, counted) and never reach the gate; the counts (per robot and for the
+candidates) and the robots not in the gate's roster join its /diagnostics.
+
 The gate also serves the fleet-wide software stop (fleet_stop.py): while stopped it offers
 nothing to the gate (no generation is committed) and the settle monitor does not run (a
 stopped fleet is neither settled nor stuck); on release the monitor starts afresh.
@@ -48,6 +54,7 @@ from std_msgs.msg import Float64MultiArray, String, UInt32
 from coverage_fleet.control.gate import GateSettings
 from coverage_fleet.errors import ConfigError, Problem
 from coverage_fleet.fleet.coordination import Candidates, GateKeeper
+from coverage_fleet.fleet.message_checks import check_finite
 from coverage_fleet.fleet.mission import load_mission, mission_settle_problems
 from coverage_fleet.fleet.settling import SettleMonitor, SettleSettings
 
@@ -62,6 +69,7 @@ from .conversions import (
     target_to_msg,
 )
 from .fleet_stop import FleetStopService, listen_to_fleet_stop
+from .inbox import Inbox, declare_state_checks
 from .parameters import declare
 from .runtime import main_for
 
@@ -72,7 +80,14 @@ class GateNode(Node):
         mission_file = declare(
             self, "mission_file", "", "Mission file (YAML): roster and gate tolerances."
         )
+        state_timeout = declare(
+            self, "state_timeout", 2.0,
+            "Seconds after which an odometry message is too old to give a robot's speed.",
+            (0.01, 600.0),
+        )
         mission = load_mission(mission_file)
+        self.state_checks = declare_state_checks(self, mission.region, state_timeout)
+        self.inbox = Inbox(self)
         defaults = mission.gate
         settings = GateSettings(
             noise_tolerance=declare(
@@ -175,11 +190,20 @@ class GateNode(Node):
         self.fleet_stopped = stopped
 
     def _on_odom(self, name: str, msg: Odometry) -> None:
-        linear = msg.twist.twist.linear
-        self.speeds[name] = float(np.hypot(linear.x, linear.y))
+        good = self.inbox.odometry(name, msg, self.state_checks)
+        if good is not None:
+            odom, _ = good
+            self.speeds[name] = float(np.hypot(odom.body_vx, odom.body_vy))
 
     def _on_progress(self, name: str, msg: Vector3Stamped) -> None:
-        report = progress_from_msg(msg)
+        def convert():
+            report = progress_from_msg(msg)
+            check_finite({"state_time": report.state_time})
+            return report
+
+        report = self.inbox.accept(name, "progress report", convert)
+        if report is None:
+            return
         generation = self.generation_of_stamp.get(report.generation_stamp_ns)
         if generation != self.gate.generation:
             self.ignored_reports += 1
@@ -188,7 +212,11 @@ class GateNode(Node):
     def _on_candidates(self, msg: Float64MultiArray) -> None:
         if self.fleet_stopped:
             return
-        values = candidates_from_msg(msg)
+        values = self.inbox.accept(
+            "candidates", "candidates table", lambda: candidates_from_msg(msg, len(self.names))
+        )
+        if values is None:
+            return
         names = {i: self.names[i] for i in values.positions}
         candidates = Candidates(
             time=values.time,
@@ -245,6 +273,13 @@ class GateNode(Node):
             message = f"generation {opening.generation}: {self.settling}"
         if self.fleet_stopped:
             level, message = DiagnosticStatus.WARN, "fleet stop: committing nothing"
+        new_drops = self.inbox.new_drops()
+        missing = [n for n in self.names if n not in self.gate.robots] if opening else []
+        if level == DiagnosticStatus.OK and (new_drops or missing):
+            level = DiagnosticStatus.WARN
+            message += (f"; not in the gate: {', '.join(missing)}" if missing else "") + (
+                f"; {new_drops} messages dropped" if new_drops else ""
+            )
         values = {
             "generation": opening.generation if opening else 0,
             "committed_at": f"{opening.time:.3f}" if opening else "",
@@ -257,6 +292,9 @@ class GateNode(Node):
             # The tolerances of the progress rule, so that a viewer judges flags alike.
             "noise_tolerance": repr(self.gate.settings.noise_tolerance),
             "progress_tolerance": repr(self.gate.settings.progress_tolerance),
+            "roster": ",".join(self.gate.robots),
+            "not_in_gate": ",".join(missing),
+            **self.inbox.diagnostic_values(["candidates", *self.names]),
         }
         array = DiagnosticArray()
         array.header.stamp = self.get_clock().now().to_msg()

@@ -25,6 +25,7 @@ fleet/coordination.py); this node converts messages and calls them.
 from __future__ import annotations
 
 import numpy as np
+from diagnostic_msgs.msg import DiagnosticArray, DiagnosticStatus
 from geometry_msgs.msg import PointStamped, Vector3Stamped
 from nav_msgs.msg import OccupancyGrid, Odometry
 from rclpy.node import Node
@@ -34,6 +35,7 @@ from visualization_msgs.msg import MarkerArray
 from coverage_fleet.fleet.coordination import candidates_at
 from coverage_fleet.fleet.density_updates import UNKNOWN_DENSITY, DensitySource, occupancy_density
 from coverage_fleet.fleet.liveness import FleetLiveness
+from coverage_fleet.fleet.message_checks import check_finite, check_frame
 from coverage_fleet.fleet.mission import load_mission
 
 from . import qos, topics
@@ -41,12 +43,11 @@ from .conversions import (
     CandidateValues,
     candidates_to_msg,
     occupancy_from_msg,
-    odometry_from_msg,
     partition_markers,
     seconds_to_stamp,
-    stamp_to_seconds,
     target_from_msg,
 )
+from .inbox import Inbox, declare_state_checks
 from .parameters import declare
 from .runtime import main_for
 
@@ -87,6 +88,12 @@ class PartitionNode(Node):
         )
         self.mission = load_mission(mission_file)
         self.densities = DensitySource(self.mission.density, self.mission.density_updates)
+        diagnostics_period = declare(
+            self, "diagnostics_period", 1.0, "Seconds between /diagnostics messages.",
+            (0.05, 600.0),
+        )
+        self.state_checks = declare_state_checks(self, self.mission.region, state_timeout)
+        self.inbox = Inbox(self)
         self.names = list(self.mission.robot_names)
         self.liveness = FleetLiveness(
             self.names, state_timeout, controller_timeout, startup_grace
@@ -101,7 +108,7 @@ class PartitionNode(Node):
             )
             self.create_subscription(
                 Vector3Stamped, topics.robot_topic(name, topics.PROGRESS),
-                lambda msg, n=name: self.liveness.saw_answer(n, self._now()), qos.REPORTS,
+                lambda msg, n=name: self._on_progress(n), qos.REPORTS,
             )
             self.create_subscription(
                 PointStamped, topics.robot_topic(name, topics.TARGET),
@@ -115,7 +122,10 @@ class PartitionNode(Node):
         )
         self.cost_pub = self.create_publisher(Float64, topics.COST, qos.DISPLAY)
         self.cells_pub = self.create_publisher(MarkerArray, topics.CELLS, qos.LATCHED)
+        self.diag_pub = self.create_publisher(DiagnosticArray, topics.DIAGNOSTICS, qos.DISPLAY)
+        self.partitions = 0
         self.create_timer(1.0 / rate, self._on_timer)
+        self.create_timer(diagnostics_period, self._publish_diagnostics)
         self.get_logger().info(
             f"partitioning {self.mission.name!r} for {len(self.names)} robots at {rate:g} Hz"
             + (f"; densities from {topics.DENSITY}" if take_density else "")
@@ -125,9 +135,17 @@ class PartitionNode(Node):
         return self.get_clock().now().nanoseconds * 1e-9
 
     def _on_odom(self, name: str, msg: Odometry) -> None:
-        odom = odometry_from_msg(msg)
+        good = self.inbox.odometry(name, msg, self.state_checks)
+        if good is None:
+            return
+        odom, stamp = good
         self.positions[name] = np.array([odom.x, odom.y])
-        self.liveness.saw_state(name, stamp_to_seconds(msg.header.stamp))
+        self.liveness.saw_state(name, stamp)
+
+    def _on_progress(self, name: str) -> None:
+        # Only that the controller answers matters here (the gate reads the content).
+        self.inbox.rates.saw(f"{name}.progress")
+        self.liveness.saw_answer(name, self._now())
 
     def _on_density(self, msg: OccupancyGrid) -> None:
         try:
@@ -151,7 +169,39 @@ class PartitionNode(Node):
         )
 
     def _on_target(self, name: str, msg: PointStamped) -> None:
-        self.targets[name] = target_from_msg(msg)[0]
+        def convert():
+            xy, _ = target_from_msg(msg)
+            check_frame(msg.header.frame_id, self.state_checks.frame)
+            check_finite({"x": xy[0], "y": xy[1]})
+            return xy
+
+        target = self.inbox.accept(name, "target", convert)
+        if target is not None:
+            self.targets[name] = target
+
+    def _publish_diagnostics(self) -> None:
+        live = self.liveness.live
+        missing = [n for n in self.names if n not in live]
+        new_drops = self.inbox.new_drops()
+        if not live:
+            level, message = DiagnosticStatus.ERROR, "no live robot"
+        elif missing or new_drops:
+            level = DiagnosticStatus.WARN
+            message = (f"left out: {', '.join(missing)}; " if missing else "") + (
+                f"{new_drops} messages dropped" if new_drops else "all messages good"
+            )
+        else:
+            level, message = DiagnosticStatus.OK, "partitioning"
+        values = {
+            "live_robots": ",".join(live),
+            "live_count": len(live),
+            "left_out": ",".join(missing),
+            "partitions": self.partitions,
+            **self.inbox.diagnostic_values(self.names),
+        }
+        self.inbox.publish(
+            self.diag_pub, "coverage_fleet/partition", level, message, values
+        )
 
     def _on_timer(self) -> None:
         now = self._now()
@@ -197,6 +247,7 @@ class PartitionNode(Node):
             density_version=candidates.density_version,
         )
         self.candidates_pub.publish(candidates_to_msg(values))
+        self.partitions += 1
         self.cost_pub.publish(Float64(data=candidates.cost))
         self.cells_pub.publish(
             partition_markers(

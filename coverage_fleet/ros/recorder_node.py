@@ -24,6 +24,7 @@ from rclpy.node import Node
 from std_msgs.msg import Float64MultiArray, String, UInt32
 
 from coverage_fleet.control.gate import GateOpening
+from coverage_fleet.fleet.message_checks import StateChecks
 from coverage_fleet.fleet.mission import Mission, RobotEntry, load_mission
 from coverage_fleet.fleet.trial import TrialLog
 from coverage_fleet.fleet.trial_records import (
@@ -45,13 +46,12 @@ from .conversions import (
     candidates_from_msg,
     command_from_msg,
     command_message_type,
-    odometry_from_msg,
     opening_from_msg,
     progress_from_msg,
     solve_from_msg,
-    stamp_to_seconds,
     target_from_msg,
 )
+from .inbox import Inbox
 from .parameters import declare
 from .runtime import main_for
 
@@ -72,6 +72,10 @@ class RecorderNode(Node):
             "launcher writes the trial itself).",
         )
         self.mission: Mission = load_mission(mission_file)
+        # States are checked as the partition node checks them (a bad one is not a row of
+        # the trial), except the stamp: this node's clock need not be the graph's.
+        self.state_checks = StateChecks(self.mission.region, stamps=None)
+        self.inbox = Inbox(self)
         self.lock = threading.Lock()
         self.names = list(self.mission.robot_names)
         self.assembler = TrialAssembler(self.mission, self.mission.simulation.seed)
@@ -124,10 +128,14 @@ class RecorderNode(Node):
     # --- callbacks: message -> record ---------------------------------------------------
 
     def _on_odom(self, entry: RobotEntry, msg: Odometry) -> None:
-        x = np.asarray(entry.vehicle.model.state_from_odometry(odometry_from_msg(msg)), float)
+        good = self.inbox.odometry(entry.name, msg, self.state_checks)
+        if good is None:
+            return
+        odom, stamp = good
+        x = np.asarray(entry.vehicle.model.state_from_odometry(odom), float)
         with self.lock:
             self.states[entry.name] = x
-            self.assembler.add(StateRecord(entry.name, stamp_to_seconds(msg.header.stamp), x))
+            self.assembler.add(StateRecord(entry.name, stamp, x))
 
     def _on_command(self, entry: RobotEntry, msg, kind) -> None:
         values = command_from_msg(msg, kind)
@@ -156,12 +164,20 @@ class RecorderNode(Node):
         )
 
     def _on_candidates(self, msg: Float64MultiArray) -> None:
-        values = candidates_from_msg(msg)
+        values = self.inbox.accept(
+            "candidates", "candidates table", lambda: candidates_from_msg(msg, len(self.names))
+        )
+        if values is None:
+            return
         positions = {self.names[i]: p for i, p in values.positions.items()}
         self._add(CandidatesRecord(values.time, values.cost, positions))
 
     def _on_opening(self, msg: Float64MultiArray) -> None:
-        values = opening_from_msg(msg)
+        values = self.inbox.accept(
+            "openings", "gate opening", lambda: opening_from_msg(msg, len(self.names))
+        )
+        if values is None:
+            return
         names = self.names
         opening = GateOpening(
             time=values.time,

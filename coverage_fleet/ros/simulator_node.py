@@ -22,6 +22,15 @@ noise applies as offline: process noise on the positions every tick, measurement
 the published positions (one numpy generator seeded with the mission's seed). While the
 fleet stop is set (fleet_stop.py) every robot gets its braking input, whatever commands
 arrive; time goes on as it would for real robots.
+
+Every message is checked first (ros/inbox.py): a command with a value that is not finite or
+a progress report with a time that is not finite is dropped (throttled warning, counted per
+robot), so no message can put NaN into a plant. A run that ends (duration, settled or stuck)
+while a robot's controller is lost (lockstep) or its command stale (realtime) exits with
+status EXIT_ROBOTS_MISSING, naming the robots: a fleet with a robot missing never reports a
+clean end. Every `diagnostics_period` wall seconds the node publishes /diagnostics:
+simulated time, steps, per robot its controller's condition, messages received per second
+and dropped.
 """
 
 from __future__ import annotations
@@ -29,6 +38,8 @@ from __future__ import annotations
 import time as wallclock
 
 import numpy as np
+import rclpy.clock
+from diagnostic_msgs.msg import DiagnosticArray, DiagnosticStatus
 from geometry_msgs.msg import Vector3Stamped
 from nav_msgs.msg import Odometry
 from rclpy.node import Node
@@ -38,6 +49,7 @@ from std_msgs.msg import String
 from coverage_fleet.errors import ConfigError
 from coverage_fleet.fleet.liveness import fresh
 from coverage_fleet.fleet.lockstep import SAME_TIME, LockstepBarrier, LockstepTimeouts
+from coverage_fleet.fleet.message_checks import check_finite
 from coverage_fleet.fleet.mission import RobotEntry, load_mission, simulation_step
 from coverage_fleet.fleet.plants import FleetPlants, NoiseLevels
 
@@ -50,10 +62,13 @@ from .conversions import (
     seconds_to_stamp,
 )
 from .fleet_stop import listen_to_fleet_stop
+from .inbox import Inbox
 from .parameters import declare
 from .runtime import RunFinished, main_for
 
 MODES = ("realtime", "lockstep")
+#: Exit status of a run that ended with robots whose controllers were not answering.
+EXIT_ROBOTS_MISSING = 3
 
 
 class SimulatorNode(Node):
@@ -107,6 +122,10 @@ class SimulatorNode(Node):
             "Lockstep: the first step waits until every robot's odom has this many "
             "subscribers (its controller, the partition node, a recorder...).", (0, 100),
         )
+        diagnostics_period = declare(
+            self, "diagnostics_period", 1.0, "Wall seconds between /diagnostics messages.",
+            (0.05, 600.0),
+        )
         if self.mode not in MODES:
             raise ConfigError.single(
                 "simulator parameters", "mode",
@@ -135,6 +154,7 @@ class SimulatorNode(Node):
         #: robot -> (input, wall time it arrived)
         self.commands: dict[str, tuple[np.ndarray, float]] = {}
         self.odom_pubs = {}
+        self.inbox = Inbox(self)
         for entry in simulated:
             self._connect(entry)
         self.clock_pub = self.create_publisher(Clock, topics.CLOCK, qos.CLOCK)
@@ -157,6 +177,12 @@ class SimulatorNode(Node):
             )
             # A short wall timer polls the barrier; the executor delivers answers between.
             self.create_timer(0.002, self._lockstep_poll)
+        self.diag_pub = self.create_publisher(DiagnosticArray, topics.DIAGNOSTICS, qos.DISPLAY)
+        # A wall-clock timer: the simulator's own clock is not simulated time.
+        self.create_timer(
+            diagnostics_period, self._publish_diagnostics,
+            clock=rclpy.clock.Clock(clock_type=rclpy.clock.ClockType.STEADY_TIME),
+        )
         self._publish_states()
 
     @property
@@ -187,8 +213,17 @@ class SimulatorNode(Node):
 
     def _on_command(self, name: str, msg, kind) -> None:
         model = self.plants.entries[name].vehicle.model
-        values = command_from_msg(msg, kind)
-        u = np.asarray(model.input_from_command(values, self.plants.states[name]), float)
+
+        def convert():
+            values = command_from_msg(msg, kind)
+            check_finite(dict(enumerate((*values.linear, *values.angular))))
+            u = np.asarray(model.input_from_command(values, self.plants.states[name]), float)
+            check_finite(dict(enumerate(u)))
+            return u
+
+        u = self.inbox.accept(name, "command", convert)
+        if u is None:
+            return
         self.commands[name] = (u, wallclock.monotonic())
         if self.barrier is not None:
             self.barrier.command(name)
@@ -196,7 +231,9 @@ class SimulatorNode(Node):
     def _on_progress(self, name: str, msg: Vector3Stamped) -> None:
         if self.barrier is None:
             return
-        report = progress_from_msg(msg)
+        report = self.inbox.accept(name, "progress report", lambda: self._report(msg))
+        if report is None:
+            return
         if self.barrier.answer(name, report.state_time, wallclock.monotonic()):
             self.get_logger().info(f"{name}: controller answering, live")
 
@@ -206,8 +243,51 @@ class SimulatorNode(Node):
                                    else "fleet stop released")
         self.fleet_stopped = stopped
 
+    @staticmethod
+    def _report(msg: Vector3Stamped):
+        report = progress_from_msg(msg)
+        check_finite({"state_time": report.state_time})
+        return report
+
     def _on_settling(self, msg: String) -> None:
         self.settling = str(msg.data)
+
+    def missing(self) -> list[str]:
+        """Simulated robots whose controllers are not answering now: lost (lockstep), or
+        without a fresh command (realtime)."""
+        if self.barrier is not None:
+            return [n for n in self.robots if self.barrier.is_lost(n)]
+        now = wallclock.monotonic()
+        return [
+            n for n in self.robots
+            if not fresh(self.commands.get(n, (None, None))[1], now, self.command_timeout)
+        ]
+
+    def _publish_diagnostics(self) -> None:
+        missing = self.missing()
+        new_drops = self.inbox.new_drops()
+        if missing or new_drops:
+            level = DiagnosticStatus.WARN
+            message = (f"not answering: {', '.join(missing)}; " if missing else "") + (
+                f"{new_drops} messages dropped" if new_drops else "all messages good"
+            )
+        else:
+            level, message = DiagnosticStatus.OK, f"simulating ({self.mode})"
+        conditions = {
+            f"{n}.controller": "lost" if n in missing else (
+                self.barrier.condition(n) if self.barrier is not None else "live"
+            )
+            for n in self.robots
+        }
+        values = {
+            "time": f"{self.plants.time:.3f}",
+            "steps": self.barrier.steps if self.barrier is not None else "",
+            "live_robots": ",".join(n for n in self.robots if n not in missing),
+            "settling": self.settling,
+            **conditions,
+            **self.inbox.diagnostic_values(self.robots),
+        }
+        self.inbox.publish(self.diag_pub, "coverage_fleet/simulator", level, message, values)
 
     # --- stepping -----------------------------------------------------------------------
 
@@ -244,12 +324,21 @@ class SimulatorNode(Node):
     def _finish_if_done(self) -> None:
         time = self.plants.time
         if time >= self.end_time - SAME_TIME:
-            self.get_logger().info(f"run over at t = {time:.2f} s (duration reached)")
-            raise RunFinished(0)
+            self._finish(f"run over at t = {time:.2f} s (duration reached)")
         if self.stop_when_settled and self.settling in ("settled", "stuck"):
             ending = "settled within tolerance" if self.settling == "settled" else "stuck"
-            self.get_logger().info(f"run over at t = {time:.2f} s (fleet {ending})")
-            raise RunFinished(0)
+            self._finish(f"run over at t = {time:.2f} s (fleet {ending})")
+
+    def _finish(self, why: str) -> None:
+        missing = self.missing()
+        if missing:
+            self.get_logger().error(
+                f"{why}, but not with the whole fleet: {', '.join(missing)} not answering "
+                f"(its robot braked); exit status {EXIT_ROBOTS_MISSING}"
+            )
+            raise RunFinished(EXIT_ROBOTS_MISSING)
+        self.get_logger().info(why)
+        raise RunFinished(0)
 
     def _realtime_tick(self) -> None:
         self._advance()

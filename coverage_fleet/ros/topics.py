@@ -5,6 +5,8 @@ when the mission is loaded."""
 
 from __future__ import annotations
 
+from coverage_fleet.fleet.message_checks import EXPECTED_FRAME
+
 ODOM = "odom"
 CMD_VEL = "cmd_vel"
 TARGET = "coverage/target"
@@ -29,7 +31,8 @@ FLEET_STOP_SERVICE = "/coverage/set_fleet_stop"
 DIAGNOSTICS = "/diagnostics"
 CLOCK = "/clock"
 
-MAP_FRAME = "map"
+#: The shared map frame (REP 105); the one definition lives with the message checks.
+MAP_FRAME = EXPECTED_FRAME
 
 def robot_topic(robot: str, topic: str) -> str:
     """Absolute name of a robot's topic, e.g. robot_topic("rover_a", ODOM) -> /rover_a/odom."""
