@@ -89,6 +89,24 @@ def test_a_roster_change_restarts_the_clocks() -> None:
         monitor.update(2.1, one, {"b": 0.0}, {"a": ORIGIN}, True)
 
 
+def test_with_a_roster_robot_absent_the_rest_is_stuck_never_settled() -> None:
+    """Issue 9: with one controller stopped the others were declared at rest. A robot the
+    partition left out is not near its centroid, so the fleet cannot be a CVT (Du, Faber &
+    Gunzburger 1999, sec. 1: every generator at its cell's centroid)."""
+    monitor = SettleMonitor(SETTINGS)
+    one = {"a": np.array([0.05, 0.0])}
+    statuses = [
+        monitor.update(t, one, {"a": 0.0}, {"a": ORIGIN}, True, absent=["b"])
+        for t in ticks(0.0, 3.0)
+    ]
+    assert "settled" not in statuses
+    assert statuses[-1] == "stuck"  # the rest still for stuck_timeout
+    # Positive control: the same robot with nobody absent settles after the dwell.
+    monitor = SettleMonitor(SETTINGS)
+    statuses = [monitor.update(t, one, {"a": 0.0}, {"a": ORIGIN}, True) for t in ticks(0.0, 1.0)]
+    assert statuses[-1] == "settled"
+
+
 def test_tolerances_that_can_never_settle_are_refused() -> None:
     # The gate may stay shut with a robot up to progress + noise tolerance from its centroid.
     assert settle_problems(SETTINGS, noise_tolerance=0.02, progress_tolerance=0.05) == []

@@ -24,6 +24,7 @@ from typing import TYPE_CHECKING, Any
 from coverage_fleet.errors import ConfigError
 from coverage_fleet.inputs.fields import Collector, number_fault
 from coverage_fleet.inputs.outputs import check_output_location
+from coverage_fleet.ros.launcher_contract import EXIT_ROBOTS_MISSING
 
 from .graph import SIMULATION_MODES, SimulationMode, fleet_nodes, select_nodes
 from .launcher import SAFETY_CAUTION, GraphProcesses, StopSignals, ros_environment
@@ -348,6 +349,13 @@ def _watch(graph: GraphProcesses, wait: Callable[[float], None] = time.sleep) ->
             if node.spec.role == SIMULATOR_ROLE and code == 0:
                 print("launch: the simulation is over", flush=True)
                 return status
+            if node.spec.role == SIMULATOR_ROLE and code == EXIT_ROBOTS_MISSING:
+                print(
+                    "launch: the simulation is over, but not with the whole fleet: a "
+                    f"controller was not answering (see {node.log_path})",
+                    file=sys.stderr, flush=True,
+                )
+                return EXIT_ROBOTS_MISSING
             if node.spec.role.startswith("controller"):
                 # A fault in one robot never takes the fleet down: the others go on.
                 print(
@@ -357,9 +365,10 @@ def _watch(graph: GraphProcesses, wait: Callable[[float], None] = time.sleep) ->
                 )
                 status = EXIT_NODE_DIED
                 continue
+            partial = "; the trial is partial" if node.spec.role == SIMULATOR_ROLE else ""
             print(
                 f"launch: {node.spec.label} exited with status {code} "
-                f"(see {node.log_path}); stopping the graph",
+                f"(see {node.log_path}); stopping the graph{partial}",
                 file=sys.stderr, flush=True,
             )
             return EXIT_NODE_DIED

@@ -14,6 +14,10 @@ closer by the progress tolerance. So "settled" is judged on what the fleet is do
              tolerances leave a robot short of its centroid);
     moving:  anything else.
 
+A robot of the roster that is not taking part (its state or controller not live, so the
+partition left it out) is not near its centroid: the fleet is never "settled" without it,
+only "stuck" once the rest has been still for `stuck_timeout` (`absent` in `update`).
+
 How the tolerances must relate. The gate opens only when some robot is closer than at the
 commit by `progress_tolerance` while no robot is farther by more than `noise_tolerance`. A
 fleet can therefore come to a stop with the gate shut for good while a robot is still up to
@@ -47,7 +51,7 @@ Plain Python: the offline simulation and the ROS gate node call the same object.
 
 from __future__ import annotations
 
-from collections.abc import Mapping
+from collections.abc import Collection, Mapping
 from dataclasses import dataclass
 from typing import Literal
 
@@ -148,9 +152,11 @@ class SettleMonitor:
         speeds: Mapping[str, float],
         centroids: Mapping[str, np.ndarray],
         gate_shut: bool,
+        absent: Collection[str] = (),
     ) -> SettleStatus:
         """The status after this tick. `positions` and `centroids` (of each robot's current
-        cell) in metres, `speeds` in m/s; all three must name the same robots."""
+        cell) in metres, `speeds` in m/s; all three must name the same robots. `absent`:
+        roster robots not taking part (never settled while there are any)."""
         robots = frozenset(positions)
         if set(speeds) != robots or set(centroids) != robots:
             raise ValueError(
@@ -168,7 +174,7 @@ class SettleMonitor:
             float(np.linalg.norm(np.asarray(positions[n], float) - np.asarray(centroids[n], float)))
             for n in robots
         ]
-        self.largest_distance = max(distances)
+        self.largest_distance = np.inf if absent else max(distances)
         self.largest_speed = max(float(speeds[n]) for n in robots)
         still = gate_shut and self.largest_speed <= self.settings.speed
         near = still and self.largest_distance <= self.settings.distance

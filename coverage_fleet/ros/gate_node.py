@@ -313,6 +313,9 @@ class GateNode(Node):
             {n: self.speeds.get(n, np.inf) for n in candidates.positions},
             candidates.centroids,
             gate_shut,
+            # A robot the partition left out keeps the fleet from "settled": the run must
+            # not end as if the whole fleet had reached its configuration.
+            absent=[n for n in self.names if n not in candidates.positions],
         )
         if status != self.settling:
             self.settling = status
@@ -320,6 +323,12 @@ class GateNode(Node):
             if status == "settled":
                 self.get_logger().info(
                     f"fleet settled within tolerance in generation {self.gate.generation}"
+                )
+            elif status == "stuck" and len(candidates.positions) < len(self.names):
+                missing = [n for n in self.names if n not in candidates.positions]
+                self.get_logger().warning(
+                    f"fleet stuck in generation {self.gate.generation}: the others are still "
+                    f"but {', '.join(missing)} not taking part (left out by the partition)"
                 )
             elif status == "stuck":
                 self.get_logger().warning(

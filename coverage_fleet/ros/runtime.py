@@ -59,6 +59,8 @@ class StopSignals:
     def __init__(self) -> None:
         self._lock = threading.Lock()
         self._received = False
+        #: The first stop signal that arrived (its number), for the nodes' exit status.
+        self.number: int | None = None
         self._guard = None
         read_end, write_end = os.pipe()
         os.set_blocking(write_end, False)
@@ -77,6 +79,8 @@ class StopSignals:
             if not received or received[0] in STOP_SIGNALS:
                 with self._lock:
                     self._received = True
+                    if self.number is None and received:
+                        self.number = received[0]
                     if self._guard is not None:
                         self._guard.trigger()
 
@@ -147,7 +151,7 @@ def run_nodes(
     except RunFinished as finished:
         status = finished.status
     except (StopRequested, KeyboardInterrupt, ExternalShutdownException):
-        status = 0
+        status = max((_status_on_stop(n, stop_signals.number) for n in nodes), default=0)
     except Exception:
         # A signal during start-up shuts the context down under the node being built.
         if rclpy.ok():
@@ -159,6 +163,14 @@ def run_nodes(
             node.destroy_node()
         rclpy.try_shutdown()
     return status
+
+
+def _status_on_stop(node: Node, number: int | None) -> int:
+    """A stop signal is a clean end (0) unless the node says otherwise: its optional
+    `status_on_stop(signal number or None)` (the simulator stopped before its run was
+    over)."""
+    status_on_stop = getattr(node, "status_on_stop", None)
+    return 0 if status_on_stop is None else int(status_on_stop(number))
 
 
 def _before_stop(node: Node, program: str) -> None:

@@ -35,6 +35,7 @@ and dropped.
 
 from __future__ import annotations
 
+import signal
 import time as wallclock
 
 import numpy as np
@@ -63,12 +64,11 @@ from .conversions import (
 )
 from .fleet_stop import listen_to_fleet_stop
 from .inbox import Inbox
+from .launcher_contract import EXIT_ROBOTS_MISSING, EXIT_STOPPED_EARLY
 from .parameters import declare
 from .runtime import RunFinished, main_for
 
 MODES = ("realtime", "lockstep")
-#: Exit status of a run that ended with robots whose controllers were not answering.
-EXIT_ROBOTS_MISSING = 3
 
 
 class SimulatorNode(Node):
@@ -328,6 +328,16 @@ class SimulatorNode(Node):
         if self.stop_when_settled and self.settling in ("settled", "stuck"):
             ending = "settled within tolerance" if self.settling == "settled" else "stuck"
             self._finish(f"run over at t = {time:.2f} s (fleet {ending})")
+
+    def status_on_stop(self, number: int | None) -> int:
+        """Exit status when a stop signal ends the process (see runtime.run_nodes)."""
+        name = signal.Signals(number).name if number else "a stop request"
+        time = self.plants.time
+        self.get_logger().warning(
+            f"stopped by {name} at t = {time:.2f} s, before the run was over "
+            f"(duration {self.duration:g} s)"
+        )
+        return 0 if number in (None, signal.SIGINT) else EXIT_STOPPED_EARLY
 
     def _finish(self, why: str) -> None:
         missing = self.missing()

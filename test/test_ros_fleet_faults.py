@@ -1,0 +1,104 @@
+"""Faults of whole processes in a lockstep run of the graph (`coverage-fleet launch
+--headless-sim`, four rovers, real node processes over DDS on loopback):
+
+- one controller SIGSTOPped: the simulator marks it not answering and brakes its robot, the
+  others go on; the run must not end as a clean "settled" with that robot away from its
+  target: the settle monitor calls the fleet stuck (a robot left out is not at its centroid:
+  a centroidal Voronoi configuration has every generator at its cell's centroid, Du, Faber
+  & Gunzburger, SIAM Review 41(4), 1999, sec. 1) and the launcher ends with status 3,
+  naming the robot;
+- the simulator stopped (SIGTERM) a few seconds into the run: the launcher says so, ends
+  with a failure status, and still writes the trial of what was recorded.
+
+Judged by exit statuses, log lines and the trial written, never by timings.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import re
+import signal
+import sys
+from pathlib import Path
+
+import pytest
+
+pytest.importorskip("rclpy", reason="ROS 2 wheels not installed (scripts/setup_env.sh)")
+
+from support_processes import WatchedProcess
+
+MISSION = """\
+name: yard_process_faults   # invented test scenario: four rovers in a small yard
+region: {vertices: [[0, 0], [8, 0], [8, 6], [0, 6]]}
+density: {kind: uniform}
+roster:
+  - {name: rover_a, vehicle: differential_drive, initial_pose: [1.0, 1.0, 0.0]}
+  - {name: rover_b, vehicle: differential_drive, initial_pose: [2.5, 1.0, 0.0]}
+  - {name: rover_c, vehicle: differential_drive, initial_pose: [1.0, 2.5, 0.0]}
+  - {name: rover_d, vehicle: differential_drive, initial_pose: [2.5, 2.5, 0.0]}
+gate: {noise_tolerance: 0.02, progress_tolerance: 0.05}
+settle: {distance: 0.1, speed: 0.02, dwell: 1.0, stuck_timeout: 3.0}
+simulation: {duration: 60.0, seed: 1, plant_substeps: 4}
+"""
+PATIENCE = 400.0
+
+
+class Launch(WatchedProcess):
+    def __init__(self, folder: Path) -> None:
+        mission = folder / "mission.yaml"
+        mission.write_text(MISSION)
+        self.trial = folder / "trial"
+        self.logs = Path(f"{self.trial}.logs")
+        super().__init__(
+            [sys.executable, "-m", "coverage_fleet.cli.main", "launch", str(mission),
+             "--headless-sim", "--out", str(self.trial)],
+            PATIENCE, env=os.environ,
+        )
+
+    def pid(self, label: str) -> int:
+        found = re.search(rf"^\s+{re.escape(label)}\s+pid (\d+)", self.output, re.MULTILINE)
+        assert found, self.output[-3000:]
+        return int(found.group(1))
+
+    def log(self, name: str) -> str:
+        path = self.logs / f"{name}.log"
+        return path.read_text() if path.exists() else ""
+
+    def wait_for_log(self, name: str, text: str) -> None:
+        self.wait_until(lambda: text in self.log(name), f"{text!r} in {name}.log")
+
+
+def test_a_stopped_controller_never_lets_the_run_end_settled(tmp_path: Path) -> None:
+    run = Launch(tmp_path)
+    run.wait_for_log("base_station", "generation 2 committed")
+    controller = run.pid("rover_d/controller")
+    os.kill(controller, signal.SIGSTOP)
+    try:
+        run.wait_for_log("simulator", "run over at")
+    finally:
+        os.kill(controller, signal.SIGCONT)  # let it stop cleanly with the rest
+    status = run.wait()
+    simulator = run.log("simulator")
+    assert "rover_d: no answer" in simulator, simulator[-3000:]
+    assert "not with the whole fleet: rover_d" in simulator, simulator[-3000:]
+    assert "(fleet settled" not in simulator, simulator[-3000:]
+    assert status == 3, run.output[-3000:]
+    assert "not with the whole fleet" in run.output
+    metrics = json.loads((run.trial / "report" / "metrics.json").read_text())
+    assert metrics["outcome"] != "settled", metrics["outcome"]
+    # The others went on without rover_d: a roster change committed after it was lost.
+    assert "rover_d leaves the gate" in run.log("base_station")
+
+
+def test_a_simulator_stopped_mid_run_gives_a_clear_outcome_and_a_trial(tmp_path: Path) -> None:
+    run = Launch(tmp_path)
+    run.wait_for_log("base_station", "generation 1 committed")
+    os.kill(run.pid("simulator"), signal.SIGTERM)
+    status = run.wait()
+    assert "stopped by SIGTERM" in run.log("simulator"), run.log("simulator")[-3000:]
+    assert "simulator exited with status 4" in run.output, run.output[-3000:]
+    assert "the simulation is over" not in run.output
+    assert status == 1, run.output[-3000:]
+    assert (run.trial / "report" / "metrics.json").is_file(), run.output[-3000:]
+    assert "Traceback" not in run.output, run.output[-3000:]
