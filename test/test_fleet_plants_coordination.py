@@ -125,3 +125,42 @@ def test_a_robot_left_out_by_the_partition_leaves_the_gate_and_rejoins() -> None
     assert set(without.opening.targets) == {"a"}
     back = keeper.offer(candidates({"a": [2.0, 2.0], "b": [8.0, 2.0]}, 2.0))
     assert back.joined == ("b",) and back.opening.reason == "roster"
+
+
+def test_a_robot_farther_than_at_the_commit_for_the_stall_timeout_is_benched_and_rejoins() -> None:
+    """Issue 9: a robot pushed out of the region kept the gate shut for good (nobody may be
+    farther for the gate to open, control/gate.py). After stall_timeout it leaves the
+    roster so the others get new targets; back within its distance it rejoins."""
+    keeper = GateKeeper(GateSettings(noise_tolerance=0.02, progress_tolerance=0.05), 3.0)
+    start = {"a": [2.0, 2.0], "b": [8.0, 2.0]}
+    opening = keeper.offer(candidates(start, 0.0)).opening
+    keeper.acknowledge("a", 0)
+    keeper.acknowledge("b", 0)
+    target_b = opening.targets["b"]
+    pushed = {"a": [2.0, 2.0], "b": [11.9, 7.9]}  # b driven off, a waiting
+    assert np.linalg.norm(np.array(pushed["b"]) - target_b) > opening.distances["b"]
+    decisions = [keeper.offer(candidates(pushed, t)) for t in (1.0, 2.0, 3.9)]
+    assert all(d.opening is None and not d.stalled for d in decisions)  # within the timeout
+    benched = keeper.offer(candidates(pushed, 4.0))
+    assert [name for name, _ in benched.stalled] == ["b"]
+    assert "farther from its target than at the commit" in benched.stalled[0][1]
+    # The rest goes on at once: a roster commit for a alone.
+    assert benched.opening is not None and benched.opening.reason == "roster"
+    assert set(benched.opening.targets) == {"a"}
+    assert keeper.offer(candidates(pushed, 5.0)).rejoined == ()  # still far: stays out
+    # b back at its place of generation 0: it rejoins, and the next commit includes it.
+    back = keeper.offer(candidates(start, 6.0))
+    assert back.rejoined == ("b",) and back.joined == ("b",)
+    assert back.opening is not None and set(back.opening.targets) == {"a", "b"}
+
+
+def test_without_a_stall_timeout_a_farther_robot_keeps_the_gate_shut() -> None:
+    """The positive control: the default keeper (no timeout) never benches anyone."""
+    keeper = GateKeeper(GateSettings())
+    keeper.offer(candidates({"a": [2.0, 2.0], "b": [8.0, 2.0]}, 0.0))
+    keeper.acknowledge("a", 0)
+    keeper.acknowledge("b", 0)
+    pushed = {"a": [2.0, 2.0], "b": [11.9, 7.9]}
+    assert all(
+        keeper.offer(candidates(pushed, t)).opening is None for t in np.arange(1.0, 100.0, 5.0)
+    )

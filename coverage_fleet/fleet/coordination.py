@@ -14,6 +14,12 @@ each tick):
 - a candidates message partitioned with another density than the last commit's (its
   `density_version`, see fleet/density_updates.py) makes the gate commit it (reason
   "density");
+- a robot that has been farther from its target than at the commit (beyond the noise
+  tolerance) for `stall_timeout` seconds blocks the gate for everyone (nobody may be
+  farther for it to open): it is benched, leaving the roster (reason in the decision), so
+  the rest of the fleet gets new targets; it rejoins once it is back within its distance at
+  the commit of that generation (it can make progress again, e.g. after the geofence
+  brought it back inside);
 - the candidates are offered to the gate.
 
 Offline every robot receives its target at once, so every robot acknowledges a generation
@@ -22,6 +28,7 @@ as soon as it is committed.
 
 from __future__ import annotations
 
+import math
 from collections.abc import Mapping
 from dataclasses import dataclass
 
@@ -87,18 +94,27 @@ class GateDecision:
     opening: GateOpening | None
     joined: tuple[str, ...]
     left: tuple[str, ...]
+    #: Robots benched by this offer, with the reason.
+    stalled: tuple[tuple[str, str], ...] = ()
+    #: Benched robots back in the roster with this offer.
+    rejoined: tuple[str, ...] = ()
 
 
 class GateKeeper:
     """The reference gate fed with candidates and acknowledgements (see the module
     docstring)."""
 
-    def __init__(self, settings: GateSettings) -> None:
+    def __init__(self, settings: GateSettings, stall_timeout: float = math.inf) -> None:
         self.gate = ReferenceGate(settings)
+        self.stall_timeout = float(stall_timeout)
         #: robot -> generation its newest progress report names
         self._acknowledged: dict[str, int] = {}
         #: density version of the candidates last committed (None before the first)
         self.density_version: int | None = None
+        #: robot -> time since which it has been farther than at the commit
+        self._farther_since: dict[str, float] = {}
+        #: benched robot -> (its target, distance at the commit) when it was benched
+        self.benched: dict[str, tuple[np.ndarray, float]] = {}
 
     def acknowledge(self, name: str, generation: int | None) -> None:
         """`name`'s newest progress report names `generation` (None: a generation the gate
@@ -112,7 +128,8 @@ class GateKeeper:
         return self._acknowledged.get(name) == self.gate.generation
 
     def offer(self, candidates: Candidates) -> GateDecision:
-        present = list(candidates.positions)
+        rejoined = self._rejoin(candidates)
+        present = [n for n in candidates.positions if n not in self.benched]
         left = tuple(n for n in self.gate.robots if n not in present)
         for name in left:
             self.gate.remove_robot(name)
@@ -127,9 +144,49 @@ class GateKeeper:
         if self.density_version is not None and candidates.density_version != \
                 self.density_version:
             self.gate.change_density()
+        stalled = self._bench_stalled(candidates.time)
+        offered = [n for n in present if n not in self.benched]
         opening = self.gate.offer(
-            candidates.centroids, candidates.positions, candidates.cost, candidates.time
+            {n: candidates.centroids[n] for n in offered},
+            {n: candidates.positions[n] for n in offered},
+            candidates.cost,
+            candidates.time,
         )
         if opening is not None:
             self.density_version = candidates.density_version
-        return GateDecision(opening, joined, left)
+        return GateDecision(opening, joined, left, stalled, rejoined)
+
+    def _bench_stalled(self, time: float) -> tuple[tuple[str, str], ...]:
+        """Bench robots farther than at the commit for stall_timeout (module docstring)."""
+        stalled = []
+        for name, standing in self.gate.progress().items():
+            farther = standing.distance_now is not None and not standing.no_farther
+            if not farther:
+                self._farther_since.pop(name, None)
+                continue
+            since = self._farther_since.setdefault(name, float(time))
+            if time - since >= self.stall_timeout:
+                self.benched[name] = (self.gate.targets[name].copy(), standing.distance_at_commit)
+                stalled.append((
+                    name,
+                    f"farther from its target than at the commit ({standing.distance_now:.2f} "
+                    f"m > {standing.distance_at_commit:.2f} m) for {time - since:.1f} s",
+                ))
+        for name, _ in stalled:
+            self.gate.remove_robot(name)
+            self._farther_since.pop(name, None)
+        return tuple(stalled)
+
+    def _rejoin(self, candidates: Candidates) -> tuple[str, ...]:
+        """Benched robots that are back within their distance at the commit (or that the
+        partition left out: they join afresh when they are live again)."""
+        back = []
+        tolerance = self.gate.settings.noise_tolerance
+        for name, (target, at_commit) in list(self.benched.items()):
+            position = candidates.positions.get(name)
+            if position is None:
+                del self.benched[name]
+            elif float(np.linalg.norm(position - target)) <= at_commit + tolerance:
+                del self.benched[name]
+                back.append(name)
+        return tuple(back)

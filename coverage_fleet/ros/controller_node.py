@@ -38,6 +38,12 @@ frame (throttled warning, counted on /diagnostics). A dropped state is never sol
 newest good state ages, and the watchdog brakes once it is stale. States beyond
 `max_state_rate` per second (a flood on the robot's odometry) are dropped and counted too,
 so that a flood cannot make the controller flood the rest of the graph with answers.
+
+Geofence (control/geofence.py): a robot more than `geofence_margin` outside the region gets
+its braking input and an ERROR diagnostic; once slower than `geofence_rest_speed` a return
+plan (the MPC on a problem shifted inside, position invariance) brings it back, then normal
+tracking resumes. Progress reports go on throughout (distance to the committed target), so
+the gate sees that the robot is farther than at the commit.
 """
 
 from __future__ import annotations
@@ -53,6 +59,7 @@ from rclpy.lifecycle import LifecycleNode, LifecycleState, TransitionCallbackRet
 from std_msgs.msg import UInt32
 
 from coverage_fleet.control.controller import RobotController
+from coverage_fleet.control.geofence import BRAKING, INSIDE, RETURNING, Geofence, GeofenceSettings
 from coverage_fleet.control.sampling import SampledController
 from coverage_fleet.control.terminal import terminal_for_vehicle
 from coverage_fleet.errors import ConfigError
@@ -121,9 +128,27 @@ class ControllerNode(LifecycleNode):
             (1.0, 1e5),
         )
         self.state_limit = RateLimit(max_state_rate, max(1.0, max_state_rate / 10.0))
+        geofence = GeofenceSettings(
+            margin=declare(
+                self, "geofence_margin", 0.5,
+                "Metres outside the region beyond which the robot brakes and then returns.",
+                (0.0, 1000.0),
+            ),
+            rest_speed=declare(
+                self, "geofence_rest_speed", 0.05,
+                "Planar speed (m/s, odom) below which a robot outside may start its return.",
+                (1e-6, 100.0),
+            ),
+            inset=declare(
+                self, "geofence_inset", 0.5,
+                "Metres inside the boundary that the return plan aims for.", (0.0, 1000.0),
+            ),
+        )
         self.robot = robot_name or self.get_namespace().strip("/").split("/")[-1]
         mission = load_mission(mission_file)
         self.state_checks = declare_state_checks(self, mission.region, self.state_timeout)
+        self.geofence = Geofence(mission.region, geofence)
+        self.speed = 0.0
         self.inbox = Inbox(self)
         entry = next((e for e in mission.roster if e.name == self.robot), None)
         if entry is None:
@@ -240,6 +265,7 @@ class ControllerNode(LifecycleNode):
         if good is None:
             return
         odom, stamp = good
+        self.speed = float(np.hypot(odom.body_vx, odom.body_vy))
         self.state = np.asarray(self.model.state_from_odometry(odom), float)
         self.state_time = stamp
         if self.armed:
@@ -299,10 +325,19 @@ class ControllerNode(LifecycleNode):
 
     def _control(self) -> None:
         x = self.state
-        answer = self.controller.answer(x, self.state_time)
-        if answer.step is not None:
-            step = answer.step
-            self._publish_plan(step)
+        before = self.geofence.mode
+        mode = self.geofence.update(self.model.position(x), self.speed)
+        if mode != before:
+            self._log_geofence(mode)
+        if mode == INSIDE:
+            answer = self.controller.answer(x, self.state_time)
+            u, step, shift = answer.input, answer.step, None
+            progress = answer.progress
+        else:
+            u, step, shift = self._outside(x, mode)
+            progress = self.controller.tracker.observe(self.model.position(x))
+        if step is not None:
+            self._publish_plan(step, shift)
             self.solve_pub.publish(
                 solve_to_msg(
                     SolveValues(
@@ -311,9 +346,8 @@ class ControllerNode(LifecycleNode):
                     )
                 )
             )
-        u = self.controller.brake(x) if self.fleet_stopped else answer.input
+        u = self.controller.brake(x) if self.fleet_stopped else u
         self.cmd_pub.publish(command_to_msg(self.model.command_from_input(u, x)))
-        progress = answer.progress
         if progress is None:
             report = ProgressValues(0, np.nan, np.nan, self.state_time)
         else:
@@ -325,8 +359,30 @@ class ControllerNode(LifecycleNode):
             )
         self.progress_pub.publish(progress_to_msg(report))
 
-    def _publish_plan(self, step) -> None:
+    def _outside(self, x: np.ndarray, mode: str):
+        """(input, solve step or None, shift of the plan) outside the geofence."""
+        if mode == BRAKING:
+            return self.controller.brake(x), None, None
+        problem = self.geofence.return_problem(self.model.position(x))
+        shifted = x.copy()
+        shifted[list(self.model.position_indices)] += problem.shift
+        step = self.controller.controller.step(shifted, problem.target)
+        self.controller.held_input = np.asarray(step.input, float)
+        return self.controller.held_input.copy(), step, problem.shift
+
+    def _log_geofence(self, mode: str) -> None:
+        where = f"{self.geofence.outside:.2f} m outside the region"
+        if mode == BRAKING:
+            self.get_logger().error(f"{self.robot}: {where} (geofence): braking")
+        elif mode == RETURNING:
+            self.get_logger().warning(f"{self.robot}: {where}, at rest: returning inside")
+        else:
+            self.get_logger().info(f"{self.robot}: back inside the region: tracking")
+
+    def _publish_plan(self, step, shift: np.ndarray | None = None) -> None:
         positions = np.asarray(step.plan_positions, float).reshape(-1, 2)
+        if shift is not None:  # a return plan: back to where the robot really is
+            positions = positions - shift
         # Poses face along the path (the plan carries positions only).
         heading = np.arctan2(*np.diff(positions, axis=0).T[::-1]) if len(positions) > 1 else []
         yaws = [*heading, heading[-1]] if len(heading) else [0.0] * len(positions)
@@ -344,6 +400,10 @@ class ControllerNode(LifecycleNode):
             level, message = DiagnosticStatus.ERROR, "odometry stale: braking"
         elif self.fleet_stopped:
             level, message = DiagnosticStatus.WARN, "fleet stop: braking"
+        elif self.geofence.mode != INSIDE:
+            action = "braking" if self.geofence.mode == BRAKING else "returning inside"
+            level = DiagnosticStatus.ERROR
+            message = f"outside the geofence ({self.geofence.outside:.2f} m): {action}"
         elif self.inbox.new_drops():
             level, message = DiagnosticStatus.WARN, "messages dropped (see dropped.*)"
         elif step is not None and step.used_fallback:
@@ -363,6 +423,8 @@ class ControllerNode(LifecycleNode):
             # the commit stamp of the target this robot tracks (0 = no target yet).
             "generation": "" if self.fleet_generation is None else self.fleet_generation,
             "target_committed_at": f"{self.generation_stamp_ns * 1e-9:.3f}",
+            "geofence": self.geofence.mode,
+            "outside_m": f"{self.geofence.outside:.3f}",
             **self.inbox.diagnostic_values([self.robot]),
         }
         array = DiagnosticArray()

@@ -16,7 +16,10 @@ falls even though reports and partitions arrive at different moments. (The dista
 report is the controller's own view, for monitoring.)
 
 The robots in a candidates message are the gate's roster: robots the partition left out
-leave the gate, and the next offer is committed for the remaining ones. These rules live in
+leave the gate, and the next offer is committed for the remaining ones. A robot farther
+from its target than at the commit for `stall_timeout` (pushed away, outside the geofence)
+would keep the gate shut for everyone: it leaves the roster (logged with the reason) and
+rejoins once it is back within its distance at the commit. These rules live in
 the core (fleet/coordination.py, GateKeeper); this node converts messages and calls it.
 
 After every offer the settle monitor (coverage_fleet.fleet.settling, the object the offline
@@ -135,7 +138,13 @@ class GateNode(Node):
                 Problem("reference_gate parameters", names[key], message)
                 for key, message in problems
             ])
-        self.keeper = GateKeeper(settings)
+        stall_timeout = declare(
+            self, "stall_timeout", 5.0,
+            "Seconds (ROS clock) a robot may be farther from its target than at the commit "
+            "(it blocks the gate for everyone) before it leaves the gate's roster; it rejoins "
+            "when it is back within that distance.", (0.01, 3600.0),
+        )
+        self.keeper = GateKeeper(settings, stall_timeout)
         self.gate = self.keeper.gate
         self.monitor = SettleMonitor(settle)
         #: robot -> planar speed from its latest odometry (m/s)
@@ -229,6 +238,10 @@ class GateNode(Node):
         decision = self.keeper.offer(candidates)
         for name in decision.left:
             self.get_logger().warning(f"{name} leaves the gate (left out by the partition)")
+        for name, reason in decision.stalled:
+            self.get_logger().warning(f"{name} leaves the gate: {reason}; the others go on")
+        for name in decision.rejoined:
+            self.get_logger().info(f"{name} rejoins the gate (back within its distance)")
         if decision.opening is not None:
             self._publish_opening(decision.opening, {n: i for i, n in names.items()})
         self._update_settling(candidates, gate_shut=decision.opening is None)
@@ -294,6 +307,7 @@ class GateNode(Node):
             "progress_tolerance": repr(self.gate.settings.progress_tolerance),
             "roster": ",".join(self.gate.robots),
             "not_in_gate": ",".join(missing),
+            "benched": ",".join(self.keeper.benched),
             **self.inbox.diagnostic_values(["candidates", *self.names]),
         }
         array = DiagnosticArray()
