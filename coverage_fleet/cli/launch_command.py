@@ -355,7 +355,8 @@ def _watch(graph: GraphProcesses, wait: Callable[[float], None] = time.sleep) ->
                     f"controller was not answering (see {node.log_path})",
                     file=sys.stderr, flush=True,
                 )
-                return EXIT_ROBOTS_MISSING
+                # A controller that died already set the status: keep that, it says more.
+                return status or EXIT_ROBOTS_MISSING
             if node.spec.role.startswith("controller"):
                 # A fault in one robot never takes the fleet down: the others go on.
                 print(
