@@ -17,6 +17,7 @@ def generate_launch_description():
 
     share = get_package_share_directory("coverage_fleet")
     default_mission = os.path.join(share, "config", "missions", "orchard_frost_watch.yaml")
+    default_tuning = os.path.join(share, "config", "node_tuning.yaml")
 
     def nodes(context):
         duration = LaunchConfiguration("duration").perform(context)
@@ -26,6 +27,8 @@ def generate_launch_description():
             duration=float(duration) if duration else 0.0,
             density_updates=LaunchConfiguration("density_updates").perform(context).lower()
             == "true",
+            fleet=LaunchConfiguration("fleet_namespace").perform(context),
+            tuning_file=LaunchConfiguration("node_tuning").perform(context),
         )
         return launch_actions(specs)
 
@@ -44,7 +47,15 @@ def generate_launch_description():
             DeclareLaunchArgument(
                 "density_updates", default_value="false",
                 description="true: the partition node takes nav_msgs/OccupancyGrid densities "
-                "from /coverage/density (README, Density updates)",
+                "from coverage/density in the fleet namespace (README, Density updates)",
+            ),
+            DeclareLaunchArgument(
+                "node_tuning", default_value=default_tuning,
+                description="node-tuning parameter file for the base station and simulator",
+            ),
+            DeclareLaunchArgument(
+                "fleet_namespace", default_value="",
+                description="namespace of the whole fleet (two fleets in one domain)",
             ),
             OpaqueFunction(function=nodes),
         ]

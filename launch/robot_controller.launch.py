@@ -25,6 +25,7 @@ def generate_launch_description():
             LaunchConfiguration("robot").perform(context),
             LaunchConfiguration("vehicle_file").perform(context) or None,
             use_sim_time=LaunchConfiguration("use_sim_time").perform(context).lower() == "true",
+            fleet=LaunchConfiguration("fleet_namespace").perform(context),
         )
         return launch_actions([spec])
 
@@ -40,6 +41,10 @@ def generate_launch_description():
             ),
             DeclareLaunchArgument(
                 "use_sim_time", default_value="false", description="follow /clock"
+            ),
+            DeclareLaunchArgument(
+                "fleet_namespace", default_value="",
+                description="namespace of the whole fleet (two fleets in one domain)",
             ),
             OpaqueFunction(function=nodes),
         ]

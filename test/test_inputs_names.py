@@ -30,7 +30,8 @@ def rclpy_accepts(name: str) -> bool:
         validate_node_name(name)
         validate_namespace("/" + name)
         for topic in ROBOT_TOPICS:
-            validate_full_topic_name(topics.robot_topic(name, topic))
+            # Without a fleet namespace a robot topic resolves to /<robot>/<topic>.
+            validate_full_topic_name("/" + topics.robot_topic(name, topic))
     except Exception:
         return False
     return True

@@ -242,9 +242,23 @@ def test_unknown_section_and_missing_vehicle(tmp_path: Path) -> None:
     path = tmp_path / "v.yaml"
     path.write_text(yaml.safe_dump({"/**": {"ros__parameters": {"mpc": {}, "robot": {}}}}))
     found = dict(problems_of(path))
-    assert found["robot"] == "unknown key (allowed: mpc, vehicle)"
+    assert found["robot"] == "unknown key (allowed: command, mpc, vehicle)"
     assert found["vehicle"] == "is required"
     assert found["vehicle.model"].startswith("is required")
+
+
+def test_command_section_chooses_stamped_commands(tmp_path: Path) -> None:
+    rover = (REPO / "config" / "vehicles" / "differential_drive.yaml").read_text()
+    assert load_vehicle_file(REPO / "config" / "vehicles" / "differential_drive.yaml"
+                             ).command_stamped is False
+    stamped = tmp_path / "stamped.yaml"
+    stamped.write_text(rover + "    command:\n      stamped: true\n")
+    assert load_vehicle_file(stamped).command_stamped is True
+    bad = tmp_path / "bad.yaml"
+    bad.write_text(rover + "    command:\n      stamped: 'yes'\n      frame: x\n")
+    found = dict(problems_of(bad))
+    assert found["command.stamped"] == "must be true or false, got 'yes'"
+    assert found["command.frame"] == "unknown key (allowed: stamped)"
 
 
 # --- user models through an import path -------------------------------------------------

@@ -4,7 +4,12 @@ launch`). Pure Python: no launch or rclpy import, so it is testable anywhere.
 
 A NodeSpec names the console script (`ros2 run coverage_fleet <executable>`), the module
 that script runs (the launcher starts `python -m <module>` so that it works without an
-install), the node's name, namespace and parameters.
+install), the node's name, namespace, parameter files and parameters.
+
+Namespaces: with a fleet namespace (`fleet_a`) the base station and the simulator run in
+`/fleet_a` and each controller in `/fleet_a/<robot>`; every topic name is relative
+(ros/topics.py), so two fleets share a domain without hearing each other. Without one, the
+names are as before (`/coverage/...`, `/<robot>/...`).
 """
 
 from __future__ import annotations
@@ -35,12 +40,18 @@ class NodeSpec:
     name: str | None
     namespace: str = ""
     parameters: dict[str, ParameterValue] = field(default_factory=dict)
+    #: ROS 2 parameter files given before `parameters` (which win over them).
+    parameter_files: tuple[str, ...] = ()
+    #: The robot a controller serves ("" for other processes).
+    robot: str = ""
     #: The run is over when this process ends (the simulator): the launch shuts down the rest.
     ends_run: bool = False
 
     @property
     def label(self) -> str:
-        return f"{self.namespace.strip('/')}/{self.name}" if self.namespace else self.role
+        if self.robot:
+            return f"{self.namespace.strip('/')}/{self.name}"
+        return self.role
 
 
 #: console script name -> module with main(); setup.py CONSOLE_SCRIPTS lists the same.
@@ -58,19 +69,40 @@ def _spec(role: str, executable: str, name: str | None, namespace: str = "", **p
     return NodeSpec(role, executable, EXECUTABLES[executable], name, namespace, dict(params))
 
 
+def fleet_namespace(name: str) -> str:
+    """"" or "fleet_a" -> "" or "/fleet_a" (checked with the robot-name rule: one ROS name
+    segment)."""
+    from coverage_fleet.inputs.names import robot_name_problem
+
+    if not name:
+        return ""
+    problem = robot_name_problem(name)
+    if problem:
+        raise ConfigError.single("fleet namespace", name, problem)
+    return f"/{name}"
+
+
+def _tuned(spec: NodeSpec, tuning_file: str | Path | None) -> NodeSpec:
+    if not tuning_file:
+        return spec
+    return replace(spec, parameter_files=(str(Path(tuning_file).resolve()),))
+
+
 def base_station_nodes(
-    mission_file: str | Path, use_sim_time: bool = False, density_updates: bool = False
+    mission_file: str | Path, use_sim_time: bool = False, density_updates: bool = False,
+    fleet: str = "", tuning_file: str | Path | None = None,
 ) -> list[NodeSpec]:
     """The base-station part: partition node and reference gate in one process
-    (`density_updates`: the partition node takes densities from coverage/density)."""
+    (`density_updates`: the partition node takes densities from coverage/density; in the
+    fleet namespace; tuning_file: a node-tuning parameter file such as
+    config/node_tuning.yaml)."""
     mission_file = str(Path(mission_file).resolve())
-    return [
-        _spec(
-            "base_station", "coverage_fleet_base_station", None,
-            mission_file=mission_file, use_sim_time=use_sim_time,
-            density_updates=density_updates,
-        )
-    ]
+    spec = _spec(
+        "base_station", "coverage_fleet_base_station", None, fleet_namespace(fleet),
+        mission_file=mission_file, use_sim_time=use_sim_time,
+        density_updates=density_updates,
+    )
+    return [_tuned(spec, tuning_file)]
 
 
 def controller_node_spec(
@@ -78,27 +110,31 @@ def controller_node_spec(
     robot: str,
     vehicle_file: str | Path | None = None,
     use_sim_time: bool = False,
+    fleet: str = "",
 ) -> NodeSpec:
-    """One robot's controller in the robot's namespace (vehicle file: the roster's unless
-    given)."""
-    return _spec(
-        f"controller {robot}", "coverage_fleet_controller", "controller", f"/{robot}",
+    """One robot's controller in the robot's namespace (under the fleet namespace, if any;
+    vehicle file: the roster's unless given)."""
+    spec = _spec(
+        f"controller {robot}", "coverage_fleet_controller", "controller",
+        f"{fleet_namespace(fleet)}/{robot}",
         mission_file=str(Path(mission_file).resolve()),
         vehicle_file=str(Path(vehicle_file).resolve()) if vehicle_file else "",
         robot_name=robot,
         use_sim_time=use_sim_time,
     )
+    return replace(spec, robot=robot)
 
 
 def simulator_node_spec(
     mission_file: str | Path, mode: SimulationMode, stop_when_settled: bool = True,
-    duration: float = 0.0, recorded: bool = False,
+    duration: float = 0.0, recorded: bool = False, fleet: str = "",
+    tuning_file: str | Path | None = None,
 ) -> NodeSpec:
     """The headless simulator (the clock source: it never uses sim time itself). In
     lockstep it starts once each robot's odom has its controller and the partition node
     (and the recorder, when `recorded`) as subscribers, so nobody misses the first steps."""
     spec = _spec(
-        "simulator", "coverage_fleet_simulator", "simulator",
+        "simulator", "coverage_fleet_simulator", "coverage_simulator", fleet_namespace(fleet),
         mission_file=str(Path(mission_file).resolve()),
         mode=mode,
         stop_when_settled=stop_when_settled,
@@ -106,7 +142,7 @@ def simulator_node_spec(
         odom_subscribers=3 if recorded else 2,
         use_sim_time=False,
     )
-    return replace(spec, ends_run=True)
+    return replace(_tuned(spec, tuning_file), ends_run=True)
 
 
 def fleet_nodes(
@@ -117,6 +153,8 @@ def fleet_nodes(
     stop_when_settled: bool = True,
     recorded: bool = False,
     density_updates: bool = False,
+    fleet: str = "",
+    tuning_file: str | Path | None = None,
 ) -> list[NodeSpec]:
     """The whole graph of a mission: base station, one controller per roster robot, and
     (when `simulation` is given) the headless simulator for the simulated robots.
@@ -137,17 +175,20 @@ def fleet_nodes(
         )
     any_real = any(not e.simulated for e in mission.roster)
     use_sim_time = simulation is not None and not any_real
-    nodes = base_station_nodes(mission.source, use_sim_time, density_updates)
+    nodes = base_station_nodes(
+        mission.source, use_sim_time, density_updates, fleet, tuning_file
+    )
     for entry in mission.roster:
         nodes.append(
             controller_node_spec(
-                mission.source, entry.name, overrides.get(entry.name), use_sim_time
+                mission.source, entry.name, overrides.get(entry.name), use_sim_time, fleet
             )
         )
     if simulation is not None and any(e.simulated for e in mission.roster):
         nodes.append(
             simulator_node_spec(
-                mission.source, simulation, stop_when_settled, duration, recorded
+                mission.source, simulation, stop_when_settled, duration, recorded, fleet,
+                tuning_file,
             )
         )
     return nodes
@@ -159,7 +200,7 @@ def select_nodes(nodes: list[NodeSpec], parts: list[str], source: str) -> list[N
     if not parts:
         return nodes
     names = {"base_station": "base_station", "simulator": "simulator"}
-    names.update({n.namespace.strip("/"): n.role for n in nodes if n.namespace})
+    names.update({n.robot: n.role for n in nodes if n.robot})
     unknown = [p for p in parts if p not in names]
     if unknown:
         robots = sorted(set(names) - {"base_station", "simulator"})
@@ -201,6 +242,8 @@ def _ros_value(value: ParameterValue) -> str:
 def ros_arguments(spec: NodeSpec) -> list[str]:
     """The --ros-args part of a command line for spec (names, namespace, parameters)."""
     args = ["--ros-args"]
+    for path in spec.parameter_files:
+        args += ["--params-file", path]
     if spec.name:
         args += ["-r", f"__node:={spec.name}"]
     if spec.namespace:
@@ -226,7 +269,7 @@ def launch_actions(specs: list[NodeSpec]) -> list:
             executable=spec.executable,
             name=spec.name,
             namespace=spec.namespace or None,
-            parameters=[spec.parameters],
+            parameters=[*spec.parameter_files, spec.parameters],
             output="screen",
             emulate_tty=True,
         )

@@ -37,7 +37,7 @@ from coverage_fleet.geometry.region import ConvexRegion
 from coverage_fleet.vehicles.base import OdometryValues
 
 #: The frame every position of the graph is expressed in (REP 105: the shared map frame).
-#: The one place nodes read it from; the frame names become node parameters later.
+#: The default of the nodes' `map_frame` parameter (ros/frames.py), which StateChecks.frame carries.
 EXPECTED_FRAME = "map"
 
 #: Reasons a message is dropped (the keys of the counts on /diagnostics).

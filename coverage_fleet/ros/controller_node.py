@@ -66,6 +66,7 @@ from coverage_fleet.errors import ConfigError
 from coverage_fleet.fleet.liveness import fresh
 from coverage_fleet.fleet.message_checks import (
     FLOOD,
+    WRONG_FRAME,
     BadMessageError,
     RateLimit,
     check_finite,
@@ -86,9 +87,11 @@ from .conversions import (
     target_from_msg,
 )
 from .fleet_stop import listen_to_fleet_stop
+from .frames import declare_frames
 from .inbox import Inbox, declare_state_checks
 from .parameters import declare
 from .runtime import main_for
+from .topics import fleet_namespace_of
 from .vehicle_parameters import controller_vehicle, declare_vehicle_parameters
 
 
@@ -145,8 +148,11 @@ class ControllerNode(LifecycleNode):
             ),
         )
         self.robot = robot_name or self.get_namespace().strip("/").split("/")[-1]
+        self.frames = declare_frames(self, self.robot)
         mission = load_mission(mission_file)
-        self.state_checks = declare_state_checks(self, mission.region, self.state_timeout)
+        self.state_checks = declare_state_checks(
+            self, mission.region, self.state_timeout, self.frames.map
+        )
         self.geofence = Geofence(mission.region, geofence)
         self.speed = 0.0
         self.inbox = Inbox(self)
@@ -177,19 +183,22 @@ class ControllerNode(LifecycleNode):
         self.fleet_generation: int | None = None
 
         self.cmd_pub = self.create_publisher(
-            command_message_type(spec.command_kind), topics.CMD_VEL, qos.COMMAND
+            command_message_type(spec.command_kind, spec.command_stamped),
+            topics.command_topic(spec.command_kind), qos.COMMAND,
         )
         self.progress_pub = self.create_publisher(Vector3Stamped, topics.PROGRESS, qos.REPORTS)
         self.plan_pub = self.create_publisher(Path, topics.PLAN, qos.DISPLAY)
         self.solve_pub = self.create_publisher(DiagnosticStatus, topics.SOLVE, qos.REPORTS)
         self.diag_pub = self.create_publisher(DiagnosticArray, topics.DIAGNOSTICS, qos.DISPLAY)
+        # Fleet-wide topics are in the fleet's namespace, one level up (topics.py).
+        fleet = fleet_namespace_of(self.get_namespace())
         # Before odom: when both are waiting, the executor takes the stop first.
         self.fleet_stopped = False
-        listen_to_fleet_stop(self, self._on_fleet_stop)
-        self.create_subscription(Odometry, topics.ODOM, self._on_odom, qos.STATE)
+        listen_to_fleet_stop(self, self._on_fleet_stop, fleet)
+        self.create_subscription(Odometry, topics.ODOM, self._on_odom, qos.STATE_IN)
         self.create_subscription(PointStamped, topics.TARGET, self._on_target, qos.LATCHED)
         self.create_subscription(
-            UInt32, topics.GENERATION,
+            UInt32, topics.in_namespace(fleet, topics.GENERATION),
             lambda msg: setattr(self, "fleet_generation", int(msg.data)), qos.LATCHED,
         )
         self.create_timer(self.sample_time, self._watchdog)
@@ -261,6 +270,14 @@ class ControllerNode(LifecycleNode):
                 self.robot, BadMessageError(FLOOD, "more states than max_state_rate"), "odometry"
             )
             return
+        if msg.child_frame_id != self.frames.base:
+            # The twist is read in the robot's base frame (REP 105); another frame's twist
+            # would be misread. Counted with the other drops (inbox.py).
+            self.inbox.rates.saw(self.robot)
+            self.inbox.drop(self.robot, BadMessageError(WRONG_FRAME, (
+                f"twist in frame {msg.child_frame_id!r}, expected the base frame "
+                f"{self.frames.base!r}")), "odometry")
+            return
         good = self.inbox.odometry(self.robot, msg, self.state_checks)
         if good is None:
             return
@@ -300,8 +317,7 @@ class ControllerNode(LifecycleNode):
     def _brake(self) -> None:
         """The braking input, when this node commands the robot at all (armed)."""
         if self.state is not None and self.armed and self.controller is not None:
-            u = self.controller.brake(self.state)
-            self.cmd_pub.publish(command_to_msg(self.model.command_from_input(u, self.state)))
+            self._send(self.controller.brake(self.state), self.state)
 
     def _stale(self) -> bool:
         now = self.get_clock().now().nanoseconds * 1e-9
@@ -322,6 +338,13 @@ class ControllerNode(LifecycleNode):
         self.get_logger().info(f"{self.robot}: stopping; braking input sent")
 
     # --- control ------------------------------------------------------------------------
+
+    def _send(self, u: np.ndarray, x: np.ndarray) -> None:
+        """One input on the command topic, plain or stamped as the vehicle file says
+        (stamped: now on the node's clock, in the robot's base frame)."""
+        stamp = self.get_clock().now().to_msg() if self.spec.command_stamped else None
+        command = self.model.command_from_input(u, x)
+        self.cmd_pub.publish(command_to_msg(command, stamp, self.frames.base))
 
     def _control(self) -> None:
         x = self.state
@@ -347,7 +370,7 @@ class ControllerNode(LifecycleNode):
                 )
             )
         u = self.controller.brake(x) if self.fleet_stopped else u
-        self.cmd_pub.publish(command_to_msg(self.model.command_from_input(u, x)))
+        self._send(u, x)
         if progress is None:
             report = ProgressValues(0, np.nan, np.nan, self.state_time)
         else:
@@ -357,7 +380,7 @@ class ControllerNode(LifecycleNode):
                 progress.distance_now,
                 self.state_time,
             )
-        self.progress_pub.publish(progress_to_msg(report))
+        self.progress_pub.publish(progress_to_msg(report, self.frames.map))
 
     def _outside(self, x: np.ndarray, mode: str):
         """(input, solve step or None, shift of the plan) outside the geofence."""
@@ -386,7 +409,9 @@ class ControllerNode(LifecycleNode):
         # Poses face along the path (the plan carries positions only).
         heading = np.arctan2(*np.diff(positions, axis=0).T[::-1]) if len(positions) > 1 else []
         yaws = [*heading, heading[-1]] if len(heading) else [0.0] * len(positions)
-        self.plan_pub.publish(plan_to_msg(positions, yaws, self.state_time, self.sample_time))
+        self.plan_pub.publish(
+            plan_to_msg(positions, yaws, self.state_time, self.sample_time, self.frames.map)
+        )
 
     def _publish_diagnostics(self) -> None:
         now = self.get_clock().now().nanoseconds * 1e-9
@@ -410,6 +435,13 @@ class ControllerNode(LifecycleNode):
             level, message = DiagnosticStatus.WARN, f"solver: {step.status} ({step.fallback})"
         else:
             level, message = DiagnosticStatus.OK, "tracking"
+        wrong_frame = self.inbox.drops.counts(self.robot).get(WRONG_FRAME, 0)
+        if wrong_frame and (self.state is None or age > self.state_timeout):
+            # Odometry keeps coming but in another frame: say so, not just "stale".
+            level, message = DiagnosticStatus.ERROR, (
+                f"odometry refused: not in the frames {self.frames.map!r} / "
+                f"{self.frames.base!r} (see {self.robot}.dropped.{WRONG_FRAME})"
+            )
         values = {
             "solve_time": f"{step.solve_time:.4f}" if step else "nan",
             "status": step.status if step else "",

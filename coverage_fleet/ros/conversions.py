@@ -41,15 +41,18 @@ from builtin_interfaces.msg import Time
 from diagnostic_msgs.msg import DiagnosticStatus, KeyValue
 from geometry_msgs.msg import (
     Accel,
+    AccelStamped,
     Point,
     PointStamped,
     Pose,
     PoseStamped,
     Quaternion,
     Twist,
+    TwistStamped,
     Vector3,
     Vector3Stamped,
     Wrench,
+    WrenchStamped,
 )
 from nav_msgs.msg import OccupancyGrid, Odometry, Path
 from std_msgs.msg import ColorRGBA, Float64MultiArray, Header, MultiArrayDimension
@@ -141,13 +144,22 @@ def odometry_from_msg(msg: Odometry) -> OdometryValues:
 # --- commands -----------------------------------------------------------------------------
 
 _COMMAND_TYPES: dict[str, type] = {"twist": Twist, "accel": Accel, "wrench": Wrench}
+#: The stamped variants (header + the plain message in a field named after the kind),
+#: what e.g. ros2_control's drive controllers subscribe to (from memory: TwistStamped on
+#: their cmd_vel since ROS 2 Jazzy).
+_STAMPED_TYPES: dict[str, type] = {
+    "twist": TwistStamped, "accel": AccelStamped, "wrench": WrenchStamped,
+}
+
+Command = Twist | Accel | Wrench | TwistStamped | AccelStamped | WrenchStamped
 
 
-def command_message_type(kind: CommandKind) -> type:
+def command_message_type(kind: CommandKind, stamped: bool = False) -> type:
     """geometry_msgs type of a command kind (twist -> Twist, accel -> Accel, wrench ->
-    Wrench)."""
+    Wrench; with stamped, TwistStamped, AccelStamped, WrenchStamped)."""
+    types = _STAMPED_TYPES if stamped else _COMMAND_TYPES
     try:
-        return _COMMAND_TYPES[kind]
+        return types[kind]
     except KeyError:
         raise ValueError(
             f"unknown command kind {kind!r}; expected one of {sorted(_COMMAND_TYPES)}"
@@ -162,7 +174,11 @@ def _triple(v: Vector3) -> tuple[float, float, float]:
     return (float(v.x), float(v.y), float(v.z))
 
 
-def command_to_msg(command: CommandValues) -> Twist | Accel | Wrench:
+def command_to_msg(
+    command: CommandValues, stamp: Time | None = None, frame_id: str = ""
+) -> Command:
+    """The plain message, or with a stamp its stamped variant (header: stamp and the
+    robot's base frame, in which a command's vectors are expressed, REP 105)."""
     msg = command_message_type(command.kind)()
     if command.kind == "wrench":
         msg.force = _vector(command.linear)
@@ -170,10 +186,18 @@ def command_to_msg(command: CommandValues) -> Twist | Accel | Wrench:
     else:
         msg.linear = _vector(command.linear)
         msg.angular = _vector(command.angular)
-    return msg
+    if stamp is None:
+        return msg
+    stamped = command_message_type(command.kind, stamped=True)()
+    stamped.header = Header(stamp=stamp, frame_id=frame_id)
+    setattr(stamped, command.kind, msg)
+    return stamped
 
 
-def command_from_msg(msg: Twist | Accel | Wrench, kind: CommandKind) -> CommandValues:
+def command_from_msg(msg: Command, kind: CommandKind) -> CommandValues:
+    """Plain or stamped command message -> values (the header is dropped)."""
+    if isinstance(msg, command_message_type(kind, stamped=True)):
+        msg = getattr(msg, kind)
     if not isinstance(msg, command_message_type(kind)):
         raise ValueError(f"a {kind} command needs a {command_message_type(kind).__name__}")
     if kind == "wrench":
@@ -184,10 +208,12 @@ def command_from_msg(msg: Twist | Accel | Wrench, kind: CommandKind) -> CommandV
 # --- targets and progress -----------------------------------------------------------------
 
 
-def target_to_msg(target_xy: Sequence[float], stamp: Time) -> PointStamped:
+def target_to_msg(
+    target_xy: Sequence[float], stamp: Time, frame_id: str = MAP_FRAME
+) -> PointStamped:
     """Committed target: the stamp identifies the generation."""
     msg = PointStamped()
-    msg.header = Header(stamp=stamp, frame_id=MAP_FRAME)
+    msg.header = Header(stamp=stamp, frame_id=frame_id)
     msg.point = Point(x=float(target_xy[0]), y=float(target_xy[1]), z=0.0)
     return msg
 
@@ -209,10 +235,10 @@ class ProgressValues:
     state_time: float
 
 
-def progress_to_msg(values: ProgressValues) -> Vector3Stamped:
+def progress_to_msg(values: ProgressValues, frame_id: str = MAP_FRAME) -> Vector3Stamped:
     msg = Vector3Stamped()
     msg.header = Header(
-        stamp=nanoseconds_to_stamp(values.generation_stamp_ns), frame_id=MAP_FRAME
+        stamp=nanoseconds_to_stamp(values.generation_stamp_ns), frame_id=frame_id
     )
     msg.vector = Vector3(
         x=float(values.distance_at_commit),
@@ -424,14 +450,15 @@ def opening_from_msg(msg: Float64MultiArray, roster_size: int | None = None) -> 
 
 
 def plan_to_msg(
-    positions: np.ndarray, yaws: Sequence[float], start: float, sample_time: float
+    positions: np.ndarray, yaws: Sequence[float], start: float, sample_time: float,
+    frame_id: str = MAP_FRAME,
 ) -> Path:
     """Predicted positions over the horizon; pose k is stamped start + k * sample_time."""
     msg = Path()
-    msg.header = Header(stamp=seconds_to_stamp(start), frame_id=MAP_FRAME)
+    msg.header = Header(stamp=seconds_to_stamp(start), frame_id=frame_id)
     for k, (xy, yaw) in enumerate(zip(np.asarray(positions, float), yaws, strict=True)):
         pose = PoseStamped()
-        pose.header = Header(stamp=seconds_to_stamp(start + k * sample_time), frame_id=MAP_FRAME)
+        pose.header = Header(stamp=seconds_to_stamp(start + k * sample_time), frame_id=frame_id)
         pose.pose = Pose(
             position=Point(x=float(xy[0]), y=float(xy[1]), z=0.0),
             orientation=yaw_to_quaternion(float(yaw)),
@@ -467,11 +494,12 @@ def partition_markers(
     cells: Mapping[int, np.ndarray],
     centroids: Mapping[int, np.ndarray],
     targets: Mapping[int, np.ndarray],
+    frame_id: str = MAP_FRAME,
 ) -> MarkerArray:
     """RViz markers: a closed outline per cell (namespace `cells`), a sphere per candidate
     centroid (`centroids`), a cylinder per committed target (`targets`), a label per robot
     (`labels`). A DELETEALL first clears robots that left."""
-    header = Header(stamp=stamp, frame_id=MAP_FRAME)
+    header = Header(stamp=stamp, frame_id=frame_id)
     markers = [Marker(header=header, action=Marker.DELETEALL)]
     for index, name in sorted(names.items()):
         if index in cells:

@@ -32,11 +32,17 @@ STOP_CAUTION = (
 )
 
 
-def listen_to_fleet_stop(node: Node, on_change: Callable[[bool], None]):
+def listen_to_fleet_stop(
+    node: Node, on_change: Callable[[bool], None], fleet_namespace: str | None = None
+):
     """Subscribe `node` to the fleet stop; `on_change(stopped)` is called for every message
-    (a repeated value is harmless: the handlers are idempotent)."""
+    (a repeated value is harmless: the handlers are idempotent). A node in a robot's
+    namespace (a controller) names its fleet's namespace (topics.fleet_namespace_of)."""
+    topic = topics.FLEET_STOP
+    if fleet_namespace is not None:
+        topic = topics.in_namespace(fleet_namespace, topic)
     return node.create_subscription(
-        Bool, topics.FLEET_STOP, lambda msg: on_change(bool(msg.data)), qos.LATCHED
+        Bool, topic, lambda msg: on_change(bool(msg.data)), qos.LATCHED
     )
 
 

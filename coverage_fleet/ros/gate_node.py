@@ -72,6 +72,7 @@ from .conversions import (
     target_to_msg,
 )
 from .fleet_stop import FleetStopService, listen_to_fleet_stop
+from .frames import declare_map_frame
 from .inbox import Inbox, declare_state_checks
 from .parameters import declare
 from .runtime import main_for
@@ -88,8 +89,11 @@ class GateNode(Node):
             "Seconds after which an odometry message is too old to give a robot's speed.",
             (0.01, 600.0),
         )
+        self.map_frame = declare_map_frame(self)
         mission = load_mission(mission_file)
-        self.state_checks = declare_state_checks(self, mission.region, state_timeout)
+        self.state_checks = declare_state_checks(
+            self, mission.region, state_timeout, self.map_frame
+        )
         self.inbox = Inbox(self)
         defaults = mission.gate
         settings = GateSettings(
@@ -167,7 +171,7 @@ class GateNode(Node):
             )
             self.create_subscription(
                 Odometry, topics.robot_topic(name, topics.ODOM),
-                lambda msg, n=name: self._on_odom(n, msg), qos.STATE,
+                lambda msg, n=name: self._on_odom(n, msg), qos.STATE_IN,
             )
         self.create_subscription(
             Float64MultiArray, topics.CANDIDATES, self._on_candidates, qos.REPORTS
@@ -254,7 +258,7 @@ class GateNode(Node):
         self.generation_of_stamp[stamp_ns] = opening.generation
         stamp = nanoseconds_to_stamp(stamp_ns)
         for name, target in opening.targets.items():
-            self.target_pubs[name].publish(target_to_msg(target, stamp))
+            self.target_pubs[name].publish(target_to_msg(target, stamp, self.map_frame))
         self.generation_pub.publish(UInt32(data=opening.generation))
         self.openings_pub.publish(
             opening_to_msg(

@@ -18,6 +18,7 @@ from rclpy.node import Node
 
 from coverage_fleet.fleet.message_checks import (
     BAD_TABLE,
+    EXPECTED_FRAME,
     BadMessageError,
     DropCounter,
     MessageRates,
@@ -36,9 +37,12 @@ Value = TypeVar("Value")
 MALFORMED = (ValueError, IndexError, TypeError, KeyError, OverflowError)
 
 
-def declare_state_checks(node: Node, region: ConvexRegion, past: float) -> StateChecks:
+def declare_state_checks(
+    node: Node, region: ConvexRegion, past: float, frame: str = EXPECTED_FRAME
+) -> StateChecks:
     """The odometry checks with the node's parameters (`past`: seconds after which a state
-    is stale, the node's own state timeout)."""
+    is stale, the node's own state timeout; `frame`: the map frame, the node's `map_frame`
+    parameter, ros/frames.py)."""
     future = declare(
         node, "stamp_future_tolerance", 1.0,
         "Seconds a state's stamp may be ahead of this node's clock; a state stamped later "
@@ -49,7 +53,7 @@ def declare_state_checks(node: Node, region: ConvexRegion, past: float) -> State
         "Metres outside the region beyond which a reported position is a localisation fault "
         "and the state is dropped.", (0.0, 1e6),
     )
-    return StateChecks(region, StampLimits(future=future, past=past), implausible)
+    return StateChecks(region, StampLimits(future=future, past=past), implausible, frame)
 
 
 class Inbox:

@@ -192,7 +192,7 @@ class LiveListener:
 
         node.create_subscription(
             Odometry, topic(topics.ODOM),
-            self._guarded(topic(topics.ODOM), lambda m: self._on_odom(robot, m)), NEWEST,
+            self._guarded(topic(topics.ODOM), lambda m: self._on_odom(robot, m)), qos.STATE_IN,
         )
         node.create_subscription(
             PointStamped, topic(topics.TARGET),

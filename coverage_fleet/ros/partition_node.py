@@ -47,6 +47,7 @@ from .conversions import (
     seconds_to_stamp,
     target_from_msg,
 )
+from .frames import declare_map_frame
 from .inbox import Inbox, declare_state_checks
 from .parameters import declare
 from .runtime import main_for
@@ -54,10 +55,11 @@ from .runtime import main_for
 
 class PartitionNode(Node):
     def __init__(self) -> None:
-        super().__init__("partition")
+        super().__init__("coverage_partition")
         mission_file = declare(
             self, "mission_file", "", "Mission file (YAML): region, density and roster."
         )
+        self.map_frame = declare_map_frame(self)
         rate = declare(
             self, "rate", 10.0, "Partitions per second (ROS clock).", (0.1, 100.0)
         )
@@ -92,7 +94,9 @@ class PartitionNode(Node):
             self, "diagnostics_period", 1.0, "Seconds between /diagnostics messages.",
             (0.05, 600.0),
         )
-        self.state_checks = declare_state_checks(self, self.mission.region, state_timeout)
+        self.state_checks = declare_state_checks(
+            self, self.mission.region, state_timeout, self.map_frame
+        )
         self.inbox = Inbox(self)
         self.names = list(self.mission.robot_names)
         self.liveness = FleetLiveness(
@@ -104,7 +108,7 @@ class PartitionNode(Node):
         for name in self.names:
             self.create_subscription(
                 Odometry, topics.robot_topic(name, topics.ODOM),
-                lambda msg, n=name: self._on_odom(n, msg), qos.STATE,
+                lambda msg, n=name: self._on_odom(n, msg), qos.STATE_IN,
             )
             self.create_subscription(
                 Vector3Stamped, topics.robot_topic(name, topics.PROGRESS),
@@ -114,9 +118,13 @@ class PartitionNode(Node):
                 PointStamped, topics.robot_topic(name, topics.TARGET),
                 lambda msg, n=name: self._on_target(n, msg), qos.LATCHED,
             )
+        #: The resolved density topic (in the fleet namespace), for the log.
+        self.density_topic = ""
         if take_density:
-            self.create_subscription(OccupancyGrid, topics.DENSITY, self._on_density,
-                                     qos.LATCHED)
+            subscription = self.create_subscription(
+                OccupancyGrid, topics.DENSITY, self._on_density, qos.LATCHED
+            )
+            self.density_topic = subscription.topic_name
         self.candidates_pub = self.create_publisher(
             Float64MultiArray, topics.CANDIDATES, qos.REPORTS
         )
@@ -150,8 +158,8 @@ class PartitionNode(Node):
     def _on_density(self, msg: OccupancyGrid) -> None:
         try:
             grid = occupancy_from_msg(msg)
-            if grid.frame_id != topics.MAP_FRAME:
-                raise ValueError(f"frame {grid.frame_id!r}, expected {topics.MAP_FRAME!r}")
+            if grid.frame_id != self.map_frame:
+                raise ValueError(f"frame {grid.frame_id!r}, expected {self.map_frame!r}")
             if abs(grid.yaw) > 1e-9:
                 raise ValueError(f"the grid is rotated (yaw {grid.yaw:.3g} rad); publish it "
                                  "aligned with the map axes")
@@ -164,7 +172,7 @@ class PartitionNode(Node):
         version = self.densities.replace(density)
         height, width = grid.cells.shape
         self.get_logger().info(
-            f"density update {version} from {topics.DENSITY}: {width} x {height} cells of "
+            f"density update {version} from {self.density_topic}: {width} x {height} cells of "
             f"{grid.resolution:g} m; the next candidates start a new generation"
         )
 
@@ -256,6 +264,7 @@ class PartitionNode(Node):
                 {index[n]: np.asarray(partition.cells[k]) for k, n in enumerate(live)},
                 values.centroids,
                 {index[n]: t for n, t in self.targets.items() if n in index},
+                self.map_frame,
             )
         )
 

@@ -4,7 +4,8 @@ Latched topics (committed targets, generation, cells, gate openings) are reliabl
 transient-local so that a node that joins late (RViz, a restarted controller, a recorder)
 gets the latest value at once. States and commands are keep-last 1: only the newest matters
 for control, and a backlog of old states would only add latency (common practice for
-feedback loops over DDS). Progress reports are reliable with a short queue so that the gate
+feedback loops over DDS). Odometry is subscribed best effort (STATE_IN) so that drivers' best-effort
+odometry is received. Progress reports are reliable with a short queue so that the gate
 and the lockstep simulator see every report.
 """
 
@@ -34,6 +35,26 @@ LATCHED = _reliable(1, latched=True)
 OPENINGS = _reliable(1000, latched=True)
 
 STATE = _reliable(1)
+
+#: Odometry as the graph's nodes subscribe to it: best effort, keep-last 1. A best-effort
+#: subscription matches reliable and best-effort publishers alike (robot drivers often
+#: publish odometry best effort, rclpy's qos_profile_sensor_data), and only the newest
+#: state matters for control. Our own publishers stay reliable (STATE).
+STATE_IN = QoSProfile(
+    history=HistoryPolicy.KEEP_LAST,
+    depth=1,
+    reliability=ReliabilityPolicy.BEST_EFFORT,
+    durability=DurabilityPolicy.VOLATILE,
+)
+
+#: The recorder's odometry subscription: best effort for the same reason, with a queue so
+#: that a burst of states is not thinned out.
+STATE_RECORDED = QoSProfile(
+    history=HistoryPolicy.KEEP_LAST,
+    depth=10,
+    reliability=ReliabilityPolicy.BEST_EFFORT,
+    durability=DurabilityPolicy.VOLATILE,
+)
 
 COMMAND = STATE
 

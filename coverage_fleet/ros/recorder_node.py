@@ -62,7 +62,7 @@ def _known(value: float) -> float | None:
 
 class RecorderNode(Node):
     def __init__(self, mission_file: str | None = None) -> None:
-        super().__init__("recorder")
+        super().__init__("coverage_recorder")
         mission_file = declare(
             self, "mission_file", mission_file or "", "Mission file (YAML) of the run."
         )
@@ -101,10 +101,11 @@ class RecorderNode(Node):
         kind = entry.vehicle.command_kind
         self.create_subscription(
             Odometry, topics.robot_topic(name, topics.ODOM),
-            lambda msg, e=entry: self._on_odom(e, msg), qos.REPORTS,
+            lambda msg, e=entry: self._on_odom(e, msg), qos.STATE_RECORDED,
         )
         self.create_subscription(
-            command_message_type(kind), topics.robot_topic(name, topics.CMD_VEL),
+            command_message_type(kind, entry.vehicle.command_stamped),
+            topics.robot_topic(name, topics.command_topic(kind)),
             lambda msg, e=entry, k=kind: self._on_command(e, msg, k), qos.REPORTS,
         )
         self.create_subscription(

@@ -35,6 +35,7 @@ and dropped.
 
 from __future__ import annotations
 
+import os
 import signal
 import time as wallclock
 
@@ -63,6 +64,7 @@ from .conversions import (
     seconds_to_stamp,
 )
 from .fleet_stop import listen_to_fleet_stop
+from .frames import declare_map_frame, default_base_frame
 from .inbox import Inbox
 from .launcher_contract import EXIT_ROBOTS_MISSING, EXIT_STOPPED_EARLY
 from .parameters import declare
@@ -73,7 +75,7 @@ MODES = ("realtime", "lockstep")
 
 class SimulatorNode(Node):
     def __init__(self) -> None:
-        super().__init__("simulator")
+        super().__init__("coverage_simulator")
         mission_file = declare(
             self, "mission_file", "", "Mission file (YAML): the roster to simulate."
         )
@@ -126,6 +128,7 @@ class SimulatorNode(Node):
             self, "diagnostics_period", 1.0, "Wall seconds between /diagnostics messages.",
             (0.05, 600.0),
         )
+        self.map_frame = declare_map_frame(self)
         if self.mode not in MODES:
             raise ConfigError.single(
                 "simulator parameters", "mode",
@@ -158,6 +161,10 @@ class SimulatorNode(Node):
         for entry in simulated:
             self._connect(entry)
         self.clock_pub = self.create_publisher(Clock, topics.CLOCK, qos.CLOCK)
+        # /clock is global (ROS convention), fleet namespaces or not: a second simulator in
+        # the domain would make every node's time jump between the two. Checked every second
+        # as discovery brings news.
+        self.create_timer(1.0, self._refuse_a_second_clock)
         self.create_subscription(String, topics.SETTLING, self._on_settling, qos.LATCHED)
         self.fleet_stopped = False
         listen_to_fleet_stop(self, self._on_fleet_stop)
@@ -185,6 +192,17 @@ class SimulatorNode(Node):
         )
         self._publish_states()
 
+    def _refuse_a_second_clock(self) -> None:
+        others = self.count_publishers(topics.CLOCK) - 1
+        if others > 0:
+            domain = os.environ.get("ROS_DOMAIN_ID", "0")
+            raise ConfigError.single(
+                f"ROS_DOMAIN_ID {domain}", topics.CLOCK,
+                f"{others} other node(s) publish /clock in this domain (another simulated "
+                "fleet?); /clock is global, so each simulated fleet needs a ROS_DOMAIN_ID of "
+                "its own",
+            )
+
     @property
     def robots(self) -> tuple[str, ...]:
         """The simulated robots."""
@@ -197,8 +215,8 @@ class SimulatorNode(Node):
         )
         kind = entry.vehicle.command_kind
         self.create_subscription(
-            command_message_type(kind),
-            topics.robot_topic(name, topics.CMD_VEL),
+            command_message_type(kind, entry.vehicle.command_stamped),
+            topics.robot_topic(name, topics.command_topic(kind)),
             lambda msg, n=name, k=kind: self._on_command(n, msg, k),
             qos.COMMAND,
         )
@@ -318,7 +336,7 @@ class SimulatorNode(Node):
             applied = None if command is None or self.fleet_stopped else command[0]
             odom = model.odometry_from_state(x, applied)
             self.odom_pubs[name].publish(
-                odometry_to_msg(odom, stamp, child_frame_id=f"{name}/base_link")
+                odometry_to_msg(odom, stamp, default_base_frame(name), self.map_frame)
             )
 
     def _finish_if_done(self) -> None:

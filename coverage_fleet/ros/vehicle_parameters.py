@@ -34,7 +34,7 @@ from coverage_fleet.inputs.fields import NumberRead, number_text
 from coverage_fleet.inputs.reader import read_yaml_file
 from coverage_fleet.vehicles.loader import VehicleSpec, load_vehicle_file, vehicle_from_document
 
-SECTIONS = ("vehicle", "mpc")
+SECTIONS = ("vehicle", "mpc", "command")
 
 #: What the common settings mean (units SI, REP 103); other keys get a generic sentence.
 MEANINGS = {
@@ -57,6 +57,7 @@ MEANINGS = {
     "mpc.steady_state_margin": "fraction of the limits the steady state keeps clear",
     "mpc.terminal_shrink": "terminal level as a fraction of the largest verified one",
     "mpc.terminal_decrease_slack": "extra terminal weight for the nonlinearity",
+    "command.stamped": "send TwistStamped/AccelStamped/WrenchStamped instead of the plain type",
 }
 
 _INT64 = 2**63 - 1
@@ -217,6 +218,7 @@ def declare_vehicle_parameters(node: Node, spec: VehicleSpec) -> list[str]:
     reads = {read.key: read for read in spec.number_reads}
     values = flatten({k: v for k, v in spec.parameters.items() if k in SECTIONS})
     values.update({key: read.value for key, read in reads.items()})
+    values.setdefault("command.stamped", spec.command_stamped)
     declared = []
     for key in sorted(values):
         value = values[key]

@@ -7,6 +7,7 @@ so the same file applies to the controller node in any robot namespace):
       ros__parameters:
         vehicle: {model: differential_drive, max_speed: 1.0, ...}
         mpc: {horizon: 20, sample_time: 0.1, ...}
+        command: {stamped: false}          # optional: TwistStamped etc. instead of Twist
 
 `vehicle.model` is a built-in name (BUILTIN_MODELS) or an import path
 "package.module:ClassName" of a VehicleModel subclass, so a user adds a model without
@@ -86,6 +87,9 @@ class VehicleSpec:
     #: Every number read, defaults included, with the range it was checked against (keys
     #: `vehicle.<name>`, `mpc.<name>`): the ranges of the declared node parameters.
     number_reads: tuple[NumberRead, ...] = ()
+    #: `command.stamped`: send the stamped message (TwistStamped, AccelStamped,
+    #: WrenchStamped) instead of the plain one.
+    command_stamped: bool = False
 
 
 def load_vehicle_file(path: str | Path) -> VehicleSpec:
@@ -115,6 +119,10 @@ def _vehicle_from_parameters(
     sections = out.fields(parameters, "")
     vehicle = sections.mapping("vehicle", REQUIRED)
     mpc_section = sections.raw("mpc", {})
+    command = out.fields(sections.raw("command", {}), "command", optional=True)
+    # Stamped commands (TwistStamped, ...) for drivers that want them; plain by default.
+    command_stamped = command.boolean("stamped", False)
+    command.check_unknown()
     sections.check_unknown()
     if vehicle is None:
         vehicle = {}
@@ -145,6 +153,7 @@ def _vehicle_from_parameters(
         cache_key=_cache_key(data, type(model)),
         parameters=parameters,
         number_reads=tuple(reads),
+        command_stamped=command_stamped,
     )
 
 
