@@ -122,17 +122,25 @@ def test_base_station_and_robot_launches_take_their_arguments(
     # A vehicle file of our own: the controller must report this file, not the roster's.
     vehicle = tmp_path / "rover_for_launch_test.yaml"
     vehicle.write_text((share / "config" / "vehicles" / "differential_drive.yaml").read_text())
+    # A node-tuning file of our own (the package's with another rate) and a fleet namespace.
+    tuning = tmp_path / "tuning_for_launch_test.yaml"
+    tuning.write_text(
+        (share / "config" / "node_tuning.yaml").read_text().replace("rate: 10.0", "rate: 2.0")
+    )
     base = LaunchRun(install_prefix, "base_station.launch.py", mission=str(mission),
-                     use_sim_time="false", density_updates="true")
+                     use_sim_time="false", density_updates="true", fleet_namespace="fleet_x",
+                     node_tuning=str(tuning))
     robot = LaunchRun(install_prefix, "robot_controller.launch.py", robot="rover_b",
-                      mission=str(mission), vehicle_file=str(vehicle), use_sim_time="false")
+                      mission=str(mission), vehicle_file=str(vehicle), use_sim_time="false",
+                      fleet_namespace="fleet_x")
     try:
         robot.wait_for(f"rover_b: differential_drive from {vehicle}")
-        base.wait_for(f"partitioning {mission.stem!r}")
-        base.wait_for("densities from /coverage/density")
+        base.wait_for(f"partitioning {mission.stem!r} for 3 robots at 2 Hz")
+        base.wait_for("densities from /fleet_x/coverage/density")
     finally:
         statuses = [run.interrupt() for run in (robot, base)]
     assert statuses == [0, 0], robot.output[-2000:] + base.output[-2000:]
-    assert "rover_b.controller" in robot.output
+    assert "fleet_x.rover_b.controller" in robot.output
+    assert "fleet_x.coverage_partition" in base.output
     assert_every_process_ended_cleanly(robot, expected=1)
     assert_every_process_ended_cleanly(base, expected=1)

@@ -136,7 +136,7 @@ class PartitionNode(Node):
         self.create_timer(diagnostics_period, self._publish_diagnostics)
         self.get_logger().info(
             f"partitioning {self.mission.name!r} for {len(self.names)} robots at {rate:g} Hz"
-            + (f"; densities from {topics.DENSITY}" if take_density else "")
+            + (f"; densities from {self.density_topic}" if take_density else "")
         )
 
     def _now(self) -> float:
