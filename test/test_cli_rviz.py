@@ -53,9 +53,11 @@ def test_a_missions_configuration_shows_cells_plans_and_odometry(tmp_path: Path)
     by_topic = {d["Topic"]["Value"]: d for d in displays if "Topic" in d}
     robots = load_mission(DEMO_MISSION).robot_names
     for robot in robots:
-        assert by_topic[topics.robot_topic(robot, topics.PLAN)]["Class"].endswith("/Path")
-        assert by_topic[topics.robot_topic(robot, topics.ODOM)]["Class"].endswith("/Odometry")
-    cells = by_topic[topics.CELLS]
+        # The graph's names are relative; the configuration names them from the root.
+        assert by_topic["/" + topics.robot_topic(robot, topics.PLAN)]["Class"].endswith("/Path")
+        assert by_topic["/" + topics.robot_topic(robot, topics.ODOM)]["Class"].endswith(
+            "/Odometry")
+    cells = by_topic["/" + topics.CELLS]
     latched = qos.LATCHED.durability == DurabilityPolicy.TRANSIENT_LOCAL
     assert latched and cells["Topic"]["Durability Policy"] == "Transient Local"
     # The namespaces shown are exactly those the partition node's markers use.

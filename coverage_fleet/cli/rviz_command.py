@@ -52,7 +52,9 @@ def _rgb(index: int) -> str:
 def _topic(name: str, depth: int, latched: bool = False) -> dict[str, Any]:
     """A display's topic with the QoS the graph publishes it with (coverage_fleet.ros.qos)."""
     return {
-        "Value": name,
+        # Absolute: the graph's names are relative (ros/topics.py); this configuration is
+        # for a fleet without a fleet namespace.
+        "Value": name if name.startswith("/") else f"/{name}",
         "Depth": depth,
         "History Policy": "Keep Last",
         "Reliability Policy": "Reliable",

@@ -104,7 +104,9 @@ def robots_in_graph(names_and_types: Iterable[tuple[str, list[str]]]) -> list[st
         match = _ODOM_TOPIC.match(name)
         if match and "nav_msgs/msg/Odometry" in types:
             robot = match.group(1)
-            if any(topics.robot_topic(robot, t) in found for t in (topics.TARGET, topics.PROGRESS)):
+            # Graph names are absolute; robot_topic is relative to the root here.
+            beside = ("/" + topics.robot_topic(robot, t) for t in (topics.TARGET, topics.PROGRESS))
+            if any(name in found for name in beside):
                 robots.append(robot)
     return sorted(robots)
 
