@@ -252,7 +252,7 @@ def test_bad_solver_settings_are_reported_together(tmp_path):
 def test_solver_failure_brakes_when_there_is_no_plan():
     """A real failure: one IPOPT iteration cannot converge from a cold start."""
     model, settings = _vehicle(REPO / "config" / "vehicles" / "multirotor.yaml")
-    starved = dataclasses.replace(settings, solver={"max_iter": 1})
+    starved = dataclasses.replace(settings, solver={"max_iter": 1, "path": "full"})
     controller = RobotController(model, starved, REGION)
     x = _start_state(model, (5.0, 5.0))
     x[2:4] = (1.5, -1.0)
@@ -324,7 +324,8 @@ def test_failed_fast_solve_is_rescued_by_ipopt():
     again by IPOPT from the same warm start; the sample still succeeds and says so."""
     model, settings = _double_integrator()
     starved = dataclasses.replace(
-        settings, solver={"plugin": "fatrop", "options": {"fatrop.max_iter": 1}}
+        settings,
+        solver={"plugin": "fatrop", "path": "full", "options": {"fatrop.max_iter": 1}},
     )
     mpc = TrackingMpc(model, starved, REGION)
     solution = mpc.solve(_start_state(model, (3.0, 3.0)), np.array([6.0, 4.0]))

@@ -259,6 +259,10 @@ CASES = [
     Case("not an option", "vehicle", "mpc.terminal", vehicle_set("mpc.terminal", "box")),
     Case("not an option", "vehicle", "mpc.solver.plugin",
          vehicle_set("mpc.solver", {"plugin": "magic"})),
+    Case("not an option", "vehicle", "mpc.solver.path",
+         vehicle_set("mpc.solver", {"path": "fastest"})),
+    Case("not an option", "vehicle", "mpc.solver.qp",
+         vehicle_set("mpc.solver", {"qp": "qrqp"})),
     # wrong length
     Case("wrong length", "mission", "roster[0].initial_pose",
          mission_set("roster[0].initial_pose", [1.0, 1.0])),

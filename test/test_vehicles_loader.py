@@ -402,3 +402,13 @@ def test_solver_vocabulary_matches_the_mpc() -> None:
     assert set(solver_chain.SOLVER_DEFAULTS) == set(SOLVER_PLUGINS)
     assert solver_chain.DEFAULT_PLUGIN in SOLVER_PLUGINS
     assert set(solver_chain.SOLVER_KEYS) == set(SOLVER_KEYS)
+
+
+def test_fast_path_vocabulary_matches_the_mpc() -> None:
+    """`mpc.solver.path` and `mpc.solver.qp` are checked against settings.SOLVER_PATHS /
+    QP_PLUGINS; the real-time path must have options for every QP plugin offered."""
+    from coverage_fleet.control import rti, solver_chain
+    from coverage_fleet.vehicles.settings import QP_PLUGINS, SOLVER_PATHS
+
+    assert set(rti.QP_DEFAULTS) == set(QP_PLUGINS)
+    assert solver_chain.DEFAULT_PATH in SOLVER_PATHS and solver_chain.DEFAULT_QP in QP_PLUGINS

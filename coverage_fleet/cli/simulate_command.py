@@ -10,6 +10,7 @@ from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any, TextIO
 
+from coverage_fleet.control.solver_chain import describe_path
 from coverage_fleet.errors import ConfigError
 from coverage_fleet.fleet.controller_pool import (
     ROBOTS_PER_WORKER_MIN,
@@ -197,6 +198,8 @@ def run(args: argparse.Namespace) -> int:
             file=sys.stderr,
         )
     print(f"simulate: controllers on {placement_text(workers)}", file=sys.stderr)
+    for line in sorted({describe_path(entry.vehicle.mpc) for entry in mission.roster}):
+        print(f"simulate: {line}", file=sys.stderr)
     progress = ProgressBar("simulate")
     path, _, metrics = simulate_to_trial(mission, out, seed, args.duration, progress, workers)
     progress.finish("done")

@@ -42,16 +42,33 @@ def write_problem_source(solver: ca.Function, folder: Path) -> Path:
     path) and return the file: its oracle and every function derived from it (nlp_f, nlp_g,
     nlp_jac_g, nlp_hess_l, ...), byte for byte what `solver.generate_dependencies` writes,
     which only writes into the working directory."""
-    generator = ca.CodeGenerator(f"{SOURCE_NAME}.c")
-    generator.add(solver.oracle())
-    for name in solver.get_function():
-        generator.add(solver.get_function(name))
+    functions = [solver.oracle()] + [solver.get_function(n) for n in solver.get_function()]
+    return _write_source(functions, SOURCE_NAME, folder)
+
+
+def _write_source(functions: list[ca.Function], stem: str, folder: Path) -> Path:
+    generator = ca.CodeGenerator(f"{stem}.c")
+    for function in functions:
+        generator.add(function)
     return Path(generator.generate(f"{folder.resolve()}{os.sep}"))
+
+
+def compiler_available() -> bool:
+    """Whether the C compiler that `compile` uses ($CC, else cc) is on the PATH."""
+    return shutil.which(os.environ.get(COMPILER_ENV, DEFAULT_COMPILER)) is not None
 
 
 def compiled_library(solver: ca.Function) -> Path:
     """Path of the shared library holding the solver's problem functions; casadi loads it
     in place of the expression graphs (pass its path to ca.nlpsol as the problem)."""
+    functions = [solver.oracle()] + [solver.get_function(n) for n in solver.get_function()]
+    return compiled_functions(functions, SOURCE_NAME)
+
+
+def compiled_functions(functions: list[ca.Function], stem: str) -> Path:
+    """Path of a shared library holding `functions` (load each with
+    ca.external(function.name(), path)); `stem` is the C file's base name (a valid C
+    identifier: casadi uses it as the symbol prefix)."""
     compiler = os.environ.get(COMPILER_ENV, DEFAULT_COMPILER)
     if shutil.which(compiler) is None:
         raise ConfigError.single(
@@ -61,13 +78,13 @@ def compiled_library(solver: ca.Function) -> Path:
         )
     with tempfile.TemporaryDirectory(prefix="coverage_fleet_mpc_") as name:
         folder = Path(name)
-        c_file = write_problem_source(solver, folder)
+        c_file = _write_source(functions, stem, folder)
         source = c_file.read_bytes()
         key = hashlib.sha256(source + ca.__version__.encode()).hexdigest()[:24]
         library = cache_directory() / f"{key}.so"
         if library.is_file():
             return library
-        built = folder / f"{SOURCE_NAME}.so"
+        built = folder / f"{stem}.so"
         command = [compiler, "-O1", "-shared", "-fPIC", str(c_file), "-o", str(built)]
         done = subprocess.run(command, capture_output=True, text=True, cwd=folder)
         if done.returncode != 0:

@@ -13,7 +13,8 @@ IEEE TAC 63(11), 2018), direct multiple shooting:
           A position(x_k) <= b - r |A_i|           (region shrunk by the footprint radius r)
           steady state: limits scaled by 1 - steady_state_margin towards rest (limits.py),
                         A position(x_s) <= b - (r + e_f) |A_i|  (e_f: terminal-set extent)
-          terminal:     ellipsoid  e_N' P e_N <= alpha   (e_N = steady_frame_error(x_N, x_s))
+          terminal:     ellipsoid  e_N' P e_N <= alpha   (e_N = steady_frame_error(x_N, x_s)),
+                        with its bounding box along the principal axes of P (implied)
                         equality   x_N = x_s
 
 The offset cost keeps the problem feasible for any target: an unreachable target yields the
@@ -33,8 +34,10 @@ import numpy as np
 from coverage_fleet.control.frames import heading_index, steady_frame_error
 from coverage_fleet.control.ingredients import TerminalIngredients
 from coverage_fleet.control.limits import input_limits, state_limits, steady_limits
+from coverage_fleet.control.rti import LeastSquaresTerm, QuadraticRow, StageLayout
 from coverage_fleet.control.solver_chain import (
     ChainResult,
+    FastProblem,
     NlpInstance,
     build_solver_chain,
     configured_plugin,
@@ -178,6 +181,11 @@ class TrackingMpc:
         free_theta = np.full(n_theta, np.inf)
 
         cost = 0
+        #: The cost as a sum of r' W r terms (the real-time path's Gauss-Newton Hessian).
+        terms: list[LeastSquaresTerm] = []
+        quadratic_rows: list[QuadraticRow] = []
+        #: Constraint rows already added when each stage starts (StageLayout).
+        stage_starts: list[int] = []
         g: list[ca.SX] = []
         lbg: list[np.ndarray] = []
         ubg: list[np.ndarray] = []
@@ -203,6 +211,7 @@ class TrackingMpc:
             # dynamics to the next stage first, then this stage's path constraints.
             x, theta = Z[k][:nx], Z[k][nx:]
             x_s = ca.mtimes(Mx, theta) + x0s
+            stage_starts.append(sum(e.shape[0] for e in g))
             w.append(Z[k])
             if k == 0:
                 lbw.append(np.concatenate([np.full(nx, -np.inf), -free_theta]))
@@ -219,6 +228,7 @@ class TrackingMpc:
             ubw.append(u_upper)
             dx, du = x - x_s, U[k] - u_s
             cost += ca.bilin(Q, dx, dx) + ca.bilin(R, du, du)
+            terms += [LeastSquaresTerm(dx, self.Q), LeastSquaresTerm(du, self.R)]
             add(Z[k + 1] - ca.vertcat(F(x, U[k]), theta), 0.0, 0.0)
             if k == 0:
                 add(x - measured, 0.0, 0.0)
@@ -244,8 +254,26 @@ class TrackingMpc:
             error = steady_frame_error(x_N, x_s, model.position_indices, self.heading)
             P = ca.DM(self.terminal.P)
             cost += ca.bilin(P, error, error)
-            add(ca.bilin(P, error, error), -np.inf, self.terminal.alpha)
+            terms.append(LeastSquaresTerm(error, self.terminal.P))
+            # Scaled to e'Pe / alpha <= 1, so its violation reads as a fraction of the level
+            # (the real-time path's acceptance test compares every row to one tolerance).
+            level = LeastSquaresTerm(error, self.terminal.P / self.terminal.alpha)
+            quadratic_rows.append(QuadraticRow(sum(e.shape[0] for e in g), level))
+            add(ca.bilin(P, error, error) / self.terminal.alpha, -np.inf, 1.0)
+            # The ellipsoid's bounding box along its principal axes, |v_i' e| <=
+            # sqrt(alpha / lambda_i) (P = V diag(lambda) V'): implied by the ellipsoid (the
+            # optimum is unchanged), but linear in e, so a linearised problem (the real-time
+            # path's QP) cannot step far outside the set from an interior point, where the
+            # ellipsoid's own linearisation is nearly flat (on the box, e'Pe <= nx alpha).
+            eigenvalues, axes = np.linalg.eigh(self.terminal.P)
+            extent = np.sqrt(self.terminal.alpha / eigenvalues)
+            add(ca.mtimes(ca.DM(axes.T), error), -extent, extent)
         cost += settings.offset_weight * ca.sumsqr(p_s - target)
+        terms.append(LeastSquaresTerm(p_s - target, settings.offset_weight * np.eye(2)))
+        stage_starts.append(sum(e.shape[0] for e in g))
+        path_rows = tuple(
+            stage_starts[k + 1] - stage_starts[k] - (nz if k < N else 0) for k in range(N + 1)
+        )
 
         nlp = {
             "x": ca.vertcat(*w),
@@ -256,7 +284,12 @@ class TrackingMpc:
         self._lbw, self._ubw = np.concatenate(lbw), np.concatenate(ubw)
         self._lbg, self._ubg = np.concatenate(lbg), np.concatenate(ubg)
         self._nz = nz
-        self._chain = build_solver_chain(nlp, settings, [bool(v) for v in self._lbg == self._ubg])
+        self._chain = build_solver_chain(
+            nlp,
+            settings,
+            [bool(v) for v in self._lbg == self._ubg],
+            FastProblem(terms, quadratic_rows, StageLayout(N, nz, nu, path_rows)),
+        )
 
     # --- solving -----------------------------------------------------------------------
 

@@ -7,13 +7,13 @@ just failed is skipped for the next `hold_samples` calls, because failures come 
 stretches (a hard manoeuvre) and a failed attempt costs its whole iteration budget. The last
 strategy is never skipped.
 
-The shipped chain: the configured plugin (fatrop by default, its budget capped at
-FAST_ITERATION_CAP when a rescue stands behind it), then IPOPT from the same warm start with
-RESCUE_ITERATION_FACTOR times the budget (IPOPT is slower but more forgiving far from the
-previous solution). A faster path, for example one real-time SQP iteration warm-started
-from the shifted plan with an acceptance test on its iterate, slots in as one more
-`SolveStrategy` at the front: it reports failure when its iterate is not good enough, and
-the chain falls back to the full solves behind it.
+The shipped chain (`mpc.solver.path: real_time`, the default): one real-time SQP iteration
+from the shifted plan (rti.py), which reports failure when its iterate fails the acceptance
+test and is tried again at the next sample (hold 0); then the full solve by the configured
+plugin (fatrop by default, its budget capped at FAST_ITERATION_CAP when a rescue stands
+behind it); then IPOPT from the same warm start with RESCUE_ITERATION_FACTOR times the
+budget (slower but more forgiving far from the previous solution). `path: full` drops the
+first strategy.
 
 Every casadi call runs inside `interrupts.sigint_held()`: casadi turns a Ctrl-C that lands
 inside a solver callback into a failed solve, which the controller would treat as a solver
@@ -30,9 +30,21 @@ from typing import Any, Protocol
 import casadi as ca
 import numpy as np
 
+from coverage_fleet.control.attempts import Attempt, NlpInstance
 from coverage_fleet.control.codegen import compiled_library
+from coverage_fleet.control.rti import (
+    LeastSquaresTerm,
+    QuadraticRow,
+    RealTimeIterationStrategy,
+    StageLayout,
+)
 from coverage_fleet.interrupts import sigint_held
-from coverage_fleet.vehicles.settings import SOLVER_PLUGINS, MpcSettings
+from coverage_fleet.vehicles.settings import (
+    QP_PLUGINS,
+    SOLVER_PATHS,
+    SOLVER_PLUGINS,
+    MpcSettings,
+)
 
 #: casadi options each plugin starts from; keys under `mpc.solver.options` in the vehicle
 #: file are merged over these (for the configured plugin only, not for the rescue).
@@ -64,7 +76,12 @@ DEFAULT_PLUGIN = "fatrop"
 DEFAULT_MAX_ITER = 100
 #: The `mpc.solver` keys read here (the loader checks the section against
 #: vehicles.settings.SOLVER_KEYS; test_vehicles_loader checks the two agree).
-SOLVER_KEYS: tuple[str, ...] = ("plugin", "max_iter", "options", "compile")
+SOLVER_KEYS: tuple[str, ...] = ("plugin", "max_iter", "options", "compile", "path", "qp")
+#: What `path` and `qp` default to (vehicles.settings documents both).
+DEFAULT_PATH = "real_time"
+DEFAULT_QP = QP_PLUGINS[0]
+if DEFAULT_PATH not in SOLVER_PATHS:
+    raise ImportError("DEFAULT_PATH must be one of vehicles.settings.SOLVER_PATHS")
 #: fatrop (casadi 3.6-3.8 builds) can stall inside an iteration when equality rows at the
 #: terminal stage outnumber the inputs near a converged warm start; with fatrop the terminal
 #: equality is therefore imposed as |x_N - x_s| <= this (metres / radians / m/s).
@@ -79,37 +96,6 @@ RESCUE_HOLD_SAMPLES = 10
 #: Iteration cap of the configured plugin when a rescue stands behind it (warm-started
 #: fatrop needs 5 to 20; a sample that needs more is cheaper to hand over).
 FAST_ITERATION_CAP = 40
-
-
-@dataclass(frozen=True)
-class NlpInstance:
-    """One sample's problem: decision-variable guess, parameters, bounds, and the previous
-    multipliers (None for a cold start)."""
-
-    guess: np.ndarray
-    parameters: np.ndarray
-    lbx: np.ndarray
-    ubx: np.ndarray
-    lbg: np.ndarray
-    ubg: np.ndarray
-    lam_x0: np.ndarray | None = None
-    lam_g0: np.ndarray | None = None
-
-
-@dataclass(frozen=True)
-class Attempt:
-    """What one strategy returned."""
-
-    strategy: str
-    success: bool
-    status: str
-    iterations: int
-    #: Wall-clock seconds of the solver call itself.
-    elapsed: float
-    x: np.ndarray
-    cost: float
-    lam_x: np.ndarray
-    lam_g: np.ndarray
 
 
 @dataclass(frozen=True)
@@ -128,14 +114,28 @@ class ChainResult:
         return self.final.success
 
 
+@dataclass(frozen=True)
+class FastProblem:
+    """What the real-time path needs beyond the NLP: the cost as r' W r terms and where
+    each stage's rows sit."""
+
+    terms: Sequence[LeastSquaresTerm]
+    quadratic_rows: Sequence[QuadraticRow]
+    layout: StageLayout
+
+
 class SolveStrategy(Protocol):
     name: str
+    #: Calls to skip after a failure (None: the chain's hold_samples).
+    hold_samples: int | None
 
     def attempt(self, instance: NlpInstance) -> Attempt: ...
 
 
 class NlpsolStrategy:
     """A full solve by one casadi nlpsol plugin."""
+
+    hold_samples: int | None = None
 
     def __init__(self, name: str, solver: ca.Function) -> None:
         self.name = name
@@ -193,7 +193,8 @@ class SolverChain:
             if attempt.success:
                 break
             if index < last:
-                self._skip_left[index] = self.hold_samples
+                hold = strategy.hold_samples
+                self._skip_left[index] = self.hold_samples if hold is None else hold
         if len(attempts) == 1 and attempts[0].strategy == self.strategies[0].name:
             status = attempts[0].status
         else:
@@ -208,6 +209,31 @@ class SolverChain:
 
 def configured_plugin(settings: MpcSettings) -> str:
     return str(settings.solver.get("plugin", DEFAULT_PLUGIN))
+
+
+def configured_path(settings: MpcSettings) -> str:
+    return str(settings.solver.get("path", DEFAULT_PATH))
+
+
+def compiles(settings: MpcSettings) -> bool:
+    """Whether the problem functions are generated as C and compiled (`compile`, default
+    false: a library is built per problem shape, and the region's half-planes are
+    constants of the problem, so every new region costs a compile of tens of seconds)."""
+    return bool(settings.solver.get("compile", False))
+
+
+def describe_path(settings: MpcSettings) -> str:
+    """One line naming the solver path a chain built from these settings runs (the
+    controller says it once at start-up)."""
+    plugin = configured_plugin(settings)
+    code = "compiled problem functions" if compiles(settings) else "problem functions not compiled"
+    if configured_path(settings) == "real_time":
+        qp = settings.solver.get("qp", DEFAULT_QP)
+        head = f"real-time SQP iteration ({qp} QP), full {plugin} solve when rejected"
+    else:
+        head = f"full {plugin} solve every sample"
+    rescue = f", {RESCUE_PLUGIN} rescue" if plugin != RESCUE_PLUGIN else ""
+    return f"MPC solver path: {head}{rescue}; {code}"
 
 
 def terminal_equality_width(plugin: str) -> float:
@@ -227,10 +253,14 @@ def _plugin_options(
 
 
 def build_solver_chain(
-    nlp: dict[str, ca.SX], settings: MpcSettings, equality: Sequence[bool]
+    nlp: dict[str, ca.SX],
+    settings: MpcSettings,
+    equality: Sequence[bool],
+    fast: FastProblem | None = None,
 ) -> SolverChain:
     """The chain for an NLP in casadi's {x, p, f, g} form; `equality` flags the rows of g
-    that are equalities (fatrop's structure detection needs them)."""
+    that are equalities (fatrop's structure detection needs them); `fast` enables the
+    real-time path when the settings ask for it."""
     plugin = configured_plugin(settings)
     budget = int(settings.solver.get("max_iter", DEFAULT_MAX_ITER))
     rescued = plugin != RESCUE_PLUGIN
@@ -242,9 +272,19 @@ def build_solver_chain(
     )
     name = f"tracking_mpc_{plugin}"
     primary = ca.nlpsol(name, plugin, nlp, options)
-    if settings.solver.get("compile", False):
+    compiled = compiles(settings)
+    if compiled:
         primary = ca.nlpsol(name, plugin, str(compiled_library(primary)), options)
     strategies: list[SolveStrategy] = [NlpsolStrategy(plugin, primary)]
+    if configured_path(settings) == "real_time":
+        if fast is None:
+            raise ValueError("the real-time path needs the cost terms and the stage layout")
+        qp = str(settings.solver.get("qp", DEFAULT_QP))
+        strategies.insert(
+            0, RealTimeIterationStrategy(
+                nlp, fast.terms, fast.quadratic_rows, fast.layout, qp, compiled
+            )
+        )
     if rescued:
         rescue_options = _plugin_options(
             RESCUE_PLUGIN, budget * RESCUE_ITERATION_FACTOR, equality, {}

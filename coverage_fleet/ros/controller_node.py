@@ -61,6 +61,7 @@ from std_msgs.msg import UInt32
 from coverage_fleet.control.controller import RobotController
 from coverage_fleet.control.geofence import BRAKING, INSIDE, RETURNING, Geofence, GeofenceSettings
 from coverage_fleet.control.sampling import SampledController
+from coverage_fleet.control.solver_chain import describe_path
 from coverage_fleet.control.terminal import terminal_for_vehicle
 from coverage_fleet.errors import ConfigError
 from coverage_fleet.fleet.liveness import fresh
@@ -237,7 +238,7 @@ class ControllerNode(LifecycleNode):
         self.get_logger().info(
             f"{self.robot}: {self.model.kind} from {self.spec.source}, sample time "
             f"{self.sample_time:g} s, command {self.spec.command_kind}; MPC ready in "
-            f"{wallclock.perf_counter() - started:.1f} s"
+            f"{wallclock.perf_counter() - started:.1f} s; {describe_path(self.spec.mpc)}"
         )
         return TransitionCallbackReturn.SUCCESS
 

@@ -45,9 +45,11 @@ from coverage_fleet.vehicles.checks import check_model
 from coverage_fleet.vehicles.settings import (
     HORIZON_MAX,
     MAX_ITER_MAX,
+    QP_PLUGINS,
     SAMPLE_TIME_MAX,
     SAMPLE_TIME_MIN,
     SOLVER_KEYS,
+    SOLVER_PATHS,
     SOLVER_PLUGINS,
     SUBSTEPS_MAX,
     TERMINAL_KINDS,
@@ -302,6 +304,10 @@ def _read_solver(value: Any, out: Collector) -> dict[str, Any]:
         solver["max_iter"] = read.integer("max_iter", minimum=1, maximum=MAX_ITER_MAX)
     if read.has("compile"):
         solver["compile"] = read.boolean("compile")
+    if read.has("path"):
+        solver["path"] = read.choice("path", SOLVER_PATHS)
+    if read.has("qp"):
+        solver["qp"] = read.choice("qp", QP_PLUGINS)
     if read.has("options"):
         options = read.mapping("options")
         if options is not None:

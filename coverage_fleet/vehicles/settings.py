@@ -30,7 +30,14 @@ MAX_ITER_MAX = 10_000
 #: The `mpc.solver` vocabulary (control/mpc.py holds each plugin's casadi options and must
 #: offer exactly these plugins; test_vehicles_loader checks that they agree).
 SOLVER_PLUGINS: tuple[str, ...] = ("fatrop", "ipopt")
-SOLVER_KEYS: tuple[str, ...] = ("plugin", "max_iter", "options", "compile")
+SOLVER_KEYS: tuple[str, ...] = ("plugin", "max_iter", "options", "compile", "path", "qp")
+#: `mpc.solver.path`: `real_time` (default: one SQP step per sample from the shifted plan,
+#: control/rti.py; a step that fails its acceptance test is replaced by the full solve) or
+#: `full` (the full solve by `plugin` every sample).
+SOLVER_PATHS: tuple[str, ...] = ("real_time", "full")
+#: `mpc.solver.qp`: the QP solver of the real-time path (casadi conic plugins; the first is
+#: the default, chosen by measurement in benchmarks/mpc_benchmark.py).
+QP_PLUGINS: tuple[str, ...] = ("hpipm", "osqp")
 
 
 def not_stabilisable_reason(kind: str) -> str:

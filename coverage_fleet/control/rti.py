@@ -1,0 +1,273 @@
+"""Real-time iteration: one sequential-quadratic-programming step per sample.
+
+Method (Diehl, Bock & Schloeder, "A real-time iteration scheme for nonlinear optimization in
+optimal feedback control", SIAM J. Control Optim. 43(5), 2005): the previous sample's plan,
+shifted by one step, is already close to the new optimum, so one full Newton-type step from
+it tracks the solution as the state moves. Each sample linearises the constraints at the
+shifted plan, takes the Gauss-Newton Hessian of the least-squares cost (sum of r' W r terms:
+the stage, terminal and offset costs; 2 J_r' W J_r is positive semidefinite, so the QP is
+convex even where the exact Hessian of the rotated terminal error is not), solves that QP
+with a structure-exploiting solver and takes the full step.
+
+Acceptance test on the new iterate w+ (the step is applied only when it passes; otherwise
+up to MAX_STEPS - 1 more steps are taken from it, and when none passes the chain's full
+solve answers the sample, so the closed loop and the gate see a converged
+plan):
+- the QP solver reported success and every value of w+ is finite;
+- constraint violation: the largest distance of g(w+) and w+ outside their bounds is at
+  most VIOLATION_TOLERANCE. Linear rows (inputs, speed polygons, region half-planes) hold
+  exactly after the step; what is left is the linearisation error of the nonlinear rows
+  (dynamics defects, the terminal ellipsoid), which is second order in the step: small
+  while the shifted plan is a good start, large after a new target or a sharp manoeuvre,
+  exactly when one step is not enough.
+A KKT-residual test was tried too and dropped: the Gauss-Newton step leaves a residual of
+the order of the step even on accepted samples whose closed loop matches the full solve
+(benchmarks/mpc_benchmark.py prints the closed-loop cost ratio).
+
+The QP solver: casadi's HPIPM interface (Frison & Diehl, "HPIPM: a high-performance
+quadratic programming framework for model predictive control", IFAC-PapersOnLine 53(2),
+2020): a Riccati-based interior point method over the stage structure
+[z_0 u_0 z_1 u_1 ... z_N] the formulation already has, so it needs no warm start and its
+cost grows linearly with the horizon. Measured on the multirotor QP (horizon 20, 166
+variables, 550 rows, CPU time, loaded 2-core machine): HPIPM 1.3-1.6 ms (8-10 interior
+point iterations, about 0.5 ms of it per-call overhead of the interface); OSQP 1.3-1.8 ms
+only when warm-started at the answer and 15-40 ms cold (ADMM needs hundreds of iterations
+on this conditioning); qrqp failed ("search direction"); daqp and qpOASES gave wrong or no
+answers on the equality rows; fatrop's QP interface failed. OSQP stays selectable
+(`mpc.solver.qp`).
+
+The problem functions (QP data and the acceptance test) are plain casadi Functions of the
+decision variables and the parameter vector p; nothing about the target, the measured state
+or future parameters (e.g. position half-planes) is hard-wired, so a formulation that grows
+its parameter vector needs no change here. With `compile`, they are generated as C and
+loaded from the same cache as the full solve's (codegen.py).
+"""
+
+from __future__ import annotations
+
+import time
+from collections.abc import Sequence
+from dataclasses import dataclass
+from typing import Any
+
+import casadi as ca
+import numpy as np
+
+from coverage_fleet.control.attempts import Attempt, NlpInstance
+from coverage_fleet.control.codegen import compiled_functions
+from coverage_fleet.interrupts import sigint_held
+from coverage_fleet.vehicles.settings import QP_PLUGINS
+
+#: Largest constraint violation of an accepted iterate. The rows are in metres (region,
+#: dynamics defects of positions), m/s, rad and N (defects of the other states), and the
+#: terminal ellipsoid as a fraction of its level (mpc.py scales it to e'Pe/alpha <= 1):
+#: 1 cm is far inside the footprint margin the region is shrunk by, and 1 % of the level
+#: stays inside the verified terminal set, which is 1/terminal_shrink (about 11 %) larger.
+VIOLATION_TOLERANCE = 1e-2
+#: SQP steps one sample may take before it hands over to the full solve. One is the
+#: real-time iteration proper; a second and third step (each a fresh linearisation at the
+#: last iterate, so their linearisation error shrinks quadratically) rescue most samples of
+#: the nonlinear models (the surface vessel turning) at a fraction of a full solve's cost.
+MAX_STEPS = 3
+QP_DEFAULTS: dict[str, dict[str, Any]] = {
+    "hpipm": {
+        "print_problem": False,
+        "error_on_fail": False,
+        "hpipm": {
+            "mode": "speed",
+            "iter_max": 100,
+            "res_g_max": 1e-6,
+            "res_b_max": 1e-6,
+            "res_d_max": 1e-6,
+            "res_m_max": 1e-6,
+        },
+    },
+    "osqp": {
+        "print_problem": False,
+        "error_on_fail": False,
+        "warm_start_primal": True,
+        "warm_start_dual": True,
+        "osqp": {
+            "verbose": False,
+            "eps_abs": 1e-7,
+            "eps_rel": 1e-7,
+            "max_iter": 4000,
+            "polish": True,
+        },
+    },
+}
+
+
+@dataclass(frozen=True)
+class StageLayout:
+    """Where each stage's rows sit: decision variables [z_0 u_0 ... z_{N-1} u_{N-1} z_N]
+    with len(z_k) = nz, len(u_k) = nu; constraint rows per stage k: first the nz dynamics
+    rows z_{k+1} - F(z_k, u_k) (k < N), then `path_rows[k]` other rows."""
+
+    horizon: int
+    nz: int
+    nu: int
+    path_rows: tuple[int, ...]
+
+    def dynamics_mask(self) -> np.ndarray:
+        rows = []
+        for k in range(self.horizon + 1):
+            if k < self.horizon:
+                rows.append(np.ones(self.nz, dtype=bool))
+            rows.append(np.zeros(self.path_rows[k], dtype=bool))
+        return np.concatenate(rows)
+
+
+@dataclass(frozen=True)
+class LeastSquaresTerm:
+    """One cost term r' W r (W symmetric positive semidefinite)."""
+
+    residual: ca.SX
+    weight: np.ndarray
+
+
+@dataclass(frozen=True)
+class QuadraticRow:
+    """A constraint row g_row = r' W r <= upper (a terminal ellipsoid): its curvature,
+    weighted by the row's multiplier, joins the QP Hessian."""
+
+    row: int
+    term: LeastSquaresTerm
+
+
+def gauss_newton_hessian(
+    terms: Sequence[tuple[ca.SX, LeastSquaresTerm]], w: ca.SX
+) -> ca.SX:
+    """2 sum c J_r' W J_r: the Gauss-Newton Hessian of sum c r' W r (c a scalar factor)."""
+    hessian = ca.SX(w.shape[0], w.shape[0])
+    for factor, term in terms:
+        jacobian = ca.jacobian(term.residual, w)
+        hessian += 2 * factor * ca.mtimes([jacobian.T, ca.DM(term.weight), jacobian])
+    return hessian
+
+
+class RealTimeIterationStrategy:
+    """A `SolveStrategy` (solver_chain.py): one SQP step, then the acceptance test."""
+
+    name = "rti"
+    #: A rejected step is followed by a full solve, whose shifted plan is again a good
+    #: start: try the next sample in real time again.
+    hold_samples: int | None = 0
+
+    def __init__(
+        self,
+        nlp: dict[str, ca.SX],
+        terms: Sequence[LeastSquaresTerm],
+        quadratic_rows: Sequence[QuadraticRow],
+        layout: StageLayout,
+        qp_plugin: str,
+        compile_functions: bool,
+    ) -> None:
+        if qp_plugin not in QP_PLUGINS:
+            raise ValueError(f"QP plugin must be one of {list(QP_PLUGINS)}, got {qp_plugin!r}")
+        w, p, f, g = nlp["x"], nlp["p"], nlp["f"], nlp["g"]
+        # HPIPM reads the dynamics as A z + B u - z_next: flip the sign of those rows.
+        sign = np.where(layout.dynamics_mask(), -1.0, 1.0)
+        if len(sign) != g.shape[0]:
+            raise ValueError(f"layout has {len(sign)} rows, the problem {g.shape[0]}")
+        self._sign = sign
+        g_qp = ca.DM(sign) * g
+        lam_g = ca.SX.sym("lam_g", g.shape[0])
+        # Convex rows (r' W r <= upper) add multiplier x their Gauss-Newton curvature: the
+        # QP then sees the ellipsoid bend, not only its tangent plane (from an interior
+        # point the tangent half-space alone lets one step run far outside). Multipliers of
+        # upper bounds are >= 0 in casadi's convention; clipping keeps the Hessian PSD.
+        hessian = gauss_newton_hessian(
+            [(ca.DM(1.0), t) for t in terms]
+            + [(ca.fmax(lam_g[q.row], 0), q.term) for q in quadratic_rows],
+            w,
+        )
+        qp_data = ca.Function(
+            "rti_qp_data",
+            [w, p, lam_g],
+            [hessian, ca.gradient(f, w), g_qp, ca.jacobian(g_qp, w)],
+            ["w", "p", "lam_g"],
+            ["h", "grad", "g", "a"],
+        )
+        check = ca.Function("rti_check", [w, p], [f, g_qp], ["w", "p"], ["f", "g"])
+        if compile_functions:
+            library = str(compiled_functions([qp_data, check], "tracking_mpc_rti"))
+            qp_data = ca.external("rti_qp_data", library)
+            check = ca.external("rti_check", library)
+        self._qp_data, self._check = qp_data, check
+        options = dict(QP_DEFAULTS[qp_plugin])
+        if qp_plugin == "hpipm":
+            N = layout.horizon
+            options.update(
+                N=N,
+                nx=[layout.nz] * (N + 1),
+                nu=[layout.nu] * N + [0],
+                ng=list(layout.path_rows),
+            )
+        sparsity = {"h": hessian.sparsity(), "a": ca.jacobian(g_qp, w).sparsity()}
+        self.qp_plugin = qp_plugin
+        self._qp = ca.conic("rti_qp", qp_plugin, sparsity, options)
+
+    def _bounds_for_qp(self, lower: np.ndarray, upper: np.ndarray) -> tuple[np.ndarray, ...]:
+        flipped = self._sign < 0
+        lo, hi = lower.copy(), upper.copy()
+        lo[flipped], hi[flipped] = -upper[flipped], -lower[flipped]
+        return lo, hi
+
+    def attempt(self, instance: NlpInstance) -> Attempt:
+        w, p = instance.guess, instance.parameters
+        lbg, ubg = self._bounds_for_qp(instance.lbg, instance.ubg)
+        lam_g = np.zeros(len(self._sign)) if instance.lam_g0 is None else instance.lam_g0
+        lam_x = instance.lam_x0
+        started = time.perf_counter()
+        status, success, steps, cost = "QP failed", False, 0, float("nan")
+        with sigint_held():
+            while steps < MAX_STEPS:
+                steps += 1
+                h, grad, g, a = self._qp_data(w, p, lam_g)
+                g = np.asarray(g).reshape(-1)
+                arguments: dict[str, Any] = {
+                    "h": h,
+                    "g": grad,
+                    "a": a,
+                    "lba": lbg - g,
+                    "uba": ubg - g,
+                    "lbx": instance.lbx - w,
+                    "ubx": instance.ubx - w,
+                    "lam_a0": self._sign * lam_g,
+                }
+                if lam_x is not None:
+                    arguments["lam_x0"] = lam_x
+                solution = self._qp(**arguments)
+                w = w + np.asarray(solution["x"]).reshape(-1)
+                lam_g = self._sign * np.asarray(solution["lam_a"]).reshape(-1)
+                lam_x = np.asarray(solution["lam_x"]).reshape(-1)
+                f_new, g_new = self._check(w, p)
+                g_new = np.asarray(g_new).reshape(-1)
+                violation = max(
+                    float(np.max(np.maximum(lbg - g_new, g_new - ubg), initial=0.0)),
+                    float(np.max(np.maximum(instance.lbx - w, w - instance.ubx), initial=0.0)),
+                )
+                cost = float(f_new)
+                qp_ok = bool(self._qp.stats().get("success", False))
+                if not (qp_ok and np.all(np.isfinite(w)) and np.isfinite(violation)):
+                    status = "QP failed"
+                    break
+                success = violation <= VIOLATION_TOLERANCE
+                if success:
+                    status = "real-time iteration accepted" + (
+                        f" after {steps} steps" if steps > 1 else ""
+                    )
+                    break
+                status = f"iterate rejected (constraint violation {violation:.1e})"
+        return Attempt(
+            strategy=self.name,
+            success=success,
+            status=status,
+            iterations=steps,
+            elapsed=time.perf_counter() - started,
+            x=w,
+            cost=cost,
+            lam_x=np.zeros_like(w) if lam_x is None else lam_x,
+            lam_g=lam_g,
+        )
