@@ -22,6 +22,11 @@ admissible steady state closest to it (the tracking property of the references a
 the projection of the target onto the doubly shrunk region.
 
 Headings stay continuous (frames.py); the steady heading is a free parameter.
+
+Who solves it: solver_chain.py (by default a real-time SQP step, rti.py, then the full solve
+when its iterate is rejected). For the real-time path the formulation also hands over its
+cost as least-squares terms, the ellipsoid row as a convex quadratic row and the stage
+layout of its rows; a row added here must keep that layout (dynamics first in each stage).
 """
 
 from __future__ import annotations
