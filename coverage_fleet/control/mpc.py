@@ -14,7 +14,8 @@ IEEE TAC 63(11), 2018), direct multiple shooting:
           steady state: limits scaled by 1 - steady_state_margin towards rest (limits.py),
                         A position(x_s) <= b - (r + e_f) |A_i|  (e_f: terminal-set extent)
           terminal:     ellipsoid  e_N' P e_N <= alpha   (e_N = steady_frame_error(x_N, x_s)),
-                        with its bounding box along the principal axes of P (implied)
+                        (real-time path: as e'Pe/alpha <= 1, plus its implied bounding box
+                        along the principal axes of P)
                         equality   x_N = x_s
 
 The offset cost keeps the problem feasible for any target: an unreachable target yields the
@@ -45,6 +46,7 @@ from coverage_fleet.control.solver_chain import (
     FastProblem,
     NlpInstance,
     build_solver_chain,
+    configured_path,
     configured_plugin,
     terminal_equality_width,
 )
@@ -260,19 +262,24 @@ class TrackingMpc:
             P = ca.DM(self.terminal.P)
             cost += ca.bilin(P, error, error)
             terms.append(LeastSquaresTerm(error, self.terminal.P))
-            # Scaled to e'Pe / alpha <= 1, so its violation reads as a fraction of the level
-            # (the real-time path's acceptance test compares every row to one tolerance).
-            level = LeastSquaresTerm(error, self.terminal.P / self.terminal.alpha)
-            quadratic_rows.append(QuadraticRow(sum(e.shape[0] for e in g), level))
-            add(ca.bilin(P, error, error) / self.terminal.alpha, -np.inf, 1.0)
-            # The ellipsoid's bounding box along its principal axes, |v_i' e| <=
-            # sqrt(alpha / lambda_i) (P = V diag(lambda) V'): implied by the ellipsoid (the
-            # optimum is unchanged), but linear in e, so a linearised problem (the real-time
-            # path's QP) cannot step far outside the set from an interior point, where the
-            # ellipsoid's own linearisation is nearly flat (on the box, e'Pe <= nx alpha).
-            eigenvalues, axes = np.linalg.eigh(self.terminal.P)
-            extent = np.sqrt(self.terminal.alpha / eigenvalues)
-            add(ca.mtimes(ca.DM(axes.T), error), -extent, extent)
+            if configured_path(settings) == "real_time":
+                # Scaled to e'Pe / alpha <= 1, so its violation reads as a fraction of the
+                # level (the acceptance test compares every row to one tolerance).
+                level = LeastSquaresTerm(error, self.terminal.P / self.terminal.alpha)
+                quadratic_rows.append(QuadraticRow(sum(e.shape[0] for e in g), level))
+                add(ca.bilin(P, error, error) / self.terminal.alpha, -np.inf, 1.0)
+                # The ellipsoid's bounding box along its principal axes, |v_i' e| <=
+                # sqrt(alpha / lambda_i) (P = V diag(lambda) V'): implied by the ellipsoid
+                # (the optimum is unchanged), but linear in e, so a linearised problem (the
+                # QP) cannot step far outside the set from an interior point, where the
+                # ellipsoid's own linearisation is nearly flat (on the box e'Pe <= nx alpha).
+                eigenvalues, axes = np.linalg.eigh(self.terminal.P)
+                extent = np.sqrt(self.terminal.alpha / eigenvalues)
+                add(ca.mtimes(ca.DM(axes.T), error), -extent, extent)
+            else:
+                # The full path keeps its problem exactly as it was before the real-time
+                # path existed (the closed-loop behaviour the fleet tests pin down).
+                add(ca.bilin(P, error, error), -np.inf, self.terminal.alpha)
         cost += settings.offset_weight * ca.sumsqr(p_s - target)
         terms.append(LeastSquaresTerm(p_s - target, settings.offset_weight * np.eye(2)))
         stage_starts.append(sum(e.shape[0] for e in g))

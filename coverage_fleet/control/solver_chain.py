@@ -7,7 +7,8 @@ just failed is skipped for the next `hold_samples` calls, because failures come 
 stretches (a hard manoeuvre) and a failed attempt costs its whole iteration budget. The last
 strategy is never skipped.
 
-The shipped chain (`mpc.solver.path: real_time`, the default): one real-time SQP iteration
+The real-time chain (`mpc.solver.path: real_time`; the default is still `full`, see
+vehicles/settings.py): one real-time SQP iteration
 from the shifted plan (rti.py), which reports failure when its iterate fails the acceptance
 test and is tried again at the next sample (hold 0); then the full solve by the configured
 plugin (fatrop by default, its budget capped at FAST_ITERATION_CAP when a rescue stands
@@ -78,7 +79,7 @@ DEFAULT_MAX_ITER = 100
 #: vehicles.settings.SOLVER_KEYS; test_vehicles_loader checks the two agree).
 SOLVER_KEYS: tuple[str, ...] = ("plugin", "max_iter", "options", "compile", "path", "qp")
 #: What `path` and `qp` default to (vehicles.settings documents both).
-DEFAULT_PATH = "real_time"
+DEFAULT_PATH = "full"
 DEFAULT_QP = QP_PLUGINS[0]
 if DEFAULT_PATH not in SOLVER_PATHS:
     raise ImportError("DEFAULT_PATH must be one of vehicles.settings.SOLVER_PATHS")

@@ -31,9 +31,10 @@ MAX_ITER_MAX = 10_000
 #: offer exactly these plugins; test_vehicles_loader checks that they agree).
 SOLVER_PLUGINS: tuple[str, ...] = ("fatrop", "ipopt")
 SOLVER_KEYS: tuple[str, ...] = ("plugin", "max_iter", "options", "compile", "path", "qp")
-#: `mpc.solver.path`: `real_time` (default: one SQP step per sample from the shifted plan,
-#: control/rti.py; a step that fails its acceptance test is replaced by the full solve) or
-#: `full` (the full solve by `plugin` every sample).
+#: `mpc.solver.path`: `real_time` (one to three SQP steps per sample from the shifted plan,
+#: control/rti.py; a sample whose iterate fails the acceptance test is solved in full) or
+#: `full` (default: the full solve by `plugin` every sample). Not yet the default: with it
+#: the mixed demo fleet (test_fleet_simulation, orchard mission) did not settle within 90 s.
 SOLVER_PATHS: tuple[str, ...] = ("real_time", "full")
 #: `mpc.solver.qp`: the QP solver of the real-time path (casadi conic plugins; the first is
 #: the default, chosen by measurement in benchmarks/mpc_benchmark.py).
