@@ -63,8 +63,9 @@ def wait_until_gone(pids: list[int]) -> list[int]:
 
 def started_and_committing(launcher: Launcher, out: Path) -> None:
     """Wait until the nodes are up and the gate has committed a first generation."""
-    launcher.wait_until(lambda: len(launcher.node_pids()) == 5, "five node processes")
-    base_log = Path(f"{out}.logs") / "base_station.log"
+    # recorder, base station, three controllers and the simulator
+    launcher.wait_until(lambda: len(launcher.node_pids()) == 6, "six node processes")
+    base_log = Path(f"{out}.run") / "logs" / "base_station.log"
     launcher.wait_until(
         lambda: base_log.is_file() and "generation 1 committed" in base_log.read_text(),
         "a committed generation",
@@ -151,4 +152,4 @@ def test_bad_input_is_refused_before_anything_starts(
     assert expected in result.stderr, result.stderr
     assert "Traceback" not in result.stderr
     assert "started" not in result.stdout  # no process was started
-    assert not out.exists() and not Path(f"{out}.logs").exists()
+    assert not out.exists() and not Path(f"{out}.run").exists()

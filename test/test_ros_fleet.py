@@ -97,7 +97,8 @@ def launch(mission: Path, out: Path, *extra: str, on_line=None) -> tuple[int, st
 def node_logs(trial: Path) -> str:
     """The tail of every node's log, for assertion messages (what went wrong where)."""
     parts = []
-    for log in sorted(Path(f"{trial}.logs").glob("*.log")):
+    folder = trial / "logs" if trial.is_dir() else Path(f"{trial}.run") / "logs"
+    for log in sorted(folder.glob("*.log")):
         parts.append(f"--- {log.name}\n" + "\n".join(log.read_text().splitlines()[-8:]))
     return "\n".join(parts)
 
@@ -298,7 +299,7 @@ def test_a_killed_controller_does_not_take_down_the_fleet(faulty) -> None:
     # Its output is a pipe: plain status lines, and the gate's warning relayed from /rosout.
     assert re.search(r"^fleet graph time .* generation \d+", output, re.MULTILINE), output[-3000:]
     assert "launch: WARN from reference_gate: drone_b leaves the gate" in output, output[-3000:]
-    simulator_log = Path(f"{trial}.logs/simulator.log").read_text()
+    simulator_log = (trial / "logs" / "simulator.log").read_text()
     assert "drone_b: no answer" in simulator_log
     # The other three came to rest, but a fleet without drone_b is never "settled": the
     # run ends stuck, naming the missing robot.

@@ -46,7 +46,8 @@ def test_every_parameter_has_a_description_and_numbers_have_a_range(
     node_class, mission: Path
 ) -> None:
     rclpy.init(args=["p", "--ros-args", "-p", f"mission_file:={mission}",
-                     "-p", "robot_name:=rover_a"])
+                     "-p", "robot_name:=rover_a",
+                     "-p", f"output:={mission.parent / 'recording.mcap'}"])
     try:
         node = node_class()
         names = [n for n in node.list_parameters([], 0).names if n not in RCLPY_OWN]

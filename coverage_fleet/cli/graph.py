@@ -46,6 +46,8 @@ class NodeSpec:
     robot: str = ""
     #: The run is over when this process ends (the simulator): the launch shuts down the rest.
     ends_run: bool = False
+    #: Stopped after every other process (the recorder: it records their last messages).
+    stops_last: bool = False
 
     @property
     def label(self) -> str:
@@ -143,6 +145,33 @@ def simulator_node_spec(
         use_sim_time=False,
     )
     return replace(_tuned(spec, tuning_file), ends_run=True)
+
+
+def recorder_node_spec(
+    mission_file: str | Path,
+    output: str | Path,
+    vehicle_overrides: dict[str, str | Path] | None = None,
+    duration: float = 0.0,
+    simulation: SimulationMode | None = None,
+    command_line: str = "",
+) -> NodeSpec:
+    """The recorder (coverage_fleet.ros.recorder_node): every topic into an MCAP file, in a
+    process of its own, stopped after the others."""
+    import json
+
+    spec = _spec(
+        "recorder", "coverage_fleet_recorder", "recorder",
+        mission_file=str(Path(mission_file).resolve()),
+        vehicle_overrides=json.dumps(
+            {robot: str(Path(path).resolve()) for robot, path in (vehicle_overrides or {}).items()}
+        ) if vehicle_overrides else "",
+        output=str(Path(output).resolve()),
+        duration=float(duration),
+        simulation=simulation or "",
+        command_line=command_line,
+        use_sim_time=False,
+    )
+    return replace(spec, stops_last=True)
 
 
 def fleet_nodes(

@@ -11,9 +11,10 @@ is a pipe or a log) and relays the nodes' warnings and errors from /rosout to st
 from __future__ import annotations
 
 import argparse
+import contextlib
 import os
+import shlex
 import sys
-import threading
 import time
 from collections.abc import Callable
 from dataclasses import dataclass
@@ -26,7 +27,13 @@ from coverage_fleet.inputs.fields import Collector, number_fault
 from coverage_fleet.inputs.outputs import check_output_location
 from coverage_fleet.ros.launcher_contract import EXIT_ROBOTS_MISSING
 
-from .graph import SIMULATION_MODES, SimulationMode, fleet_nodes, select_nodes
+from .graph import (
+    SIMULATION_MODES,
+    SimulationMode,
+    fleet_nodes,
+    recorder_node_spec,
+    select_nodes,
+)
 from .launcher import SAFETY_CAUTION, GraphProcesses, StopSignals, ros_environment
 
 if TYPE_CHECKING:
@@ -129,38 +136,6 @@ def confirm_real_robots(mission: Mission, only: list[str], confirmed: bool) -> b
     return answer.strip().lower() == "yes"
 
 
-def _start_recorder(mission_file: Path):
-    """The recorder node in this process, spun on a thread; returns (node, stop function)."""
-    import rclpy
-    from rclpy.executors import SingleThreadedExecutor
-    from rclpy.signals import SignalHandlerOptions
-
-    from coverage_fleet.ros.recorder_node import RecorderNode
-
-    # Ctrl-C must reach the launcher (which stops the graph in order), not rclpy.
-    rclpy.init(args=["coverage-fleet-launch"], signal_handler_options=SignalHandlerOptions.NO)
-    node = RecorderNode(str(mission_file))
-    executor = SingleThreadedExecutor()
-    executor.add_node(node)
-    def spin() -> None:
-        try:
-            executor.spin()
-        except Exception as error:  # report it; the graph itself goes on
-            print(f"launch: the recorder stopped: {error!r}", file=sys.stderr, flush=True)
-            raise
-
-    thread = threading.Thread(target=spin, daemon=True)
-    thread.start()
-
-    def stop() -> None:
-        executor.shutdown(timeout_sec=2.0)
-        thread.join(timeout=5.0)
-        node.destroy_node()
-        rclpy.try_shutdown()
-
-    return node, stop
-
-
 def run(args: argparse.Namespace) -> int:
     from coverage_fleet.fleet.mission import (
         DURATION_MAX,
@@ -192,6 +167,7 @@ def run(args: argparse.Namespace) -> int:
         record=not args.no_record,
         only=args.only,
         density_updates=args.density_updates,
+        command_line=["coverage-fleet", *sys.argv[1:]],
     )
     return result.status
 
@@ -215,25 +191,44 @@ def run_graph(
     record: bool = True,
     only: list[str] | None = None,
     density_updates: bool = False,
+    command_line: list[str] | None = None,
 ) -> GraphRun:
     """Start the mission's graph, watch it until the simulation is over, a node other than a
-    controller dies or Ctrl-C, stop it and write the trial (when recording)."""
-    specs = select_nodes(
-        fleet_nodes(
-            mission.source, simulation, vehicle_overrides, duration=duration, recorded=record,
-            density_updates=density_updates,
-        ),
-        only or [],
-        str(mission.source),
-    )
+    controller dies or Ctrl-C, stop it and write the trial (when recording).
+
+    While it runs, `<out>.run/` holds the recording (recording.mcap, written by the
+    recorder process) and the node logs (logs/); the trial is then built from the
+    recording and both move into it. Recording needs the base station's part of the
+    deployment (it is where the trial is kept)."""
+    parts = only or []
+    record = record and (not parts or "base_station" in parts)
     stamp = datetime.now(UTC).strftime("%Y%m%dT%H%M%SZ")
     out = out or Path("trials") / f"{mission.name}-ros-{stamp}"
     if out.exists():
         raise ConfigError.single(str(out), "--out", "already exists; a trial is never overwritten")
     check_output_location(out, "--out")
-    log_dir = Path(f"{out}.logs")
+    run_dir = Path(f"{out}.run")
+    if run_dir.exists():
+        raise ConfigError.single(
+            str(run_dir), "--out", "already exists (the working folder of another run)"
+        )
+    specs = select_nodes(
+        fleet_nodes(
+            mission.source, simulation, vehicle_overrides, duration=duration, recorded=record,
+            density_updates=density_updates,
+        ),
+        parts,
+        str(mission.source),
+    )
+    recording = run_dir / "recording.mcap"
+    if record:
+        specs.insert(0, recorder_node_spec(
+            mission.source, recording, vehicle_overrides, duration, simulation,
+            shlex.join(command_line or sys.argv),
+        ))
+    log_dir = run_dir / "logs"
     env, notes = ros_environment(os.environ)
-    # This process hosts the recorder: it joins the same domain on loopback.
+    # This process hosts the live view: it joins the same domain on loopback.
     os.environ.update(
         {k: env[k] for k in ("ROS_AUTOMATIC_DISCOVERY_RANGE", "ROS_DOMAIN_ID")}
     )
@@ -242,7 +237,8 @@ def run_graph(
         print(f"launch: set {note}")
     with StopSignals() as stop_signals:
         return _run_and_record(
-            mission, simulation, specs, out, log_dir, env, record, stop_signals
+            mission, simulation, specs, out, log_dir, env,
+            recording if record else None, stop_signals,
         )
 
 
@@ -253,10 +249,9 @@ def _run_and_record(
     out: Path,
     log_dir: Path,
     env: dict[str, str],
-    record: bool,
+    recording: Path | None,
     stop_signals: StopSignals,
 ) -> GraphRun:
-    recorder, stop_recorder = _start_recorder(mission.source) if record else (None, None)
     graph = GraphProcesses(log_dir, env)
     started = time.monotonic()
     status = 0
@@ -273,7 +268,7 @@ def _run_and_record(
             "launch: from another terminal: "
             f"coverage-fleet watch --domain-id {env['ROS_DOMAIN_ID']} "
             f"--mission {mission.source}; RViz: /coverage/cells in frame map; node logs in "
-            f"{log_dir}; Ctrl-C stops everything",
+            f"{log_dir} (moved into the trial at the end); Ctrl-C stops everything",
             flush=True,
         )
         print(
@@ -304,17 +299,46 @@ def _run_and_record(
         if view is not None:
             view.close()
         graph.stop(hurry=lambda: stop_signals.hurry)
-        if stop_recorder is not None:
-            stop_recorder()
     print(f"launch: all processes stopped after {time.monotonic() - started:.1f} s")
-    if recorder is None:
+    if recording is None:
+        print(f"launch: node logs in {log_dir}")
         return GraphRun(status, None, {})
-    path, metrics = recorder.write(out, wall_time=time.monotonic() - started)
-    from coverage_fleet.cli.simulate_command import summary_lines
+    return _trial_from_run(status, recording, log_dir, out)
 
+
+def _trial_from_run(status: int, recording: Path, log_dir: Path, out: Path) -> GraphRun:
+    """Build the trial from the run's recording (the recording and the node logs move into
+    it); a recording cut short (recorder killed) is recovered up to its last full chunk."""
+    from coverage_fleet.cli.simulate_command import summary_lines
+    from coverage_fleet.ros.trial_from_recording import trial_from_recording
+
+    if not recording.is_file():
+        print(
+            f"launch: no recording was written (see {log_dir}); no trial", file=sys.stderr,
+            flush=True,
+        )
+        return GraphRun(status or EXIT_NODE_DIED, None, {})
+    try:
+        path, metrics, read = trial_from_recording(
+            recording, out, move_recording=True, extra_files={"logs": log_dir}
+        )
+    except (ConfigError, ValueError, IndexError) as error:
+        print(
+            f"launch: the trial could not be built from {recording}: {error}; rebuild it "
+            f"with: coverage-fleet report {recording} --out {out}",
+            file=sys.stderr, flush=True,
+        )
+        return GraphRun(status or EXIT_NODE_DIED, None, {})
+    with contextlib.suppress(OSError):
+        recording.parent.rmdir()
+    if not read.complete:
+        print(f"launch: warning: {read.problem}", file=sys.stderr, flush=True)
     for line in summary_lines(metrics):
         print(f"launch: {line}")
-    print(f"launch: trial written to {path} (report in {path / 'report'})")
+    print(
+        f"launch: trial written to {path} (report in {path / 'report'}, recording "
+        f"{path / 'recording.mcap'}, node logs in {path / 'logs'})"
+    )
     return GraphRun(status, path, metrics)
 
 

@@ -152,9 +152,16 @@ class GraphProcesses:
 
     def stop(self, hurry: Callable[[], bool] = lambda: False) -> None:
         """SIGINT to every node still running, then SIGTERM, then SIGKILL, each after a
-        grace period that ends early when `hurry()` turns true (a second Ctrl-C)."""
+        grace period that ends early when `hurry()` turns true (a second Ctrl-C). Processes
+        that stop last (the recorder) are stopped once the others are gone."""
+        first = [n for n in self.nodes if not n.spec.stops_last]
+        last = [n for n in self.nodes if n.spec.stops_last]
+        for group in (first, last):
+            self._stop_group(group, hurry)
+
+    def _stop_group(self, nodes: list[RunningNode], hurry: Callable[[], bool]) -> None:
         for sig in (signal.SIGINT, signal.SIGTERM, signal.SIGKILL):
-            alive = [n for n in self.nodes if n.returncode is None]
+            alive = [n for n in nodes if n.returncode is None]
             if not alive:
                 return
             for node in alive:

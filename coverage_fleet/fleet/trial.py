@@ -9,7 +9,9 @@ or Ctrl-C never leaves a half-written trial behind.
 
 Layout of a trial directory:
 
-    mission.yaml          the mission as run (resolved file paths, seed, duration, poses)
+    mission.yaml          the mission as run (seed, duration, poses; the roster names the
+                          copies in vehicles/, other file paths resolved)
+    vehicles/<robot>.yaml the vehicle file each robot ran with (sha256 in metrics.json)
     fleet.csv             time, generation, cost, largest_distance
     robots/<name>.csv     time, generation, <state names>, <input names>, target_x, target_y,
                           distance, no_farther, closer, controller_ran, solve_time, status,
@@ -17,7 +19,10 @@ Layout of a trial directory:
     gate_openings.csv     generation, time, reason, cost, robot, position_x, position_y,
                           target_x, target_y, distance
     violations.csv        time, robot, limit, value, bound
-    report/               metrics.json and PNG figures (coverage_fleet.report)
+    report/               metrics.json (with provenance) and PNG figures
+                          (coverage_fleet.report)
+    recording.mcap        runs of the ROS graph: the recording the trial was built from
+    logs/                 runs of the ROS graph: one log file per node process
 """
 
 from __future__ import annotations
@@ -27,7 +32,7 @@ import math
 import os
 import shutil
 import tempfile
-from collections.abc import Callable
+from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -256,12 +261,16 @@ def write_trial(
     mission_as_run: dict[str, Any],
     log: TrialLog,
     report: Callable[[Path], Any] | None = None,
+    files: Mapping[str, bytes | Path] | None = None,
+    move_files: bool = False,
 ) -> Path:
     """Write a trial directory atomically and return its path.
 
     `mission_as_run` is the mission mapping to record (see mission_as_run()); `report`, when
     given, is called with the report/ folder inside the temporary directory and writes the
-    figures and metrics there. Refuses to overwrite an existing directory.
+    figures and metrics there. `files` go into the trial under their relative names: bytes
+    are written, paths (files or folders) copied, or moved with `move_files` (the launcher's
+    recording and node logs). Refuses to overwrite an existing directory.
     """
     final = Path(directory).resolve()
     if final.exists():
@@ -275,6 +284,8 @@ def write_trial(
             )
             yaml.safe_dump(mission_as_run, handle, sort_keys=False, default_flow_style=None)
         write_log(staging, log)
+        for name, content in (files or {}).items():
+            _place(staging / name, content, move_files)
         if report is not None:
             report_dir = staging / "report"
             report_dir.mkdir()
@@ -286,6 +297,18 @@ def write_trial(
     return final
 
 
+def _place(target: Path, content: bytes | Path, move: bool) -> None:
+    target.parent.mkdir(parents=True, exist_ok=True)
+    if isinstance(content, bytes):
+        target.write_bytes(content)
+    elif move:
+        shutil.move(str(content), str(target))
+    elif Path(content).is_dir():
+        shutil.copytree(content, target)
+    else:
+        shutil.copyfile(content, target)
+
+
 # --- reading ------------------------------------------------------------------------------
 
 
@@ -293,3 +316,83 @@ def read_csv(path: str | Path) -> list[dict[str, str]]:
     """Rows of one of the trial's CSV files as dictionaries of strings."""
     with Path(path).open(newline="") as handle:
         return list(csv.DictReader(handle))
+
+
+def _flag(text: str) -> bool:
+    return text == "1"
+
+
+def read_trial_log(directory: str | Path, mission: Any) -> TrialLog:
+    """The TrialLog a trial directory's CSV files hold (write_log's inverse: floats are
+    written with repr, so they read back exactly). `mission` (a fleet.mission.Mission,
+    normally the trial's mission as run) gives each robot's state and input names; the
+    settle outcome, step and wall time come from report/metrics.json when present."""
+    import json
+
+    directory = Path(directory)
+    metrics_path = directory / "report" / "metrics.json"
+    metrics = json.loads(metrics_path.read_text()) if metrics_path.is_file() else {}
+    simulation = (mission.raw or {}).get("simulation") or {}
+    log = TrialLog(
+        mission_name=mission.name,
+        seed=int(metrics.get("seed", simulation.get("seed", 0))),
+        step=0.0,
+        duration=float(metrics.get("duration_s", simulation.get("duration", 0.0))),
+        settled_time=metrics.get("settled_time_s"),
+        stuck_time=metrics.get("stuck_time_s"),
+        wall_time=float(metrics.get("wall_time_s", 0.0)),
+    )
+    for row in read_csv(directory / "fleet.csv"):
+        log.time.append(float(row["time"]))
+        log.generation.append(int(row["generation"]))
+        log.cost.append(float(row["cost"]))
+        log.largest_distance.append(float(row["largest_distance"]))
+    steps = []
+    for entry in mission.roster:
+        model = entry.vehicle.model
+        robot = RobotLog(
+            name=entry.name,
+            vehicle_kind=model.kind,
+            state_names=tuple(model.state_names),
+            input_names=tuple(model.input_names),
+            position_indices=tuple(model.position_indices),
+        )
+        for row in read_csv(directory / "robots" / f"{entry.name}.csv"):
+            robot.time.append(float(row["time"]))
+            robot.generation.append(int(row["generation"]))
+            robot.state.append(np.array([float(row[n]) for n in robot.state_names]))
+            robot.input.append(np.array([float(row[n]) for n in robot.input_names]))
+            robot.target.append(np.array([float(row["target_x"]), float(row["target_y"])]))
+            robot.distance.append(float(row["distance"]))
+            robot.no_farther.append(_flag(row["no_farther"]))
+            robot.closer.append(_flag(row["closer"]))
+            robot.controller_ran.append(_flag(row["controller_ran"]))
+            robot.solve_time.append(float(row["solve_time"]))
+            robot.status.append(row["status"])
+            robot.solver_ok.append(_flag(row["solver_ok"]))
+            robot.fallback.append(row["fallback"])
+        log.robots[entry.name] = robot
+        if len(robot.time) > 1:
+            steps.append(np.diff(robot.time))
+    log.step = float(np.median(np.concatenate(steps))) if steps else 0.0
+    openings: dict[int, dict[str, Any]] = {}
+    for row in read_csv(directory / "gate_openings.csv"):
+        generation = int(row["generation"])
+        opening = openings.setdefault(
+            generation,
+            {"time": float(row["time"]), "reason": row["reason"], "cost": float(row["cost"]),
+             "positions": {}, "targets": {}, "distances": {}},
+        )
+        name = row["robot"]
+        opening["positions"][name] = np.array(
+            [float(row["position_x"]), float(row["position_y"])]
+        )
+        opening["targets"][name] = np.array([float(row["target_x"]), float(row["target_y"])])
+        opening["distances"][name] = float(row["distance"])
+    log.openings = [GateOpening(generation=g, **values) for g, values in sorted(openings.items())]
+    log.violations = [
+        LimitViolation(float(r["time"]), r["robot"], r["limit"], float(r["value"]),
+                       float(r["bound"]))
+        for r in read_csv(directory / "violations.csv")
+    ]
+    return log

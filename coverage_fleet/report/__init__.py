@@ -24,14 +24,16 @@ def write_report(
     settle_distance: float,
     footprints: dict[str, float] | None = None,
     map_origin: str | None = None,
+    extra_metrics: dict[str, Any] | None = None,
 ) -> dict[str, Any]:
-    """Write metrics.json and the figures into `directory`; returns the metrics.
-    `map_origin` (a geodetic mission's origin, LocalFrame.describe) labels the map axes."""
+    """Write metrics.json and the figures into `directory`; returns the metrics (with
+    `extra_metrics`, e.g. the provenance, added). `map_origin` (a geodetic mission's
+    origin, LocalFrame.describe) labels the map axes."""
     from coverage_fleet.report import figures
     from coverage_fleet.report.metrics import trial_metrics
 
     directory = Path(directory)
-    metrics = trial_metrics(log, region, density, footprints)
+    metrics = {**trial_metrics(log, region, density, footprints), **(extra_metrics or {})}
     (directory / "metrics.json").write_text(json.dumps(metrics, indent=2) + "\n")
     figures.plot_trajectories(directory / "trajectories.png", log, region, density,
                               map_origin)

@@ -1,219 +1,303 @@
-"""Recorder: listens to the graph and turns every message it hears into a trial record
-(coverage_fleet.fleet.trial_records), so a run of the ROS graph ends with the same trial
-directory and report as an offline simulation, written by the same code.
+"""Recorder: writes every topic of the graph, as the raw CDR bytes that travelled, into an
+MCAP recording (coverage_fleet.ros.recording), in a process of its own.
 
-Per robot, every odometry message opens a row (a re-published state is dropped); the
-command that follows fills its input, the controller's progress report for that state its
-distance and progress flags, and a solve outcome (`coverage/solve`) for that state its
-solver columns (`controller_ran` is true exactly on the states the controller solved on).
-Targets, generations, candidates (one fleet.csv row each), gate openings and the first
-"settled" and "stuck" come from the base station's topics.
+Why its own process: a recorder that shares a process with the launcher (or a node) stops
+with it, competes with it for the interpreter lock and, when it keeps its data in memory,
+loses the run on a crash. Here the launcher starts it like any node, first, and stops it
+last, after the other nodes have sent their final messages; a crash or SIGKILL of the
+recorder loses at most the chunk in progress (about a second), and the launcher builds the
+trial from what was written (`report` does the same for any recording).
+
+What it subscribes to:
+- at start-up, every topic of the graph's contract (coverage_fleet.ros.topics, the
+  mission's robots) with the QoS its publishers offer (coverage_fleet.ros.qos), so that
+  nothing is missed: in lockstep the simulator does not take its first step before the
+  recorder listens to every robot's odometry (`odom_subscribers`);
+- every FLUSH_PERIOD, any other topic that appeared in the graph (node logs on /rosout,
+  parameter events, topics added later), with the durability and reliability its
+  publishers offer.
+
+The recording's metadata and attachments (provenance, the mission as run, every vehicle
+file) are written before the first message.
 """
 
 from __future__ import annotations
 
-import math
-import threading
-from pathlib import Path
+import hashlib
+import json
+import os
+import shlex
+import time
+from importlib import metadata as package_metadata
 
-import numpy as np
-from diagnostic_msgs.msg import DiagnosticStatus
-from geometry_msgs.msg import PointStamped, Vector3Stamped
-from nav_msgs.msg import Odometry
+import yaml
 from rclpy.node import Node
-from std_msgs.msg import Float64MultiArray, String, UInt32
+from rclpy.qos import DurabilityPolicy, HistoryPolicy, QoSProfile, ReliabilityPolicy
+from rclpy.utilities import get_rmw_implementation_identifier
 
-from coverage_fleet.control.gate import GateOpening
-from coverage_fleet.fleet.message_checks import StateChecks
-from coverage_fleet.fleet.mission import Mission, RobotEntry, load_mission
-from coverage_fleet.fleet.trial import TrialLog
-from coverage_fleet.fleet.trial_records import (
-    CandidatesRecord,
-    CommandRecord,
-    GenerationRecord,
-    OpeningRecord,
-    ProgressRecord,
-    SettlingRecord,
-    SolveRecord,
-    StateRecord,
-    TargetRecord,
-    TrialAssembler,
-    TrialRecord,
+from coverage_fleet.errors import ConfigError
+from coverage_fleet.fleet.mission import (
+    Mission,
+    load_mission,
+    mission_as_run,
+    with_vehicle_overrides,
 )
+from coverage_fleet.inputs.fields import Collector
+from coverage_fleet.provenance import provenance
 
 from . import qos, topics
-from .conversions import (
-    candidates_from_msg,
-    command_from_msg,
-    command_message_type,
-    opening_from_msg,
-    progress_from_msg,
-    solve_from_msg,
-    target_from_msg,
-)
-from .inbox import Inbox
+from .conversions import command_message_type
+from .message_definitions import full_type_name, message_class
 from .parameters import declare
-from .runtime import main_for
+from .recording import (
+    FLUSH_PERIOD,
+    MISSION_AS_RUN,
+    RecordingWriter,
+    vehicle_attachment,
+)
+from .runtime import StopRequested, main_for
+
+#: History kept per subscription while the recorder catches up: the recorder must see every
+#: message, and a burst (lockstep runs as fast as the controllers) must not overrun it.
+RECORD_DEPTH = 1000
+#: While stopping, the recorder keeps taking messages until none came for this long (s).
+DRAIN_IDLE = 0.5
+#: ... but never longer than this (s).
+DRAIN_LIMIT = 5.0
 
 
-def _known(value: float) -> float | None:
-    return None if math.isnan(value) else float(value)
+def recording_profile(profile: QoSProfile) -> QoSProfile:
+    """The graph's profile for a topic, with room for every message."""
+    return QoSProfile(
+        history=HistoryPolicy.KEEP_LAST,
+        depth=max(RECORD_DEPTH, profile.depth),
+        reliability=profile.reliability,
+        durability=profile.durability,
+    )
+
+
+def graph_topics(mission: Mission) -> list[tuple[str, str, QoSProfile]]:
+    """(topic, type, QoS) of every topic of the graph's contract for `mission`."""
+    found = [
+        (topics.CELLS, "visualization_msgs/msg/MarkerArray", qos.LATCHED),
+        (topics.COST, "std_msgs/msg/Float64", qos.DISPLAY),
+        (topics.CANDIDATES, "std_msgs/msg/Float64MultiArray", qos.REPORTS),
+        (topics.GENERATION, "std_msgs/msg/UInt32", qos.LATCHED),
+        (topics.OPENINGS, "std_msgs/msg/Float64MultiArray", qos.OPENINGS),
+        (topics.SETTLING, "std_msgs/msg/String", qos.LATCHED),
+        (topics.DIAGNOSTICS, "diagnostic_msgs/msg/DiagnosticArray", qos.DISPLAY),
+        (topics.CLOCK, "rosgraph_msgs/msg/Clock", qos.CLOCK),
+    ]
+    for entry in mission.roster:
+        kind = entry.vehicle.command_kind
+        command = command_message_type(kind, entry.vehicle.command_stamped)
+        command_type = f"{command.__module__.split('.')[0]}/msg/{command.__name__}"
+        name = entry.name
+        # odom last: the lockstep simulator starts once the recorder listens to it, and by
+        # then every other subscription of the recorder exists.
+        found += [
+            (topics.robot_topic(name, topics.command_topic(kind)), command_type, qos.COMMAND),
+            (topics.robot_topic(name, topics.TARGET), "geometry_msgs/msg/PointStamped",
+             qos.LATCHED),
+            (topics.robot_topic(name, topics.PROGRESS), "geometry_msgs/msg/Vector3Stamped",
+             qos.REPORTS),
+            (topics.robot_topic(name, topics.PLAN), "nav_msgs/msg/Path", qos.DISPLAY),
+            (topics.robot_topic(name, topics.SOLVE), "diagnostic_msgs/msg/DiagnosticStatus",
+             qos.REPORTS),
+        ]
+    found += [
+        (topics.robot_topic(e.name, topics.ODOM), "nav_msgs/msg/Odometry", qos.STATE_RECORDED)
+        for e in mission.roster
+    ]
+    return found
+
+
+def ros_provenance() -> dict[str, str]:
+    """The ROS side of the provenance: distribution (ROS installs set ROS_DISTRO; the
+    wheels are identified by their rclpy version) and middleware."""
+    try:
+        rclpy_version = package_metadata.version("ros-rclpy")
+    except package_metadata.PackageNotFoundError:
+        rclpy_version = "unknown"
+    return {
+        "ros_distro": os.environ.get("ROS_DISTRO", "unknown (ROS 2 wheels)"),
+        "rclpy": rclpy_version,
+        "rmw": get_rmw_implementation_identifier(),
+        "ros_domain_id": os.environ.get("ROS_DOMAIN_ID", "0"),
+        "ros_automatic_discovery_range": os.environ.get("ROS_AUTOMATIC_DISCOVERY_RANGE", ""),
+    }
+
+
+def parse_overrides(text: str) -> dict[str, str]:
+    """The `vehicle_overrides` parameter: a JSON object robot -> vehicle file."""
+    if not text:
+        return {}
+    try:
+        value = json.loads(text)
+    except json.JSONDecodeError as error:
+        raise ConfigError.single(
+            "recorder parameters", "vehicle_overrides", f"must be a JSON object: {error}"
+        ) from None
+    if not isinstance(value, dict) or not all(
+        isinstance(k, str) and isinstance(v, str) for k, v in value.items()
+    ):
+        raise ConfigError.single(
+            "recorder parameters", "vehicle_overrides",
+            "must be a JSON object of robot names to vehicle file paths",
+        )
+    return value
 
 
 class RecorderNode(Node):
-    def __init__(self, mission_file: str | None = None) -> None:
+    def __init__(self) -> None:
         super().__init__("coverage_recorder")
-        mission_file = declare(
-            self, "mission_file", mission_file or "", "Mission file (YAML) of the run."
+        mission_file = declare(self, "mission_file", "", "Mission file (YAML) of the run.")
+        overrides = declare(
+            self, "vehicle_overrides", "",
+            "JSON object robot -> vehicle file: the launcher's --vehicle overrides.",
         )
-        self.output_dir = declare(
-            self, "output_dir", "",
-            "Trial directory to write when the node stops; empty = record only (the "
-            "launcher writes the trial itself).",
+        output = declare(self, "output", "", "MCAP file to write (must not exist yet).")
+        duration = declare(
+            self, "duration", 0.0,
+            "Simulated seconds of the run (0: the mission's), for the mission as run.",
+            (0.0, 1e7),
         )
-        self.mission: Mission = load_mission(mission_file)
-        # States are checked as the partition node checks them (a bad one is not a row of
-        # the trial), except the stamp: this node's clock need not be the graph's.
-        self.state_checks = StateChecks(self.mission.region, stamps=None)
-        self.inbox = Inbox(self)
-        self.lock = threading.Lock()
-        self.names = list(self.mission.robot_names)
-        self.assembler = TrialAssembler(self.mission, self.mission.simulation.seed)
-        #: robot -> newest state heard (a command is turned into an input at it)
-        self.states: dict[str, np.ndarray] = {}
-        for entry in self.mission.roster:
-            self._listen_to(entry)
-        self.create_subscription(
-            Float64MultiArray, topics.CANDIDATES, self._on_candidates, qos.REPORTS
+        simulation = declare(
+            self, "simulation", "", "Simulation mode of the run (lockstep, realtime, '')."
         )
-        self.create_subscription(Float64MultiArray, topics.OPENINGS, self._on_opening, qos.OPENINGS)
-        self.create_subscription(
-            UInt32, topics.GENERATION,
-            lambda msg: self._add(GenerationRecord(int(msg.data))), qos.LATCHED,
+        command_line = declare(
+            self, "command_line", "", "The command line that started the run (provenance)."
         )
-        self.create_subscription(
-            String, topics.SETTLING,
-            lambda msg: self._add(SettlingRecord(str(msg.data))), qos.LATCHED,
+        if not output:
+            raise ConfigError.single("recorder parameters", "output", "is required")
+        options = Collector("recorder parameters")
+        self.mission = with_vehicle_overrides(
+            load_mission(mission_file), parse_overrides(overrides), options
         )
-
-    def _listen_to(self, entry: RobotEntry) -> None:
-        name = entry.name
-        kind = entry.vehicle.command_kind
-        self.create_subscription(
-            Odometry, topics.robot_topic(name, topics.ODOM),
-            lambda msg, e=entry: self._on_odom(e, msg), qos.STATE_RECORDED,
-        )
-        self.create_subscription(
-            command_message_type(kind, entry.vehicle.command_stamped),
-            topics.robot_topic(name, topics.command_topic(kind)),
-            lambda msg, e=entry, k=kind: self._on_command(e, msg, k), qos.REPORTS,
-        )
-        self.create_subscription(
-            PointStamped, topics.robot_topic(name, topics.TARGET),
-            lambda msg, n=name: self._add(TargetRecord(n, target_from_msg(msg)[0])),
-            qos.LATCHED,
-        )
-        self.create_subscription(
-            Vector3Stamped, topics.robot_topic(name, topics.PROGRESS),
-            lambda msg, n=name: self._on_progress(n, msg), qos.REPORTS,
-        )
-        self.create_subscription(
-            DiagnosticStatus, topics.robot_topic(name, topics.SOLVE),
-            lambda msg, n=name: self._on_solve(n, msg), qos.REPORTS,
+        self.writer = RecordingWriter(output)
+        self._describe_run(duration, simulation, command_line)
+        self.subscribed: dict[str, str] = {}
+        self.received = 0
+        for topic, type_name, profile in graph_topics(self.mission):
+            self._record(topic, type_name, recording_profile(profile))
+        self.create_timer(FLUSH_PERIOD, self._tick)
+        self.get_logger().info(
+            f"recording {len(self.subscribed)} topics to {output} "
+            f"(chunks closed every {FLUSH_PERIOD:g} s)"
         )
 
-    def _add(self, record: TrialRecord) -> None:
-        with self.lock:
-            self.assembler.add(record)
+    def _describe_run(self, duration: float, simulation: str, command_line: str) -> None:
+        mission = self.mission
+        writer = self.writer
+        found = provenance(shlex.split(command_line) if command_line else None)
+        writer.add_metadata("provenance", {**found, **ros_provenance()})
+        writer.add_metadata(
+            "run",
+            {
+                "mission": mission.name,
+                "mission_file": str(mission.source),
+                "namespace": self.get_namespace(),
+                "simulation": simulation or "none (real robots)",
+                "duration_s": repr(duration or mission.simulation.duration),
+                "seed": str(mission.simulation.seed),
+                "started_utc": time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()),
+            },
+        )
+        writer.add_attachment(f"mission/{mission.source.name}", mission.source.read_bytes())
+        as_run = mission_as_run(
+            mission, mission.simulation.seed, duration or mission.simulation.duration
+        )
+        sources, hashes = {}, {}
+        for item, entry in zip(as_run["roster"], mission.roster, strict=True):
+            data = entry.vehicle_path.read_bytes()
+            writer.add_attachment(vehicle_attachment(entry.name), data)
+            item["vehicle"] = vehicle_attachment(entry.name)
+            sources[entry.name] = str(entry.vehicle_path)
+            hashes[entry.name] = hashlib.sha256(data).hexdigest()
+        writer.add_metadata("vehicle_files", sources)
+        writer.add_metadata("vehicle_sha256", hashes)
+        writer.add_attachment(
+            MISSION_AS_RUN,
+            yaml.safe_dump(as_run, sort_keys=False, default_flow_style=None).encode(),
+        )
+        writer.flush()
 
-    # --- callbacks: message -> record ---------------------------------------------------
+    def _record(self, topic: str, type_name: str, profile: QoSProfile) -> None:
+        """Record a topic (relative names resolve in this node's namespace, the fleet's);
+        the channel carries the absolute name."""
+        topic = self.resolve_topic_name(topic)
+        type_name = full_type_name(type_name)
+        channel = self.writer.channel(topic, type_name)
+        write = self.writer.write
 
-    def _on_odom(self, entry: RobotEntry, msg: Odometry) -> None:
-        good = self.inbox.odometry(entry.name, msg, self.state_checks)
-        if good is None:
-            return
-        odom, stamp = good
-        x = np.asarray(entry.vehicle.model.state_from_odometry(odom), float)
-        with self.lock:
-            self.states[entry.name] = x
-            self.assembler.add(StateRecord(entry.name, stamp, x))
+        def on_message(data: bytes, channel: int = channel) -> None:
+            self.received += 1
+            write(channel, data, time.time_ns())
 
-    def _on_command(self, entry: RobotEntry, msg, kind) -> None:
-        values = command_from_msg(msg, kind)
-        with self.lock:
-            x = self.states.get(entry.name)
-            if x is not None:  # a command answers the newest state
-                u = np.asarray(entry.vehicle.model.input_from_command(values, x), float)
-                self.assembler.add(CommandRecord(entry.name, u))
+        self.create_subscription(message_class(type_name), topic, on_message, profile, raw=True)
+        self.subscribed[topic] = type_name
 
-    def _on_progress(self, name: str, msg: Vector3Stamped) -> None:
-        report = progress_from_msg(msg)
-        self._add(
-            ProgressRecord(
-                name, report.state_time, _known(report.distance_at_commit),
-                _known(report.distance_now),
+    def _tick(self) -> None:
+        self.writer.flush()
+        self._discover()
+
+    def _discover(self) -> None:
+        """Subscribe to topics that appeared in the graph, with their publishers' QoS."""
+        for topic, types in self.get_topic_names_and_types():
+            if topic in self.subscribed or len(types) != 1:
+                continue
+            publishers = self.get_publishers_info_by_topic(topic)
+            if not publishers:
+                continue
+            try:
+                message_class(types[0])
+            except (ImportError, AttributeError, ValueError):
+                continue  # a type this environment cannot decode: not recordable here
+            profiles = [p.qos_profile for p in publishers]
+            latched = all(p.durability == DurabilityPolicy.TRANSIENT_LOCAL for p in profiles)
+            reliable = all(p.reliability == ReliabilityPolicy.RELIABLE for p in profiles)
+            self._record(
+                topic, types[0],
+                QoSProfile(
+                    history=HistoryPolicy.KEEP_LAST,
+                    depth=RECORD_DEPTH,
+                    reliability=(
+                        ReliabilityPolicy.RELIABLE if reliable
+                        else ReliabilityPolicy.BEST_EFFORT
+                    ),
+                    durability=(
+                        DurabilityPolicy.TRANSIENT_LOCAL if latched
+                        else DurabilityPolicy.VOLATILE
+                    ),
+                ),
             )
-        )
 
-    def _on_solve(self, name: str, msg: DiagnosticStatus) -> None:
-        solve = solve_from_msg(msg)
-        self._add(
-            SolveRecord(
-                name, solve.state_time, solve.solve_time, solve.status, solve.success,
-                solve.fallback,
-            )
-        )
-
-    def _on_candidates(self, msg: Float64MultiArray) -> None:
-        values = self.inbox.accept(
-            "candidates", "candidates table", lambda: candidates_from_msg(msg, len(self.names))
-        )
-        if values is None:
-            return
-        positions = {self.names[i]: p for i, p in values.positions.items()}
-        self._add(CandidatesRecord(values.time, values.cost, positions))
-
-    def _on_opening(self, msg: Float64MultiArray) -> None:
-        values = self.inbox.accept(
-            "openings", "gate opening", lambda: opening_from_msg(msg, len(self.names))
-        )
-        if values is None:
-            return
-        names = self.names
-        opening = GateOpening(
-            time=values.time,
-            generation=values.generation,
-            reason=values.reason,
-            cost=values.cost,
-            positions={names[i]: p for i, p in values.positions.items()},
-            targets={names[i]: t for i, t in values.targets.items()},
-            distances={names[i]: d for i, d in values.distances.items()},
-        )
-        self._add(OpeningRecord(opening))
-
-    # --- the trial ----------------------------------------------------------------------
-
-    def trial_log(self, wall_time: float = 0.0) -> TrialLog:
-        """What was recorded, finished (step, duration, limit check)."""
-        with self.lock:
-            return self.assembler.finish(wall_time=wall_time)
-
-    def write(self, directory: str | Path, wall_time: float = 0.0):
-        """Write the trial directory (logs, mission as run, report); returns (path, metrics)."""
-        from coverage_fleet.report.trial import write_mission_trial
-
-        return write_mission_trial(directory, self.mission, self.trial_log(wall_time))
+    def before_stop(self) -> None:
+        """Take what is still queued (the other nodes' last messages), then finish."""
+        executor = self.executor
+        started = idle_since = time.monotonic()
+        while executor is not None and time.monotonic() - started < DRAIN_LIMIT:
+            before = self.received
+            try:
+                executor.spin_once(timeout_sec=0.05)
+            except (StopRequested, KeyboardInterrupt):
+                break  # a second stop signal: finish now
+            now = time.monotonic()
+            if self.received != before:
+                idle_since = now
+            elif now - idle_since >= DRAIN_IDLE:
+                break
+        self.writer.close()
 
     def destroy_node(self) -> None:
-        if self.output_dir:
-            path, _ = self.write(self.output_dir)
-            self.get_logger().info(f"trial written to {path}")
+        writer: RecordingWriter | None = getattr(self, "writer", None)
+        if writer is not None:
+            writer.close()
         super().destroy_node()
 
 
 def main() -> None:
     main_for(RecorderNode, program="coverage_fleet_recorder")
-
 
 if __name__ == "__main__":
     main()
