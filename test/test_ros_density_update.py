@@ -87,7 +87,7 @@ def test_density_update_through_the_graph_settles_at_the_new_cvt(tmp_path: Path)
         watcher.join(timeout=10)
         node.destroy_node()
         rclpy.shutdown()
-    logs = {p.name: p.read_text() for p in Path(f"{trial}.logs").glob("*.log")}
+    logs = {p.name: p.read_text() for p in (trial / "logs").glob("*.log")}
     tails = "\n".join(f"--- {name}\n{text[-1500:]}" for name, text in logs.items())
     assert published.is_set(), output[-3000:]
     assert process.returncode == 0, output[-3000:] + tails
