@@ -57,5 +57,15 @@ def provenance(command_line: list[str] | None = None) -> dict[str, str]:
     }
     for name in LIBRARIES:
         found[name] = library_version(name)
-    found["command_line"] = shlex.join(sys.argv if command_line is None else command_line)
+    found["command_line"] = shlex.join(command_line or _own_command_line())
     return found
+
+
+def _own_command_line() -> list[str]:
+    """This process's command line, with the package's command under its installed name
+    (`python -m coverage_fleet.cli.main simulate ...` -> `coverage-fleet simulate ...`)."""
+    argv = list(sys.argv)
+    if argv and Path(argv[0]).as_posix().endswith(("coverage_fleet/cli/main.py",
+                                                   "coverage-fleet")):
+        argv[0] = "coverage-fleet"
+    return argv

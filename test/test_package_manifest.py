@@ -32,11 +32,13 @@ ROSDEP_KEY = {
     "dask": "python3-dask-distributed-pip",
     "distributed": "python3-dask-distributed-pip",
     "rich": "python3-rich-pip",
+    "mcap": "python3-mcap-pip",
+    "mcap_ros2": "python3-mcap-ros2-support-pip",
     "pytest": "python3-pytest",
     "hypothesis": "python3-hypothesis",
 }
 #: Import name -> distribution name on the package index (requirements/*.txt).
-PIP_NAME = {"yaml": "pyyaml", "PIL": "pillow"}
+PIP_NAME = {"yaml": "pyyaml", "PIL": "pillow", "mcap_ros2": "mcap-ros2-support"}
 
 
 def imported_top_level(folder: Path) -> set[str]:

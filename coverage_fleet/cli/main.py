@@ -26,6 +26,7 @@ COMMAND_MODULES = [
     "coverage_fleet.cli.watch_command",
     "coverage_fleet.cli.rviz_command",
     "coverage_fleet.cli.report_command",
+    "coverage_fleet.cli.compare_command",
 ]
 
 EXIT_BAD_INPUT = 2
