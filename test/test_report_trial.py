@@ -93,8 +93,8 @@ def test_the_mission_as_run_names_the_override_and_reproduces_the_run(trials) ->
     assert np.all(step_lengths <= SLOW_SPEED * np.diff(table["time"]) + 0.01)
     plain = np.genfromtxt(trials["plain"] / "robots" / "rover_a.csv", delimiter=",",
                           names=True)
-    plain_steps = np.hypot(np.diff(plain["x"]), np.diff(plain["y"])) / np.diff(plain["time"])
-    assert plain_steps.max() > SLOW_SPEED + 0.2
+    gap = np.hypot(plain["x"][-1] - table["x"][-1], plain["y"][-1] - table["y"][-1])
+    assert gap > 0.05  # with its own vehicle file the rover went elsewhere
 
 
 def test_a_report_rebuilt_from_the_csv_logs_has_the_same_metrics(trials, tmp_path) -> None:
