@@ -315,3 +315,15 @@ def test_a_recorder_killed_mid_run_leaves_its_complete_chunks(folder: Path) -> N
         for record in StreamReader(handle).records:
             read += isinstance(record, Message)
     assert read == len(recording.messages)
+
+
+def test_report_refuses_what_holds_no_trial(recorded, folder: Path) -> None:
+    _, trial = recorded
+    head = folder / "head.mcap"
+    head.write_bytes((trial / "recording.mcap").read_bytes()[:3000])  # before any message
+    for source, expected in ((head, "attachments: no mission_as_run.yaml attachment"),
+                             (folder / "mission.yaml", "is neither an MCAP recording")):
+        result = command("report", str(source), "--out", str(folder / "never"))
+        assert result.returncode == 2, result.stderr
+        assert f"{source}: " in result.stderr and expected in result.stderr, result.stderr
+        assert "Traceback" not in result.stderr and not (folder / "never").exists()

@@ -178,7 +178,9 @@ def mission_from_recording(recording: Recording, folder: Path) -> Mission:
     if MISSION_AS_RUN not in recording.attachments:
         raise ConfigError.single(
             str(recording.path), "attachments",
-            f"no {MISSION_AS_RUN} attachment (not a recording made by coverage-fleet launch)",
+            f"no {MISSION_AS_RUN} attachment ("
+            + (recording.problem if recording.problem and not recording.complete
+               else "not a recording made by coverage-fleet launch") + ")",
         )
     for name, data in recording.attachments.items():
         if name == MISSION_AS_RUN or name.startswith("vehicles/"):
@@ -229,6 +231,13 @@ def trial_from_recording(
             duration=mission.simulation.duration,
             namespace=recording.metadata.get("run", {}).get("namespace", "/"),
         )
+        silent = [name for name, robot in log.robots.items() if not robot.time]
+        if silent:
+            raise ConfigError.single(
+                str(path), "messages",
+                f"no odometry of {', '.join(silent)} was recorded: no trial to build"
+                + (f" ({recording.problem})" if recording.problem else ""),
+            )
         written, metrics = write_mission_trial(
             directory, mission, log,
             provenance=recording_provenance(recording),
