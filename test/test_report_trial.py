@@ -37,7 +37,7 @@ roster:
 settle: {speed: 0.1}
 simulation: {duration: 3.0, seed: 4, process_noise_std: 0.001, measurement_noise_std: 0.002}
 """
-SLOW_SPEED = 0.3
+SLOW_SPEED = 0.1
 SAME_FILES = ("fleet.csv", "gate_openings.csv", "violations.csv", "robots/rover_a.csv",
               "robots/drone_b.csv", "vehicles/rover_a.yaml", "vehicles/drone_b.yaml")
 
