@@ -252,8 +252,12 @@ def test_offline_and_ros_trials_have_the_same_layout_and_meaning(baseline, offli
     offline_path, offline_metrics = offline_trial
     assert csv_headers(trial) == csv_headers(offline_path), output[-2000:]
     files = {str(p.relative_to(trial)) for p in trial.rglob("*") if p.is_file()}
-    assert files == {str(p.relative_to(offline_path)) for p in offline_path.rglob("*")
-                     if p.is_file()}
+    # The same files, and a ROS trial also keeps the recording it was built from and the
+    # node logs.
+    ros_only = {f for f in files if f == "recording.mcap" or f.startswith("logs/")}
+    assert "recording.mcap" in ros_only and "logs/simulator.log" in ros_only
+    assert files - ros_only == {str(p.relative_to(offline_path))
+                                for p in offline_path.rglob("*") if p.is_file()}
     ros_metrics = json.loads((trial / "report" / "metrics.json").read_text())
     assert set(ros_metrics) == set(offline_metrics)
     assert set(ros_metrics["solve_time"]) == set(offline_metrics["solve_time"])
