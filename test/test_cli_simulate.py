@@ -77,7 +77,7 @@ def test_trial_directory_layout(trials) -> None:
     expected = sorted(
         ["mission.yaml", "fleet.csv", "gate_openings.csv", "violations.csv",
          "report/metrics.json", *(f"report/{f}" for f in FIGURES),
-         *(f"robots/{r}.csv" for r in robots)]
+         *(f"robots/{r}.csv" for r in robots), *(f"vehicles/{r}.yaml" for r in robots)]
     )
     assert names == expected
     assert not [p for p in directory.parent.iterdir() if p.name.startswith(".")]
@@ -89,8 +89,10 @@ def test_mission_as_run_records_seed_and_resolved_paths(trials) -> None:
     directory, _, _ = trials["a"]
     as_run = yaml.safe_load((directory / "mission.yaml").read_text())
     assert as_run["simulation"]["seed"] == 5
+    # Self-contained: each robot runs from the trial's own copy of its vehicle file.
     for robot in as_run["roster"]:
-        assert Path(robot["vehicle"]).is_absolute() and Path(robot["vehicle"]).is_file()
+        assert robot["vehicle"] == f"vehicles/{robot['name']}.yaml"
+        assert (directory / robot["vehicle"]).is_file()
 
 
 def test_log_has_every_step(trials) -> None:
