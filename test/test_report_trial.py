@@ -49,9 +49,11 @@ def trials(tmp_path_factory: pytest.TempPathFactory) -> dict[str, Path]:
     folder = tmp_path_factory.mktemp("trials")
     (folder / "mission.yaml").write_text(MISSION)
     text = (REPO / "config/vehicles/differential_drive.yaml").read_text()
-    assert "max_speed: 1.0" in text
+    assert "max_speed: 1.0" in text and "max_reverse_speed: 0.3" in text
     slow = folder / "slow_rover.yaml"
-    slow.write_text(text.replace("max_speed: 1.0", f"max_speed: {SLOW_SPEED}"))
+    # Both ways: from its start the rover backs towards its target.
+    slow.write_text(text.replace("max_speed: 1.0", f"max_speed: {SLOW_SPEED}").replace(
+        "max_reverse_speed: 0.3", f"max_reverse_speed: {SLOW_SPEED}"))
     mission = load_mission(folder / "mission.yaml")
     overridden = with_vehicle_overrides(mission, {"rover_a": slow}, Collector("command line"))
     found = {}
