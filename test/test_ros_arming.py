@@ -132,7 +132,7 @@ def test_launching_real_robots_needs_a_confirmation(
     assert status == 2 and "Traceback" not in err
     assert "command line: --confirm-real-robots: is required" in err
     assert f"({ROBOT}, " not in err and f"({ROBOT})" in err
-    assert not out.exists() and not Path(f"{out}.logs").exists()
+    assert not out.exists() and not Path(f"{out}.run").exists()
 
 
 def test_arm_refuses_a_robot_not_in_the_roster(
