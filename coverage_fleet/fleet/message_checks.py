@@ -49,9 +49,11 @@ IMPLAUSIBLE_POSITION = "implausible_position"
 BAD_TABLE = "bad_table"
 BAD_INDEX = "bad_index"
 FLOOD = "flood"
+#: A localization pose whose covariance says the position is too uncertain (fleet/pose_state.py).
+TOO_UNCERTAIN = "too_uncertain"
 REASONS = (
     NOT_FINITE, WRONG_FRAME, STAMP_FUTURE, STAMP_PAST, IMPLAUSIBLE_POSITION, BAD_TABLE,
-    BAD_INDEX, FLOOD,
+    BAD_INDEX, FLOOD, TOO_UNCERTAIN,
 )
 
 

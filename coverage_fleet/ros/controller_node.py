@@ -39,6 +39,13 @@ newest good state ages, and the watchdog brakes once it is stale. States beyond
 `max_state_rate` per second (a flood on the robot's odometry) are dropped and counted too,
 so that a flood cannot make the controller flood the rest of the graph with answers.
 
+State from a localization pose (`state_from_pose`): instead of `odom` the node takes
+geometry_msgs/PoseWithCovarianceStamped on `pose` (map frame), checked like odometry plus a
+covariance check (`max_position_std`, reason too_uncertain); the velocity parts of the state
+are filtered finite differences of successive poses (fleet/pose_state.py, time constant
+`pose_velocity_time_constant`). The state so formed goes out as nav_msgs/Odometry on
+`coverage/state`, where the base station reads the robot's map-frame position and speed.
+
 Geofence (control/geofence.py): a robot more than `geofence_margin` outside the region gets
 its braking input and an ERROR diagnostic; once slower than `geofence_rest_speed` a return
 plan (the MPC on a problem shifted inside, position invariance) brings it back, then normal
@@ -53,7 +60,7 @@ import time as wallclock
 
 import numpy as np
 from diagnostic_msgs.msg import DiagnosticArray, DiagnosticStatus
-from geometry_msgs.msg import PointStamped, Vector3Stamped
+from geometry_msgs.msg import PointStamped, PoseWithCovarianceStamped, Vector3Stamped
 from nav_msgs.msg import Odometry, Path
 from rclpy.lifecycle import LifecycleNode, LifecycleState, TransitionCallbackReturn
 from std_msgs.msg import UInt32
@@ -72,8 +79,10 @@ from coverage_fleet.fleet.message_checks import (
     RateLimit,
     check_finite,
     check_frame,
+    check_odometry,
 )
 from coverage_fleet.fleet.mission import load_mission
+from coverage_fleet.fleet.pose_state import PoseVelocity, check_position_covariance
 
 from . import qos, topics
 from .conversions import (
@@ -82,9 +91,12 @@ from .conversions import (
     command_message_type,
     command_to_msg,
     diagnostic_status,
+    odometry_to_msg,
     plan_to_msg,
+    pose_from_msg,
     progress_to_msg,
     solve_to_msg,
+    stamp_to_seconds,
     target_from_msg,
 )
 from .fleet_stop import listen_to_fleet_stop
@@ -132,6 +144,22 @@ class ControllerNode(LifecycleNode):
             (1.0, 1e5),
         )
         self.state_limit = RateLimit(max_state_rate, max(1.0, max_state_rate / 10.0))
+        self.state_from_pose = declare(
+            self, "state_from_pose", False,
+            "Take the state from a localization pose (geometry_msgs/PoseWithCovarianceStamped "
+            "on `pose`, map frame) instead of `odom`; velocities from filtered differences of "
+            "successive poses; the state is republished on coverage/state for the base station.",
+        )
+        self.max_position_std = declare(
+            self, "max_position_std", 0.5,
+            "Metres: a pose whose covariance gives a larger position standard deviation (worst "
+            "direction) is dropped as too_uncertain (state_from_pose only).", (1e-3, 1000.0),
+        )
+        self.pose_velocity = PoseVelocity(declare(
+            self, "pose_velocity_time_constant", 0.2,
+            "Seconds: time constant of the low-pass filter on pose differences that gives the "
+            "velocity (state_from_pose only; 0 = raw differences).", (0.0, 10.0),
+        ))
         geofence = GeofenceSettings(
             margin=declare(
                 self, "geofence_margin", 0.5,
@@ -196,7 +224,13 @@ class ControllerNode(LifecycleNode):
         # Before odom: when both are waiting, the executor takes the stop first.
         self.fleet_stopped = False
         listen_to_fleet_stop(self, self._on_fleet_stop, fleet)
-        self.create_subscription(Odometry, topics.ODOM, self._on_odom, qos.STATE_IN)
+        if self.state_from_pose:
+            self.state_pub = self.create_publisher(Odometry, topics.STATE, qos.STATE)
+            self.create_subscription(
+                PoseWithCovarianceStamped, topics.POSE, self._on_pose, qos.STATE_IN
+            )
+        else:
+            self.create_subscription(Odometry, topics.ODOM, self._on_odom, qos.STATE_IN)
         self.create_subscription(PointStamped, topics.TARGET, self._on_target, qos.LATCHED)
         self.create_subscription(
             UInt32, topics.in_namespace(fleet, topics.GENERATION),
@@ -264,12 +298,35 @@ class ControllerNode(LifecycleNode):
 
     # --- inputs -------------------------------------------------------------------------
 
+    def _flooded(self, what: str) -> bool:
+        if self.state_limit.allow(wallclock.monotonic()):
+            return False
+        self.inbox.rates.saw(self.robot)
+        self.inbox.drop(self.robot, BadMessageError(FLOOD, "more states than max_state_rate"), what)
+        return True
+
+    def _on_pose(self, msg: PoseWithCovarianceStamped) -> None:
+        if self._flooded("pose"):
+            return
+
+        def convert():
+            pose, covariance = pose_from_msg(msg)
+            stamp = stamp_to_seconds(msg.header.stamp)
+            check_odometry(pose, msg.header.frame_id, stamp, self.inbox.now(), self.state_checks)
+            check_position_covariance(covariance, self.max_position_std)
+            return self.pose_velocity.update(pose.x, pose.y, pose.yaw, stamp), stamp
+
+        good = self.inbox.accept(self.robot, "pose", convert)
+        if good is None:
+            return
+        odom, stamp = good
+        self.state_pub.publish(
+            odometry_to_msg(odom, msg.header.stamp, self.frames.base, self.frames.map)
+        )
+        self._take_state(odom, stamp)
+
     def _on_odom(self, msg: Odometry) -> None:
-        if not self.state_limit.allow(wallclock.monotonic()):
-            self.inbox.rates.saw(self.robot)
-            self.inbox.drop(
-                self.robot, BadMessageError(FLOOD, "more states than max_state_rate"), "odometry"
-            )
+        if self._flooded("odometry"):
             return
         if msg.child_frame_id != self.frames.base:
             # The twist is read in the robot's base frame (REP 105); another frame's twist
@@ -282,7 +339,9 @@ class ControllerNode(LifecycleNode):
         good = self.inbox.odometry(self.robot, msg, self.state_checks)
         if good is None:
             return
-        odom, stamp = good
+        self._take_state(*good)
+
+    def _take_state(self, odom, stamp: float) -> None:
         self.speed = float(np.hypot(odom.body_vx, odom.body_vy))
         self.state = np.asarray(self.model.state_from_odometry(odom), float)
         self.state_time = stamp
@@ -439,8 +498,9 @@ class ControllerNode(LifecycleNode):
         wrong_frame = self.inbox.drops.counts(self.robot).get(WRONG_FRAME, 0)
         if wrong_frame and (self.state is None or age > self.state_timeout):
             # Odometry keeps coming but in another frame: say so, not just "stale".
+            source = "pose" if self.state_from_pose else "odometry"
             level, message = DiagnosticStatus.ERROR, (
-                f"odometry refused: not in the frames {self.frames.map!r} / "
+                f"{source} refused: not in the frames {self.frames.map!r} / "
                 f"{self.frames.base!r} (see {self.robot}.dropped.{WRONG_FRAME})"
             )
         values = {

@@ -46,6 +46,7 @@ from geometry_msgs.msg import (
     PointStamped,
     Pose,
     PoseStamped,
+    PoseWithCovarianceStamped,
     Quaternion,
     Twist,
     TwistStamped,
@@ -139,6 +140,16 @@ def odometry_from_msg(msg: Odometry) -> OdometryValues:
         body_vy=float(twist.linear.y),
         yaw_rate=float(twist.angular.z),
     )
+
+
+def pose_from_msg(msg: PoseWithCovarianceStamped) -> tuple[OdometryValues, list[float]]:
+    """A localization pose as odometry values without velocity (fleet/pose_state.py forms
+    it) and its row-major 6x6 covariance (x, y, z, rotation about x, y, z)."""
+    pose = msg.pose.pose
+    values = OdometryValues(
+        x=float(pose.position.x), y=float(pose.position.y), yaw=quaternion_to_yaw(pose.orientation)
+    )
+    return values, [float(v) for v in msg.pose.covariance]
 
 
 # --- commands -----------------------------------------------------------------------------

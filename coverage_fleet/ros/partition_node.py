@@ -110,6 +110,12 @@ class PartitionNode(Node):
                 Odometry, topics.robot_topic(name, topics.ODOM),
                 lambda msg, n=name: self._on_odom(n, msg), qos.STATE_IN,
             )
+            # A robot whose controller forms its state from a localization pose publishes
+            # that state here (controller_node.py, state_from_pose).
+            self.create_subscription(
+                Odometry, topics.robot_topic(name, topics.STATE),
+                lambda msg, n=name: self._on_odom(n, msg), qos.STATE_IN,
+            )
             self.create_subscription(
                 Vector3Stamped, topics.robot_topic(name, topics.PROGRESS),
                 lambda msg, n=name: self._on_progress(n), qos.REPORTS,

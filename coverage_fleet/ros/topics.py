@@ -19,6 +19,9 @@ from coverage_fleet.fleet.message_checks import EXPECTED_FRAME
 ODOM = "odom"
 #: Optional pose from a localization system (geometry_msgs/PoseWithCovarianceStamped).
 POSE = "pose"
+#: The state a controller formed from its robot's localization pose (nav_msgs/Odometry, pose
+#: in map, twist in the base frame), for the base station (controller_node.py).
+STATE = "coverage/state"
 TARGET = "coverage/target"
 PROGRESS = "coverage/progress"
 PLAN = "coverage/plan"
