@@ -51,6 +51,19 @@ def test_odometry_round_trip_in_map_frame() -> None:
         assert getattr(back, field) == pytest.approx(getattr(values, field), abs=1e-12)
 
 
+def test_localization_pose_reads_position_yaw_and_covariance() -> None:
+    msg = cv.PoseWithCovarianceStamped()
+    msg.pose.pose.position.x, msg.pose.pose.position.y = 3.0, -1.5
+    # yaw 2.0 rad about z (the quaternion rule checked against scipy above)
+    msg.pose.pose.orientation = cv.yaw_to_quaternion(2.0)
+    msg.pose.covariance = [float(k) for k in range(36)]
+    values, covariance = cv.pose_from_msg(msg)
+    assert (values.x, values.y) == (3.0, -1.5)
+    assert values.yaw == pytest.approx(2.0, abs=1e-12)
+    assert (values.body_vx, values.body_vy, values.yaw_rate) == (0.0, 0.0, 0.0)
+    assert covariance[7] == 7.0 and len(covariance) == 36
+
+
 @pytest.mark.parametrize(
     ("kind", "message_type"), [("twist", Twist), ("accel", Accel), ("wrench", Wrench)]
 )
