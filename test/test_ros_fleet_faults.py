@@ -49,7 +49,6 @@ class Launch(WatchedProcess):
         mission = folder / "mission.yaml"
         mission.write_text(MISSION)
         self.trial = folder / "trial"
-        self.logs = Path(f"{self.trial}.logs")
         super().__init__(
             [sys.executable, "-m", "coverage_fleet.cli.main", "launch", str(mission),
              "--headless-sim", "--out", str(self.trial)],
@@ -62,7 +61,9 @@ class Launch(WatchedProcess):
         return int(found.group(1))
 
     def log(self, name: str) -> str:
-        path = self.logs / f"{name}.log"
+        # Node logs live in <out>.run/logs while the graph runs, in the trial afterwards.
+        running = Path(f"{self.trial}.run") / "logs" / f"{name}.log"
+        path = running if running.exists() else self.trial / "logs" / f"{name}.log"
         return path.read_text() if path.exists() else ""
 
     def wait_for_log(self, name: str, text: str) -> None:
