@@ -42,6 +42,7 @@ from rosgraph_msgs.msg import Clock
 from std_msgs.msg import Float64MultiArray, String
 
 from coverage_fleet.cli.live_state import FleetWatch
+from coverage_fleet.fleet.message_checks import BadMessageError
 
 from . import qos, topics
 from .conversions import (
@@ -262,11 +263,17 @@ class LiveListener:
         self.watch.saw_solve(robot, solve.solve_time, solve.status, solve.success, solve.fallback)
 
     def _on_candidates(self, msg: Float64MultiArray) -> None:
-        values = candidates_from_msg(msg)
+        try:  # a malformed table is the gate's to count; the view just skips it
+            values = candidates_from_msg(msg)
+        except BadMessageError:
+            return
         self.watch.saw_candidates(values.time, values.cost)
 
     def _on_opening(self, msg: Float64MultiArray) -> None:
-        values = opening_from_msg(msg)
+        try:
+            values = opening_from_msg(msg)
+        except BadMessageError:
+            return
         self.watch.saw_opening(values.generation, values.time, values.reason)
 
     def _on_diagnostics(self, msg: DiagnosticArray) -> None:

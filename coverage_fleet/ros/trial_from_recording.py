@@ -153,12 +153,20 @@ class MessagesToRecords:
         )
 
     def _on_candidates(self, msg) -> None:
-        values = candidates_from_msg(msg)
+        try:  # a malformed table or an index outside the roster is not part of the trial
+            values = candidates_from_msg(msg, len(self.names))
+        except BadMessageError:
+            self.dropped += 1
+            return
         positions = {self.names[i]: p for i, p in values.positions.items()}
         self.assembler.add(CandidatesRecord(values.time, values.cost, positions))
 
     def _on_opening(self, msg) -> None:
-        values = opening_from_msg(msg)
+        try:
+            values = opening_from_msg(msg, len(self.names))
+        except BadMessageError:
+            self.dropped += 1
+            return
         names = self.names
         opening = GateOpening(
             time=values.time,
