@@ -150,3 +150,60 @@ def test_compare_refuses_what_is_not_a_trial(trials, tmp_path, arguments, expect
     )
     assert result.returncode == 2 and expected in result.stderr, result.stderr
     assert "Traceback" not in result.stderr
+
+
+RASTER_MISSION = """\
+name: pasture_pair   # invented test scenario: the demo pasture outline, a made-up wet corner
+region: {geojson: shapes/pasture.geojson}
+density:
+  kind: raster
+  origin_lonlat: [10.99999, 45.99999]
+  resolution: 4.0
+  file: grids/wetness.npy
+roster:
+  - {name: rover_a, vehicle: differential_drive, initial_pose: [-5.0, -3.5, 0.0]}
+  - {name: rover_b, vehicle: differential_drive, initial_pose: [-3.0, -3.5, 1.57]}
+settle: {speed: 0.1}
+simulation: {duration: 2.0, seed: 6, process_noise_std: 0.001, measurement_noise_std: 0.002}
+"""
+
+
+def test_a_raster_trial_reruns_from_its_own_folder_alone(tmp_path) -> None:
+    import shutil
+
+    source = tmp_path / "planning"
+    (source / "shapes").mkdir(parents=True)
+    (source / "grids").mkdir()
+    shutil.copy(REPO / "config/missions/hillside_pasture_survey.geojson",
+                source / "shapes" / "pasture.geojson")
+    # Invented wetness scores, north row first (the raster rule in the README).
+    np.save(source / "grids" / "wetness.npy",
+            np.array([[1.0, 1.0, 2.0, 4.0, 4.0], [1.0, 1.0, 2.0, 3.0, 4.0],
+                      [1.0, 1.0, 1.0, 2.0, 2.0], [1.0, 1.0, 1.0, 1.0, 1.0]]))
+    (source / "mission.yaml").write_text(RASTER_MISSION)
+    originals = {"data/wetness.npy": (source / "grids" / "wetness.npy").read_bytes(),
+                 "data/pasture.geojson": (source / "shapes" / "pasture.geojson").read_bytes()}
+    mission = load_mission(source / "mission.yaml")
+    first, _ = write_mission_trial(tmp_path / "first", mission, simulate_mission(mission))
+
+    as_run = (first / "mission.yaml").read_text()
+    assert "data/wetness.npy" in as_run and "data/pasture.geojson" in as_run
+    assert str(source) not in as_run  # no path back to the planning folder
+    provenance = json.loads((first / "report" / "metrics.json").read_text())["provenance"]
+    for name, data in originals.items():
+        assert (first / name).read_bytes() == data
+        assert provenance["data_files"][name]["sha256"] == hashlib.sha256(data).hexdigest()
+    # Moved elsewhere with the originals gone, the trial still loads and reruns identically
+    # (same seed and noise: the simulation's determinism contract).
+    moved = tmp_path / "elsewhere" / "trial"
+    shutil.copytree(first, moved)
+    shutil.rmtree(source)
+    shutil.rmtree(first)
+    rerun_mission = load_mission(moved / "mission.yaml")
+    rerun, _ = write_mission_trial(tmp_path / "rerun", rerun_mission,
+                                   simulate_mission(rerun_mission))
+    for name in ("fleet.csv", "gate_openings.csv", "robots/rover_a.csv", "robots/rover_b.csv"):
+        assert without_solve_times(rerun / name) == without_solve_times(moved / name), name
+    for name, data in originals.items():
+        assert (rerun / name).read_bytes() == data
+    assert len(without_solve_times(rerun / "robots" / "rover_a.csv")) > 2

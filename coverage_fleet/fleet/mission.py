@@ -604,6 +604,45 @@ def mission_as_run(
     return raw
 
 
+#: Where a self-contained trial or recording keeps the copies of the mission's data files.
+DATA_FOLDER = "data"
+
+
+def bundle_data_files(as_run: dict[str, Any]) -> dict[str, Path]:
+    """Make a mission as run name copies of its data files (raster densities, GeoJSON
+    regions, the densities of scheduled updates): every absolute path of an existing file
+    outside the roster (whose vehicle files have their own folder) becomes
+    `data/<file name>`, changed in place. Returns {copy name: file read}; loading the
+    mission as run from a folder holding the copies reproduces the run without the
+    originals."""
+    copies: dict[str, Path] = {}
+    by_source: dict[Path, str] = {}
+
+    def replace(value: Any) -> Any:
+        if isinstance(value, Mapping):
+            return {k: replace(v) for k, v in value.items()}
+        if isinstance(value, list):
+            return [replace(v) for v in value]
+        if isinstance(value, str) and Path(value).is_absolute() and Path(value).is_file():
+            source = Path(value)
+            if source not in by_source:
+                name = f"{DATA_FOLDER}/{source.name}"
+                # Two files of one name from different folders: number the later ones.
+                count = 1
+                while name in copies:
+                    count += 1
+                    name = f"{DATA_FOLDER}/{source.stem}-{count}{source.suffix}"
+                by_source[source] = name
+                copies[name] = source
+            return by_source[source]
+        return value
+
+    for key in list(as_run):
+        if key != "roster":
+            as_run[key] = replace(as_run[key])
+    return copies
+
+
 def with_vehicle_overrides(
     mission: Mission, overrides: Mapping[str, str | Path], options: Collector
 ) -> Mission:

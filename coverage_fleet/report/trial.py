@@ -7,7 +7,8 @@ Self-contained: every robot's vehicle file is copied into `vehicles/<robot>.yaml
 mission as run names those copies (a `--vehicle` override is therefore what the mission as
 run holds), so `coverage-fleet simulate <trial>/mission.yaml` reruns the trial anywhere;
 metrics.json carries the provenance (package, commit, library versions, command line, the
-vehicle files' sha256)."""
+vehicle files' sha256). The mission's data files (rasters, GeoJSON regions) are copied into
+`data/` the same way, with their sha256."""
 
 from __future__ import annotations
 
@@ -17,7 +18,7 @@ from pathlib import Path
 from typing import Any
 
 from coverage_fleet.fleet.density_updates import density_in_force
-from coverage_fleet.fleet.mission import Mission, mission_as_run
+from coverage_fleet.fleet.mission import Mission, bundle_data_files, mission_as_run
 from coverage_fleet.fleet.trial import TrialLog, write_trial
 from coverage_fleet.provenance import provenance as current_provenance
 
@@ -61,6 +62,17 @@ def write_mission_trial(
             "changed_since_loaded": digest != entry.vehicle.content_hash,
         }
     found["vehicles"] = vehicles
+    # Raster and GeoJSON files too: the trial reruns from its own folder alone.
+    data_sources = found.pop("data_sources", {})
+    data_files: dict[str, dict[str, str]] = {}
+    for name, source in bundle_data_files(as_run).items():
+        data = source.read_bytes()
+        contents[name] = data
+        data_files[name] = {
+            "source": data_sources.get(name, str(source)),
+            "sha256": hashlib.sha256(data).hexdigest(),
+        }
+    found["data_files"] = data_files
     found.setdefault("recording", None)
     metrics: dict[str, Any] = {}
     density = final_density(mission, log)

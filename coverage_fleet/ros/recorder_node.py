@@ -38,6 +38,7 @@ from rclpy.utilities import get_rmw_implementation_identifier
 from coverage_fleet.errors import ConfigError
 from coverage_fleet.fleet.mission import (
     Mission,
+    bundle_data_files,
     load_mission,
     mission_as_run,
     with_vehicle_overrides,
@@ -216,6 +217,11 @@ class RecorderNode(Node):
             hashes[entry.name] = hashlib.sha256(data).hexdigest()
         writer.add_metadata("vehicle_files", sources)
         writer.add_metadata("vehicle_sha256", hashes)
+        data_sources = {}
+        for name, source in bundle_data_files(as_run).items():
+            writer.add_attachment(name, source.read_bytes())
+            data_sources[name] = str(source)
+        writer.add_metadata("data_files", data_sources)
         writer.add_attachment(
             MISSION_AS_RUN,
             yaml.safe_dump(as_run, sort_keys=False, default_flow_style=None).encode(),

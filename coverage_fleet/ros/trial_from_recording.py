@@ -29,7 +29,7 @@ from rclpy.serialization import deserialize_message
 from coverage_fleet.control.gate import GateOpening
 from coverage_fleet.errors import ConfigError
 from coverage_fleet.fleet.message_checks import BadMessageError, StateChecks, check_odometry
-from coverage_fleet.fleet.mission import Mission, RobotEntry, load_mission
+from coverage_fleet.fleet.mission import DATA_FOLDER, Mission, RobotEntry, load_mission
 from coverage_fleet.fleet.trial import TrialLog
 from coverage_fleet.fleet.trial_records import (
     CandidatesRecord,
@@ -191,7 +191,7 @@ def mission_from_recording(recording: Recording, folder: Path) -> Mission:
                else "not a recording made by coverage-fleet launch") + ")",
         )
     for name, data in recording.attachments.items():
-        if name == MISSION_AS_RUN or name.startswith("vehicles/"):
+        if name == MISSION_AS_RUN or name.startswith(("vehicles/", f"{DATA_FOLDER}/")):
             target = folder / name
             target.parent.mkdir(parents=True, exist_ok=True)
             target.write_bytes(data)
@@ -259,6 +259,7 @@ def recording_provenance(recording: Recording) -> dict[str, Any]:
     """The provenance a recording carries, and how complete it is."""
     found: dict[str, Any] = dict(recording.metadata.get("provenance", {}))
     found["vehicle_sources"] = dict(recording.metadata.get("vehicle_files", {}))
+    found["data_sources"] = dict(recording.metadata.get("data_files", {}))
     found["recording"] = {
         "file": "recording.mcap",
         "complete": recording.complete,
