@@ -389,8 +389,8 @@ def test_relaunching_the_mission_as_run_reproduces_the_overridden_run(recorded, 
         assert a[key] == b[key], key
     # Tolerances: a gate commit shifted by a step or two moves the run's end by the distance
     # driven in those steps and may add or drop a generation. Measured on a loaded 2-core
-    # machine (2026-12-02): 53 vs 54 generations, final cost 0.25 % apart, final positions
-    # 0.04-0.11 m apart; the bounds leave about three times that room (from that measurement).
+    # machine (2026-12-02, two runs): 53/54 and 51/52 generations, final cost 0.25 % apart,
+    # final positions 0.04-0.15 m apart; the bounds leave about twice that room or more.
     assert abs(a["generations"] - b["generations"]) <= 3
     assert b["final_cost"] == pytest.approx(a["final_cost"], rel=0.02)
     assert max(gaps.values()) <= 0.3, gaps
