@@ -153,3 +153,97 @@ def test_the_domain_is_never_guessed() -> None:
     )
     assert done.returncode == 2 and "Traceback" not in done.stderr
     assert "command line: --domain-id: is required" in done.stderr
+
+
+#: An invented fleet namespace (one ROS name segment, the robot-name rule).
+NAMESPACE = "yard_b"
+
+
+def _fleet_command(*arguments: str) -> subprocess.CompletedProcess:
+    return subprocess.run(
+        [sys.executable, "-m", "coverage_fleet.cli.main", *arguments],
+        capture_output=True, text=True, timeout=PATIENCE, check=False,
+    )
+
+
+def _last_input(robot_csv: Path) -> list[float]:
+    """The inputs (differential drive: forward_speed, yaw_rate) of the last recorded row
+    that has one (the state the run ended on may have had no command yet)."""
+    import csv
+
+    with robot_csv.open() as handle:
+        rows = [[float(row[name] or "nan") for name in ("forward_speed", "yaw_rate")]
+                for row in csv.DictReader(handle)]
+    answered = [row for row in rows if np.all(np.isfinite(row))]
+    assert answered, f"{robot_csv} has no row with an input"
+    return answered[-1]
+
+
+def test_a_fleet_under_a_namespace_runs_records_and_is_stopped_by_its_name(
+    tmp_path: Path,
+) -> None:
+    """`launch --fleet-namespace` puts every node and robot topic under /yard_b (relative
+    names, ROS 2 design article "Topic and Service name mapping to DDS"); the recorder
+    hears them there; `stop` without the namespace finds no stop service (exit 1, as for an
+    empty domain above), `stop --fleet-namespace yard_b` stops that fleet: every robot's
+    last recorded input is the braking input."""
+    out = tmp_path / "trial"
+    # The quick-check mission made unable to end on its own (settle dwell and stuck timeout
+    # longer than the run), so the fleet is still there whenever the stops arrive.
+    text = QUICK_MISSION.read_text()
+    endless = text.replace("dwell: 2.0", "dwell: 3600.0").replace(
+        "stuck_timeout: 10.0", "stuck_timeout: 3600.0")
+    assert endless.count("3600.0") == 2, "the quick-check mission's settle section changed"
+    mission = tmp_path / "endless_quick_check.yaml"  # vehicles by name: config/vehicles
+    mission.write_text(endless)
+    launcher = Launcher(str(mission), "--headless-sim", "--out", str(out),
+                        "--duration", "600", "--fleet-namespace", NAMESPACE)
+    rclpy.init()
+    node = rclpy.create_node("namespace_probe")
+    try:
+        started_and_committing(launcher, out)
+        wanted = {f"/{NAMESPACE}/{r}/{topics.ODOM}" for r in ROBOTS} | {
+            f"/{NAMESPACE}/{topics.FLEET_STOP}"}
+
+        def names() -> set[str]:
+            return {name for name, _ in node.get_topic_names_and_types()}
+
+        launcher.wait_until(lambda: wanted <= names(), "the fleet's topics under /yard_b")
+        outside = {n for n in names() if n.startswith(("/coverage/", "/rover_"))}
+        assert outside == set(), outside
+
+        unnamed = _fleet_command("stop", "--wait", "2")
+        assert unnamed.returncode == 1, unnamed.stdout + unnamed.stderr
+        assert "without a fleet namespace" in unnamed.stderr
+
+        named = _fleet_command("stop", "--fleet-namespace", NAMESPACE, "--wait", "60")
+        assert named.returncode == 0, named.stdout + named.stderr
+        assert "fleet stopped" in named.stdout
+        assert f"resume --domain-id {os.environ['ROS_DOMAIN_ID']} --fleet-namespace " \
+            f"{NAMESPACE}" in named.stdout
+
+        # Ctrl-C ends the run; the launcher still writes the trial (exit 130).
+        launcher.process.send_signal(2)
+        assert launcher.wait() == 130, launcher.output[-3000:]
+        assert f"watch --domain-id {os.environ['ROS_DOMAIN_ID']} --fleet-namespace " \
+            f"{NAMESPACE}" in launcher.output
+        for robot in ROBOTS:
+            assert braking(np.array(_last_input(out / "robots" / f"{robot}.csv"))), robot
+    finally:
+        node.destroy_node()
+        rclpy.shutdown()
+        if launcher.process.poll() is None:
+            launcher.process.send_signal(2)
+        launcher.wait()
+
+
+@pytest.mark.parametrize("command", [
+    ["stop", "--domain-id", "201"], ["resume", "--domain-id", "201"],
+    ["watch", "--domain-id", "201"], ["arm", str(QUICK_MISSION), "--domain-id", "201"],
+    ["launch", str(QUICK_MISSION), "--headless-sim", "--no-record"]])
+def test_a_namespace_that_is_not_a_ros_name_is_refused(command: list[str]) -> None:
+    done = _fleet_command(*command, "--fleet-namespace", "2nd/fleet")
+    assert done.returncode == 2, done.stdout + done.stderr
+    assert "Traceback" not in done.stderr
+    assert ("command line: --fleet-namespace: '2nd/fleet' is not a valid ROS name: it starts "
+            "with a digit") in done.stderr

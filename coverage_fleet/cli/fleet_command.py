@@ -7,6 +7,10 @@ printed, from the environment or --domain-id: a domain is never guessed, since a
 to the wrong domain reaches nobody) and calls the reference gate's stop service
 (coverage_fleet.ros.fleet_stop). It says, every time, that this does not replace the
 robots' own emergency stops.
+
+A fleet started under a namespace (`--fleet-namespace`, the launch files' `fleet_namespace`)
+is joined under the same one: every command that joins a running graph takes it through
+add_namespace_option / graph_namespace, so all of them spell it alike.
 """
 
 from __future__ import annotations
@@ -17,6 +21,7 @@ import sys
 from pathlib import Path
 
 from coverage_fleet.inputs.fields import Collector, integer_fault, number_fault
+from coverage_fleet.inputs.names import robot_name_problem
 
 from .launcher import ros_environment
 
@@ -55,7 +60,35 @@ def register(subparsers: argparse._SubParsersAction) -> None:
     parser.set_defaults(handler=run_arm)
 
 
+def add_namespace_option(parser: argparse.ArgumentParser) -> None:
+    """The fleet namespace option, one spelling for launch, watch, stop, resume and arm."""
+    parser.add_argument(
+        "--fleet-namespace", default="", metavar="NAME",
+        help="the fleet's ROS namespace, one name segment such as yard_b: its nodes and "
+             "topics live under /NAME (default: none, topics such as /coverage/cells)",
+    )
+
+
+def graph_namespace(name: str, options: Collector) -> str:
+    """--fleet-namespace as a namespace: "" -> "", "yard_b" -> "/yard_b". A namespace is one
+    ROS name segment, under the robot-name rule (coverage_fleet.inputs.names), as the launch
+    files' fleet_namespace is; faults go to `options`."""
+    if not name:
+        return ""
+    problem = robot_name_problem(name)
+    if problem:
+        options.add("--fleet-namespace", problem)
+        return ""
+    return f"/{name}"
+
+
+def namespace_words(namespace: str) -> str:
+    """What to add to a printed command line so that it reaches the same fleet."""
+    return f" --fleet-namespace {namespace.strip('/')}" if namespace else ""
+
+
 def add_graph_options(parser: argparse.ArgumentParser) -> None:
+    add_namespace_option(parser)
     parser.add_argument(
         "--domain-id", type=int,
         help="ROS_DOMAIN_ID of the running fleet, as `coverage-fleet launch` printed it "
@@ -67,14 +100,17 @@ def add_graph_options(parser: argparse.ArgumentParser) -> None:
     )
 
 
-def graph_environment(args: argparse.Namespace) -> None:
-    """Check the options and join the launcher's network settings (this process only)."""
+def graph_environment(args: argparse.Namespace) -> str:
+    """Check the options and join the launcher's network settings (this process only);
+    returns the fleet namespace ("" or "/yard_b")."""
     options = Collector("command line")
     options.check("--wait", number_fault(args.wait, minimum=0.0, exclusive_minimum=True,
                                          maximum=WAIT_MAX))
     domain = graph_domain(args.domain_id, options)
+    namespace = graph_namespace(args.fleet_namespace, options)
     options.raise_if_any()
     join_domain(domain)
+    return namespace
 
 
 def graph_domain(domain: int | None, options: Collector) -> int | None:
@@ -105,14 +141,16 @@ def join_domain(domain: int) -> None:
 def run_stop(args: argparse.Namespace) -> int:
     from coverage_fleet.ros.fleet_stop import STOP_CAUTION, request_fleet_stop
 
-    graph_environment(args)
+    namespace = graph_environment(args)
     verb = args.command
     domain = os.environ["ROS_DOMAIN_ID"]
-    answer = request_fleet_stop(args.stopped, args.wait)
+    answer = request_fleet_stop(args.stopped, args.wait, namespace)
     if answer is None:
+        where = f" under {namespace}" if namespace else " without a fleet namespace"
         print(
-            f"{verb}: no fleet stop service answered in domain {domain} within {args.wait:g} s "
-            "(is the base station running, in this domain?)"
+            f"{verb}: no fleet stop service answered in domain {domain}{where} within "
+            f"{args.wait:g} s (is the base station running, in this domain, under this "
+            "--fleet-namespace?)"
             + (": use the robots' own emergency stops now" if args.stopped else ""),
             file=sys.stderr,
         )
@@ -120,7 +158,8 @@ def run_stop(args: argparse.Namespace) -> int:
         return EXIT_NOT_REACHED
     print(f"{verb}: {answer}")
     if args.stopped:
-        print(f"{verb}: release with `coverage-fleet resume --domain-id {domain}`")
+        print(f"{verb}: release with `coverage-fleet resume --domain-id {domain}"
+              f"{namespace_words(namespace)}`")
     else:
         print(STOP_CAUTION)
     return 0
@@ -137,6 +176,7 @@ def run_arm(args: argparse.Namespace) -> int:
     options.check("--wait", number_fault(args.wait, minimum=0.0, exclusive_minimum=True,
                                          maximum=WAIT_MAX))
     domain = graph_domain(args.domain_id, options)
+    namespace = graph_namespace(args.fleet_namespace, options)
     mission = load_mission_with(args.mission, options)
     unknown = sorted(set(args.robot) - set(mission.robot_names))
     if unknown:
@@ -150,13 +190,14 @@ def run_arm(args: argparse.Namespace) -> int:
     print(SAFETY_CAUTION)
     paths = {}
     for robot in robots:
-        spec = controller_node_spec(mission.source, robot)
+        spec = controller_node_spec(mission.source, robot, fleet=namespace.strip("/"))
         paths[robot] = f"{spec.namespace.rstrip('/')}/{spec.name}"
     outcomes = arm_controllers(paths, args.wait)
     for robot, outcome in outcomes.items():
         print(f"arm: {robot}: {outcome}")
     if any(o.startswith("NOT") for o in outcomes.values()):
         return EXIT_NOT_REACHED
-    print(f"arm: stop every robot with `coverage-fleet stop --domain-id {domain}`; it does "
-          "not replace the robots' own emergency stops")
+    print(f"arm: stop every robot with `coverage-fleet stop --domain-id {domain}"
+          f"{namespace_words(namespace)}`; it does not replace the robots' own emergency "
+          "stops")
     return 0

@@ -154,13 +154,15 @@ def recorder_node_spec(
     duration: float = 0.0,
     simulation: SimulationMode | None = None,
     command_line: str = "",
+    fleet: str = "",
 ) -> NodeSpec:
     """The recorder (coverage_fleet.ros.recorder_node): every topic into an MCAP file, in a
-    process of its own, stopped after the others."""
+    process of its own, stopped after the others (in the fleet namespace, which it records
+    with the run)."""
     import json
 
     spec = _spec(
-        "recorder", "coverage_fleet_recorder", "recorder",
+        "recorder", "coverage_fleet_recorder", "recorder", fleet_namespace(fleet),
         mission_file=str(Path(mission_file).resolve()),
         vehicle_overrides=json.dumps(
             {robot: str(Path(path).resolve()) for robot, path in (vehicle_overrides or {}).items()}

@@ -27,6 +27,7 @@ from coverage_fleet.inputs.fields import Collector, number_fault
 from coverage_fleet.inputs.outputs import check_output_location
 from coverage_fleet.ros.launcher_contract import EXIT_ROBOTS_MISSING
 
+from .fleet_command import add_namespace_option, graph_namespace, namespace_words
 from .graph import (
     SIMULATION_MODES,
     SimulationMode,
@@ -85,6 +86,7 @@ def register(subparsers: argparse._SubParsersAction) -> None:
         help="the partition node takes nav_msgs/OccupancyGrid densities from "
         "/coverage/density at run time (README, Density updates)",
     )
+    add_namespace_option(parser)
     parser.add_argument("--out", type=Path, help="trial directory (default: trials/...)")
     parser.add_argument(
         "--no-record", action="store_true", help="do not record a trial (just run the graph)"
@@ -149,6 +151,7 @@ def run(args: argparse.Namespace) -> int:
         options.check("--duration", number_fault(
             args.duration, minimum=0.0, exclusive_minimum=True, maximum=DURATION_MAX))
     overrides = _overrides(args.vehicle, options)
+    namespace = graph_namespace(args.fleet_namespace, options)
     try:
         mission = load_mission(args.mission)
     except ConfigError as error:
@@ -168,6 +171,7 @@ def run(args: argparse.Namespace) -> int:
         only=args.only,
         density_updates=args.density_updates,
         command_line=["coverage-fleet", *sys.argv[1:]],
+        namespace=namespace,
     )
     return result.status
 
@@ -192,9 +196,11 @@ def run_graph(
     only: list[str] | None = None,
     density_updates: bool = False,
     command_line: list[str] | None = None,
+    namespace: str = "",
 ) -> GraphRun:
     """Start the mission's graph, watch it until the simulation is over, a node other than a
-    controller dies or Ctrl-C, stop it and write the trial (when recording).
+    controller dies or Ctrl-C, stop it and write the trial (when recording). Every node,
+    the recorder and the live view run under the fleet `namespace` ("" or "/yard_b").
 
     While it runs, `<out>.run/` holds the recording (recording.mcap, written by the
     recorder process) and the node logs (logs/); the trial is then built from the
@@ -215,7 +221,7 @@ def run_graph(
     specs = select_nodes(
         fleet_nodes(
             mission.source, simulation, vehicle_overrides, duration=duration, recorded=record,
-            density_updates=density_updates,
+            density_updates=density_updates, fleet=namespace.strip("/"),
         ),
         parts,
         str(mission.source),
@@ -224,7 +230,7 @@ def run_graph(
     if record:
         specs.insert(0, recorder_node_spec(
             mission.source, recording, vehicle_overrides, duration, simulation,
-            shlex.join(command_line or sys.argv),
+            shlex.join(command_line or sys.argv), fleet=namespace.strip("/"),
         ))
     log_dir = run_dir / "logs"
     env, notes = ros_environment(os.environ)
@@ -238,7 +244,7 @@ def run_graph(
     with StopSignals() as stop_signals:
         return _run_and_record(
             mission, simulation, specs, out, log_dir, env,
-            recording if record else None, stop_signals,
+            recording if record else None, stop_signals, namespace,
         )
 
 
@@ -251,7 +257,9 @@ def _run_and_record(
     env: dict[str, str],
     recording: Path | None,
     stop_signals: StopSignals,
+    namespace: str = "",
 ) -> GraphRun:
+    joining = f"--domain-id {env['ROS_DOMAIN_ID']}{namespace_words(namespace)}"
     graph = GraphProcesses(log_dir, env)
     started = time.monotonic()
     status = 0
@@ -266,13 +274,14 @@ def _run_and_record(
         graph.describe(sys.stdout)
         print(
             "launch: from another terminal: "
-            f"coverage-fleet watch --domain-id {env['ROS_DOMAIN_ID']} "
-            f"--mission {mission.source}; RViz: /coverage/cells in frame map; node logs in "
+            f"coverage-fleet watch {joining} "
+            f"--mission {mission.source}; RViz: {namespace}/coverage/cells in frame map; "
+            "node logs in "
             f"{log_dir} (moved into the trial at the end); Ctrl-C stops everything",
             flush=True,
         )
         print(
-            f"launch: `coverage-fleet stop --domain-id {env['ROS_DOMAIN_ID']}` brakes every "
+            f"launch: `coverage-fleet stop {joining}` brakes every "
             "robot until `coverage-fleet resume`; a software stop does NOT replace the "
             "robots' own emergency stops",
             flush=True,
@@ -281,10 +290,10 @@ def _run_and_record(
         if real:
             print(
                 f"launch: real robots ({', '.join(real)}) start DISARMED: arm them with "
-                f"`coverage-fleet arm {mission.source} --domain-id {env['ROS_DOMAIN_ID']}`",
+                f"`coverage-fleet arm {mission.source} {joining}`",
                 flush=True,
             )
-        view = _start_view(mission)
+        view = _start_view(mission, namespace)
         status = _watch(graph, view.wait if view is not None else time.sleep)
     except KeyboardInterrupt as interrupt:
         name = getattr(interrupt, "signal_name", "SIGINT")
@@ -346,7 +355,7 @@ def _relay(line) -> None:
     print(f"launch: {line.level} from {line.node}: {line.message}", file=sys.stderr, flush=True)
 
 
-def _start_view(mission: Mission):
+def _start_view(mission: Mission, namespace: str = ""):
     """The live view of the graph, or None (said so) if it cannot start: the run goes on
     without it."""
     from .watch_command import LiveView, is_terminal
@@ -356,6 +365,7 @@ def _start_view(mission: Mission):
         return LiveView(
             list(mission.robot_names), sys.stdout, plain,
             period=LAUNCH_PLAIN_PERIOD if plain else None, on_log=_relay,
+            namespace=namespace,
         )
     except Exception as error:  # the view is for people; the run must not depend on it
         print(f"launch: no live view ({error!r})", file=sys.stderr, flush=True)

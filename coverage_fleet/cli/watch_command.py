@@ -23,6 +23,7 @@ from typing import TextIO
 from coverage_fleet.errors import ConfigError
 from coverage_fleet.inputs.fields import Collector, number_fault
 
+from .fleet_command import add_namespace_option
 from .live_render import plain_lines, render
 from .live_state import FleetWatch
 
@@ -46,6 +47,7 @@ def register(subparsers: argparse._SubParsersAction) -> None:
         "--domain-id", type=int,
         help="ROS_DOMAIN_ID of the graph (default: the environment's)",
     )
+    add_namespace_option(parser)
     parser.add_argument(
         "--plain", action="store_true",
         help="print plain status lines even in a terminal",
@@ -130,11 +132,12 @@ class LiveView:
         period: float | None = None,
         stale_after: float = 2.0,
         on_log=None,
+        namespace: str = "",
     ) -> None:
         from coverage_fleet.ros.live_listener import LiveListener
 
         self.watch = FleetWatch(stale_after=stale_after)
-        self.listener = LiveListener(self.watch, robots, on_log=on_log)
+        self.listener = LiveListener(self.watch, robots, on_log=on_log, namespace=namespace)
         self.display = WatchDisplay(stream, plain, period, show_log=on_log is None)
 
     def wait(self, seconds: float) -> None:
@@ -147,10 +150,11 @@ class LiveView:
 
 
 def run(args: argparse.Namespace) -> int:
-    from .fleet_command import graph_domain, join_domain
+    from .fleet_command import graph_domain, graph_namespace, join_domain
 
     options = Collector("command line")
     domain = graph_domain(args.domain_id, options)
+    namespace = graph_namespace(args.fleet_namespace, options)
     if args.period is not None:
         options.check("--period", number_fault(
             args.period, minimum=0.05, maximum=3600.0))
@@ -167,7 +171,9 @@ def run(args: argparse.Namespace) -> int:
     options.raise_if_any()
     join_domain(domain)
     plain = args.plain or not is_terminal(sys.stdout)
-    view = LiveView(robots, sys.stdout, plain, args.period, args.stale_after)
+    view = LiveView(
+        robots, sys.stdout, plain, args.period, args.stale_after, namespace=namespace
+    )
     end = time.monotonic() + args.duration if args.duration > 0 else float("inf")
     try:
         while time.monotonic() < end:

@@ -79,15 +79,16 @@ class FleetStopService:
         return response
 
 
-def request_fleet_stop(stopped: bool, wait: float) -> str | None:
-    """Call the stop service from a short-lived node of this process (rclpy initialised and
-    shut down here); returns the service's answer, or None when nobody answered in `wait`
-    seconds."""
+def request_fleet_stop(stopped: bool, wait: float, namespace: str = "") -> str | None:
+    """Call the stop service of the fleet under `namespace` ("" or "/yard_b") from a
+    short-lived node of this process (rclpy initialised and shut down here); returns the
+    service's answer, or None when nobody answered in `wait` seconds."""
     import rclpy
 
     rclpy.init(args=["coverage-fleet"])
     try:
-        node = rclpy.create_node("fleet_stop_request")
+        # In the fleet's namespace, so the relative service name is that fleet's.
+        node = rclpy.create_node("fleet_stop_request", namespace=namespace or None)
         client = node.create_client(SetBool, topics.FLEET_STOP_SERVICE)
         if not client.wait_for_service(timeout_sec=wait):
             return None

@@ -10,6 +10,8 @@ hands plain values to coverage_fleet.cli.live_state.FleetWatch, where the rules 
   every namespace that has an `odom` topic of type nav_msgs/Odometry next to a
   `coverage/target` or `coverage/progress` topic, looked for every DISCOVERY_PERIOD. A
   robot that vanishes keeps its row and turns stale.
+- With a fleet namespace (`/yard_b`) the node lives in it, so the relative topic names are
+  that fleet's, and only robots directly under it are found (one name segment below).
 - A message that cannot be read (a malformed table, a wrong field) is counted as odd by the
   watch and the view goes on: one bad publisher never stops it.
 - /rosout warnings and errors of other nodes go to the watch (and to `on_log`, which the
@@ -81,7 +83,6 @@ DIAGNOSTICS = QoSProfile(
     history=HistoryPolicy.KEEP_LAST, depth=50, reliability=ReliabilityPolicy.RELIABLE,
     durability=DurabilityPolicy.VOLATILE,
 )
-_ODOM_TOPIC = re.compile(r"^/(.+)/" + re.escape(topics.ODOM) + "$")
 
 
 @dataclass(frozen=True)
@@ -96,17 +97,25 @@ def _level(status: DiagnosticStatus) -> int:
     return level[0] if isinstance(level, bytes) else int(level)
 
 
-def robots_in_graph(names_and_types: Iterable[tuple[str, list[str]]]) -> list[str]:
-    """Namespaces that look like a robot of this package: an Odometry `odom` topic and a
-    `coverage/target` or `coverage/progress` topic beside it."""
+def robots_in_graph(
+    names_and_types: Iterable[tuple[str, list[str]]], namespace: str = ""
+) -> list[str]:
+    """Namespaces directly under the fleet `namespace` ("" or "/yard_b") that look like a
+    robot of this package: an Odometry `odom` topic and a `coverage/target` or
+    `coverage/progress` topic beside it. Without a fleet namespace a robot may sit deeper
+    (as before); with one, a robot is one name segment, as the roster's names are."""
     found = dict(names_and_types)
+    prefix = namespace.rstrip("/")
+    segment = "[^/]+" if prefix else ".+"
+    odom = re.compile("^" + re.escape(prefix) + f"/({segment})/" + re.escape(topics.ODOM) + "$")
     robots = []
     for name, types in found.items():
-        match = _ODOM_TOPIC.match(name)
+        match = odom.match(name)
         if match and "nav_msgs/msg/Odometry" in types:
             robot = match.group(1)
-            # Graph names are absolute; robot_topic is relative to the root here.
-            beside = ("/" + topics.robot_topic(robot, t) for t in (topics.TARGET, topics.PROGRESS))
+            # Graph names are absolute; robot_topic is relative to the fleet namespace.
+            beside = (f"{prefix}/" + topics.robot_topic(robot, t)
+                      for t in (topics.TARGET, topics.PROGRESS))
             if any(name in found for name in beside):
                 robots.append(robot)
     return sorted(robots)
@@ -122,8 +131,10 @@ class LiveListener:
         robots: Iterable[str] = (),
         on_log: Callable[[LogLine], None] | None = None,
         clock: Callable[[], float] = time.monotonic,
+        namespace: str = "",
     ) -> None:
         self.watch = watch
+        self.namespace = namespace
         self.clock = clock
         self.on_log = on_log
         self.context = Context()
@@ -132,7 +143,7 @@ class LiveListener:
         )
         self.node = rclpy.create_node(
             f"coverage_fleet_watch_{os.getpid()}", context=self.context,
-            start_parameter_services=False,
+            namespace=namespace or None, start_parameter_services=False,
         )
         self.executor = SingleThreadedExecutor(context=self.context)
         self.executor.add_node(self.node)
@@ -214,7 +225,7 @@ class LiveListener:
         )
 
     def discover(self) -> None:
-        for robot in robots_in_graph(self.node.get_topic_names_and_types()):
+        for robot in robots_in_graph(self.node.get_topic_names_and_types(), self.namespace):
             self._listen_to(robot)
 
     def spin(self, seconds: float) -> None:
