@@ -127,8 +127,13 @@ def test_controller_driven_by_localization_poses() -> None:
         spin_until(node, lambda: drops.get("too_uncertain", 0) > 0, "too_uncertain", processes)
         assert commands == [], "a refused pose was answered"
         fault["variance"] = 0.01
-        spin_until(node, lambda: targets and commands, "a target and commands", processes)
-        # The partition placed rover_a (roster index 0) where the localization said it was.
+        # Candidates are not latched: wait for one with rover_a (roster index 0) as well.
+        spin_until(
+            node,
+            lambda: targets and commands and any(0 in c.positions for c in candidates),
+            "a target, commands and rover_a in the candidates", processes,
+        )
+        # The partition placed rover_a where the localization said it was.
         placed = [tuple(c.positions[0]) for c in candidates if 0 in c.positions]
         assert placed and all(
             min(math.dist(p, q) for q in published) < 1e-9 for p in placed
