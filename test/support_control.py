@@ -6,6 +6,8 @@ held is exact: A = [[I, dt I], [0, I]], B = [[dt^2/2 I], [dt I]] (common practic
 
 from __future__ import annotations
 
+import math
+
 import casadi as ca
 import numpy as np
 
@@ -36,6 +38,10 @@ class DoubleIntegratorModel(VehicleModel):
     @property
     def footprint_radius(self) -> float:
         return self._footprint
+
+    @property
+    def max_planar_speed(self) -> float:
+        return math.sqrt(2.0) * self.max_speed  # the speed box's corner
 
     def continuous_dynamics(self, x: ca.SX, u: ca.SX) -> ca.SX:
         return ca.vertcat(x[2], x[3], u[0], u[1])

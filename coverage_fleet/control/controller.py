@@ -22,6 +22,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from coverage_fleet.control.ingredients import TerminalIngredients
+from coverage_fleet.control.keep_apart import CellRows
 from coverage_fleet.control.limits import COMMAND_LIMIT_TOLERANCE, input_limits
 from coverage_fleet.control.mpc import TrackingMpc
 from coverage_fleet.vehicles.base import VehicleModel
@@ -47,6 +48,8 @@ class ControlStep:
     solve_time: float
     #: "", "previous plan" or "braking".
     fallback: str = FALLBACK_NONE
+    #: The keep-apart slack of this solve (metres; 0 without keep-apart rows).
+    cell_violation: float = 0.0
 
 
 class RobotController:
@@ -56,9 +59,10 @@ class RobotController:
         settings: MpcSettings,
         region_halfspaces: tuple[np.ndarray, np.ndarray],
         terminal: TerminalIngredients | None = None,
+        cell_rows: int = 0,
     ) -> None:
         self.model = model
-        self.mpc = TrackingMpc(model, settings, region_halfspaces, terminal)
+        self.mpc = TrackingMpc(model, settings, region_halfspaces, terminal, cell_rows)
         self._u_lower, self._u_upper = (np.asarray(v, float) for v in model.input_bounds())
         E, e = model.input_polytope()
         self._E, self._e = np.asarray(E, float).reshape(-1, model.nu), np.asarray(e, float)
@@ -68,14 +72,25 @@ class RobotController:
         self._plan_states: np.ndarray | None = None
         self._plan_next = 0
 
-    def step(self, x: np.ndarray, target_xy: np.ndarray) -> ControlStep:
+    def step(
+        self, x: np.ndarray, target_xy: np.ndarray, cell: CellRows | None = None
+    ) -> ControlStep:
+        """One sample. cell: the keep-apart rows (control/keep_apart.py) when the MPC was
+        built with them; without usable rows the robot brakes (it does not know where its
+        neighbours are), and the status says why."""
         x = np.asarray(x, dtype=float).reshape(-1)
         target = np.asarray(target_xy, dtype=float).reshape(-1)
         if not (np.all(np.isfinite(x)) and np.all(np.isfinite(target))):
             self.mpc.reset()
             return self._fallback(x, "measured state or target not finite", 0, 0.0)
+        rows = None
+        if self.mpc.cell_rows:
+            if cell is None or cell.brake:
+                why = "no cell given" if cell is None else cell.reason
+                return self._brake(x, f"keep-apart: {why}; braking")
+            rows = (cell.normals, cell.offsets)
         try:
-            solution = self.mpc.solve(x, target)
+            solution = self.mpc.solve(x, target, rows)
         except RuntimeError as error:  # casadi raises on plugin faults
             self.mpc.reset()
             return self._fallback(x, f"solver error: {error}".splitlines()[0], 0, 0.0)
@@ -93,6 +108,7 @@ class RobotController:
                 iterations=solution.iterations,
                 solve_time=solution.solve_time,
                 fallback=FALLBACK_BRAKING,
+                cell_violation=solution.cell_violation,
             )
         self._plan_inputs = solution.predicted_inputs
         self._plan_states = solution.predicted_states
@@ -105,6 +121,22 @@ class RobotController:
             used_fallback=False,
             iterations=solution.iterations,
             solve_time=solution.solve_time,
+            cell_violation=solution.cell_violation,
+        )
+
+    def _brake(self, x: np.ndarray, status: str) -> ControlStep:
+        """Brake now (no plan to fly: it was made for a cell that is no longer known)."""
+        self._plan_inputs = self._plan_states = None
+        u, replaced = self.command(self._braking_input(x), x)
+        return ControlStep(
+            input=u,
+            plan_positions=self.model.position(x).reshape(1, 2),
+            status=f"{status}; {replaced}" if replaced else status,
+            success=False,
+            used_fallback=True,
+            iterations=0,
+            solve_time=0.0,
+            fallback=FALLBACK_BRAKING,
         )
 
     def _fallback(

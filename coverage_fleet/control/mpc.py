@@ -13,6 +13,12 @@ IEEE TAC 63(11), 2018), direct multiple shooting:
           A position(x_k) <= b - r |A_i|           (region shrunk by the footprint radius r)
           steady state: limits scaled by 1 - steady_state_margin towards rest (limits.py),
                         A position(x_s) <= b - (r + e_f) |A_i|  (e_f: terminal-set extent)
+          keep-apart (cell_rows > 0): n_m . position(x_k) - sigma <= c_m - pad  (k >= 1),
+                        n_m . position(x_s) - sigma <= c_m - e_f,  sigma >= 0,
+                        cost + CELL_PENALTY * sigma^2
+                        (rows n_m . p <= c_m: the robot's buffered cell, parameters of the
+                        problem, control/keep_apart.py; pad = v_max * sample_time / 2, how
+                        far the centre strays between two samples from the nearer one)
           terminal:     ellipsoid  e_N' P e_N <= alpha   (e_N = steady_frame_error(x_N, x_s)),
                         (real-time path: as e'Pe/alpha <= 1, plus its implied bounding box
                         along the principal axes of P)
@@ -20,7 +26,13 @@ IEEE TAC 63(11), 2018), direct multiple shooting:
 
 The offset cost keeps the problem feasible for any target: an unreachable target yields the
 admissible steady state closest to it (the tracking property of the references above), here
-the projection of the target onto the doubly shrunk region.
+the projection of the target onto the doubly shrunk region (and the buffered cell).
+
+The cell rows are soft: a robot already outside its cell (measurement noise, latency, a
+neighbour that came close) would make hard rows infeasible, so one slack sigma >= 0,
+carried through the horizon like theta, relaxes every cell row at a quadratic price
+CELL_PENALTY; the solution reports it (`cell_violation`), and a feasible cell leaves it at
+tens of micrometres (the multiplier over twice the penalty).
 
 Headings stay continuous (frames.py); the steady heading is a free parameter.
 
@@ -62,6 +74,9 @@ STALL_DISTANCE = 0.01
 STALL_OFFSET = 0.02
 #: How far the second-start guess drives towards the target (metres).
 ESCAPE_DISTANCE = 1.0
+#: Price of the keep-apart slack (cost units per square metre): large against the offset
+#: and tracking costs, so a feasible cell is kept to micrometres.
+CELL_PENALTY = 1e7
 
 
 @dataclass(frozen=True)
@@ -84,6 +99,8 @@ class MpcSolution:
     success: bool
     iterations: int
     solve_time: float
+    #: The keep-apart slack sigma (metres; 0 without cell rows).
+    cell_violation: float = 0.0
 
 
 def _region_offsets(A: np.ndarray, b: np.ndarray, distance: float) -> np.ndarray:
@@ -124,8 +141,14 @@ class TrackingMpc:
         settings: MpcSettings,
         region_halfspaces: tuple[np.ndarray, np.ndarray],
         terminal: TerminalIngredients | None = None,
+        cell_rows: int = 0,
     ) -> None:
+        """cell_rows: how many keep-apart rows each solve takes (0: none, the problem is
+        exactly the one without keep-apart)."""
         _require_checked(model, settings, terminal)
+        if cell_rows < 0:
+            raise ValueError(f"cell_rows must be >= 0, got {cell_rows}")
+        self.cell_rows = int(cell_rows)
         if terminal is None:
             terminal = (
                 compute_terminal_ingredients(model, settings)
@@ -151,6 +174,10 @@ class TrackingMpc:
         self.steady_region_b = _region_offsets(
             self.region_A, self.region_b, self.footprint_radius + terminal.position_extent
         )
+        #: How far the centre may stray between samples from the nearer sample point.
+        self.cell_pad = (
+            model.max_planar_speed * settings.sample_time / 2.0 if self.cell_rows else 0.0
+        )
         self.plugin = configured_plugin(settings)
         self._build(self.plugin)
         self._guess: np.ndarray | None = None
@@ -167,11 +194,15 @@ class TrackingMpc:
         nx, nu = model.nx, model.nu
         F = model.discrete_dynamics(settings.sample_time, settings.substeps)
         n_theta = self._Mx.shape[1]
-        nz = nx + n_theta
+        n_cell = self.cell_rows
+        n_slack = 1 if n_cell else 0
+        nz = nx + n_theta + n_slack
         Z = [ca.SX.sym(f"z{k}", nz) for k in range(N + 1)]
         U = [ca.SX.sym(f"u{k}", nu) for k in range(N)]
         target = ca.SX.sym("target", 2)
         measured = ca.SX.sym("measured", nx)
+        cell_normals = ca.SX.sym("cell_normals", n_cell, 2)
+        cell_offsets = ca.SX.sym("cell_offsets", n_cell)
         Mx, x0s, Mu, u0s = (ca.DM(v) for v in (self._Mx, self._x0s, self._Mu, self._u0s))
         i, j = model.position_indices
         Q, R = ca.DM(self.Q), ca.DM(self.R)
@@ -205,10 +236,15 @@ class TrackingMpc:
             lbg.append(np.broadcast_to(np.asarray(lower, float), (n,)).copy())
             ubg.append(np.broadcast_to(np.asarray(upper, float), (n,)).copy())
 
-        def path(x: ca.SX) -> None:
+        def cell(position: ca.SX, sigma: ca.SX, pad: float) -> None:
+            if n_cell:
+                add(ca.mtimes(cell_normals, position) - sigma - cell_offsets + pad, -np.inf, 0.0)
+
+        def path(x: ca.SX, sigma: ca.SX) -> None:
             if len(g_x):
                 add(ca.mtimes(ca.DM(G_x), x), -np.inf, g_x)
             add(ca.mtimes(A_r, ca.vertcat(x[i], x[j])), -np.inf, self.path_region_b)
+            cell(ca.vertcat(x[i], x[j]), sigma, self.cell_pad)
 
         w: list[ca.SX] = []
         lbw: list[np.ndarray] = []
@@ -216,18 +252,21 @@ class TrackingMpc:
         for k in range(N + 1):
             # Constraint order per stage (what fatrop's structure detection reads): the
             # dynamics to the next stage first, then this stage's path constraints.
-            x, theta = Z[k][:nx], Z[k][nx:]
+            x, theta = Z[k][:nx], Z[k][nx : nx + n_theta]
+            carried = Z[k][nx:]
+            sigma = Z[k][nx + n_theta :]
             x_s = ca.mtimes(Mx, theta) + x0s
             stage_starts.append(sum(e.shape[0] for e in g))
             w.append(Z[k])
+            slack_lower, slack_upper = np.zeros(n_slack), np.full(n_slack, np.inf)
             if k == 0:
-                lbw.append(np.concatenate([np.full(nx, -np.inf), -free_theta]))
-                ubw.append(np.concatenate([np.full(nx, np.inf), free_theta]))
+                lbw.append(np.concatenate([np.full(nx, -np.inf), -free_theta, slack_lower]))
+                ubw.append(np.concatenate([np.full(nx, np.inf), free_theta, slack_upper]))
             else:
-                lbw.append(np.concatenate([x_lower, -free_theta]))
-                ubw.append(np.concatenate([x_upper, free_theta]))
+                lbw.append(np.concatenate([x_lower, -free_theta, slack_lower]))
+                ubw.append(np.concatenate([x_upper, free_theta, slack_upper]))
             if k == N:
-                path(x)
+                path(x, sigma)
                 break
             u_s = ca.mtimes(Mu, theta) + u0s
             w.append(U[k])
@@ -236,16 +275,17 @@ class TrackingMpc:
             dx, du = x - x_s, U[k] - u_s
             cost += ca.bilin(Q, dx, dx) + ca.bilin(R, du, du)
             terms += [LeastSquaresTerm(dx, self.Q), LeastSquaresTerm(du, self.R)]
-            add(Z[k + 1] - ca.vertcat(F(x, U[k]), theta), 0.0, 0.0)
+            add(Z[k + 1] - ca.vertcat(F(x, U[k]), carried), 0.0, 0.0)
             if k == 0:
                 add(x - measured, 0.0, 0.0)
             else:
-                path(x)
+                path(x, sigma)
             if len(e_u):
                 add(ca.mtimes(ca.DM(E_u), U[k]), -np.inf, e_u)
 
         # Terminal stage: steady state admissible, terminal ingredients, offset cost.
-        x_N, theta = Z[N][:nx], Z[N][nx:]
+        x_N, theta = Z[N][:nx], Z[N][nx : nx + n_theta]
+        sigma = Z[N][nx + n_theta :]
         x_s = ca.mtimes(Mx, theta) + x0s
         u_s = ca.mtimes(Mu, theta) + u0s
         p_s = ca.vertcat(x_s[i], x_s[j])
@@ -254,6 +294,10 @@ class TrackingMpc:
         if len(u_steady.g_dep):
             add(ca.mtimes(ca.DM(u_steady.G_dep), u_s), -np.inf, u_steady.g_dep)
         add(ca.mtimes(A_r, p_s), -np.inf, self.steady_region_b)
+        cell(p_s, sigma, self.terminal.position_extent)
+        if n_cell:
+            cost += CELL_PENALTY * ca.sumsqr(sigma)
+            terms.append(LeastSquaresTerm(sigma, CELL_PENALTY * np.eye(1)))
         if self.terminal.kind == "equality":
             width = terminal_equality_width(plugin)
             add(x_N - x_s, -width, width)
@@ -289,13 +333,14 @@ class TrackingMpc:
 
         nlp = {
             "x": ca.vertcat(*w),
-            "p": ca.vertcat(measured, target),
+            "p": ca.vertcat(measured, target, ca.vec(cell_normals), cell_offsets),
             "f": cost,
             "g": ca.vertcat(*g),
         }
         self._lbw, self._ubw = np.concatenate(lbw), np.concatenate(ubw)
         self._lbg, self._ubg = np.concatenate(lbg), np.concatenate(ubg)
         self._nz = nz
+        self._n_theta = n_theta
         self._chain = build_solver_chain(
             nlp,
             settings,
@@ -309,7 +354,12 @@ class TrackingMpc:
         """Forget the warm start (next solve starts cold)."""
         self._guess = self._lam_g = self._lam_x = None
 
+    def _carried(self, theta: np.ndarray) -> np.ndarray:
+        """The stage-constant part of z: theta, then the keep-apart slack (0) if any."""
+        return np.concatenate([theta, np.zeros(self._nz - self.model.nx - self._n_theta)])
+
     def _unpack(self, w: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """(states (N+1, nx), inputs (N, nu), carried: theta then the slack if any)."""
         nx, nu, N, nz = self.model.nx, self.model.nu, self.horizon, self._nz
         body = w[: N * (nz + nu)].reshape(N, nz + nu)
         last = w[N * (nz + nu) :]
@@ -317,18 +367,18 @@ class TrackingMpc:
         inputs = body[:, nz:]
         return states, inputs, last[nx:].copy()
 
-    def _pack(self, states: np.ndarray, inputs: np.ndarray, theta: np.ndarray) -> np.ndarray:
+    def _pack(self, states: np.ndarray, inputs: np.ndarray, carried: np.ndarray) -> np.ndarray:
         N = self.horizon
-        thetas = np.tile(theta, (N, 1))
-        body = np.hstack([states[:-1], thetas, inputs]).reshape(-1)
-        return np.concatenate([body, states[-1], theta])
+        carried_rows = np.tile(carried, (N, 1))
+        body = np.hstack([states[:-1], carried_rows, inputs]).reshape(-1)
+        return np.concatenate([body, states[-1], carried])
 
     def _cold_guess(self, x0: np.ndarray) -> np.ndarray:
         theta, *_ = np.linalg.lstsq(self._Mx, x0 - self._x0s, rcond=None)
         u_s = self._Mu @ theta + self._u0s
         states = np.tile(x0, (self.horizon + 1, 1))
         inputs = np.tile(u_s, (self.horizon, 1))
-        return self._pack(states, inputs, theta)
+        return self._pack(states, inputs, self._carried(theta))
 
     def _shifted(self, w: np.ndarray) -> np.ndarray:
         """The previous solution one sample later: the warm start."""
@@ -375,16 +425,44 @@ class TrackingMpc:
         theta, *_ = np.linalg.lstsq(self._Mx, x_goal - self._x0s, rcond=None)
         states[-1] = self._Mx @ theta + self._x0s
         inputs = np.tile(self._Mu @ theta + self._u0s, (self.horizon, 1))
-        return self._pack(states, inputs, theta)
+        return self._pack(states, inputs, self._carried(theta))
+
+    def _parameters(
+        self,
+        x0: np.ndarray,
+        target: np.ndarray,
+        cell: tuple[np.ndarray, np.ndarray] | None,
+    ) -> np.ndarray:
+        """The parameter vector: measured state, target, then the cell rows (normals column
+        by column, as casadi's vec stacks them, then offsets)."""
+        if not self.cell_rows:
+            if cell is not None:
+                raise ValueError("this MPC was built without keep-apart rows (cell_rows=0)")
+            return np.concatenate([x0, target])
+        if cell is None:
+            raise ValueError(
+                f"this MPC takes {self.cell_rows} keep-apart rows at every solve; a robot "
+                "without its cell must brake instead of solving"
+            )
+        normals = np.asarray(cell[0], dtype=float)
+        offsets = np.asarray(cell[1], dtype=float)
+        if normals.shape != (self.cell_rows, 2) or offsets.shape != (self.cell_rows,):
+            raise ValueError(
+                f"keep-apart rows must have shapes ({self.cell_rows}, 2) and "
+                f"({self.cell_rows},), got {normals.shape} and {offsets.shape}"
+            )
+        if not (np.all(np.isfinite(normals)) and np.all(np.isfinite(offsets))):
+            raise ValueError("keep-apart rows must be finite")
+        return np.concatenate([x0, target, normals.reshape(-1, order="F"), offsets])
 
     def _run(
-        self, guess: np.ndarray, x0: np.ndarray, target: np.ndarray, warm_duals: bool
+        self, guess: np.ndarray, parameters: np.ndarray, warm_duals: bool
     ) -> ChainResult:
         warm = warm_duals and self._lam_g is not None
         return self._chain.solve(
             NlpInstance(
                 guess=guess,
-                parameters=np.concatenate([x0, target]),
+                parameters=parameters,
                 lbx=self._lbw,
                 ubx=self._ubw,
                 lbg=self._lbg,
@@ -399,9 +477,9 @@ class TrackingMpc:
         stay where the robot is. Happens with nonholonomic models started at rest (at zero
         speed steering has no first-order effect, so "stay" satisfies the optimality
         conditions); a second start from a guess that moves breaks the symmetry."""
-        states, _, theta = self._unpack(w)
+        states, _, carried = self._unpack(w)
         p0 = self.model.position(x0)
-        p_s = self.model.position(self._Mx @ theta + self._x0s)
+        p_s = self.model.position(self._Mx @ carried[: self._n_theta] + self._x0s)
         motion = np.abs(states[:, list(self.model.position_indices)] - p0).max()
         return (
             motion < STALL_DISTANCE
@@ -409,24 +487,34 @@ class TrackingMpc:
             and np.linalg.norm(p_s - target) > STALL_OFFSET
         )
 
-    def solve(self, x0: np.ndarray, target_xy: np.ndarray) -> MpcSolution:
+    def solve(
+        self,
+        x0: np.ndarray,
+        target_xy: np.ndarray,
+        cell: tuple[np.ndarray, np.ndarray] | None = None,
+    ) -> MpcSolution:
+        """One solve from the measured state x0 (nx,) towards target_xy (2,), metres.
+
+        cell: the keep-apart rows (normals (cell_rows, 2), offsets (cell_rows,)) with
+        normals @ p <= offsets for the robot's centre; required when cell_rows > 0."""
         x0 = np.asarray(x0, dtype=float).reshape(-1)
         target = np.asarray(target_xy, dtype=float).reshape(2)
         if not (np.all(np.isfinite(x0)) and np.all(np.isfinite(target))):
             # A NaN reaching fatrop from a cold start can keep it iterating for minutes.
             raise ValueError(f"state {x0.tolist()} and target {target.tolist()} must be finite")
+        parameters = self._parameters(x0, target, cell)
         guess = self._cold_guess(x0) if self._guess is None else self._guess
         guess = self._align_angles(guess, x0)
         states, inputs, theta = self._unpack(guess)
         states[0] = x0
         guess = self._pack(states, inputs, theta)
-        run = self._run(guess, x0, target, warm_duals=True)
+        run = self._run(guess, parameters, warm_duals=True)
         final, status = run.final, run.status
         solve_time, iterations, success = run.elapsed, run.iterations, run.success
         if success and self._stalled(final.x, x0, target):
             escape = self._escape_guess(x0, target)
             if escape is not None:
-                retry = self._run(escape, x0, target, warm_duals=False)
+                retry = self._run(escape, parameters, warm_duals=False)
                 solve_time += retry.elapsed
                 iterations += retry.iterations
                 if retry.success and retry.final.cost < final.cost - 1e-9:
@@ -437,7 +525,8 @@ class TrackingMpc:
         else:
             self._guess = self._shifted(guess)
             self._lam_g = self._lam_x = None
-        states, inputs, theta = self._unpack(final.x)
+        states, inputs, carried = self._unpack(final.x)
+        theta = carried[: self._n_theta]
         x_s = self._Mx @ theta + self._x0s
         u_s = self._Mu @ theta + self._u0s
         steady = SteadyStatePoint(x_s, u_s, theta, self.model.position(x_s))
@@ -450,4 +539,5 @@ class TrackingMpc:
             success=success,
             iterations=iterations,
             solve_time=solve_time,
+            cell_violation=float(carried[self._n_theta :].max(initial=0.0)),
         )

@@ -19,6 +19,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from coverage_fleet.control.controller import ControlStep, RobotController
+from coverage_fleet.control.keep_apart import CellWindow
 from coverage_fleet.control.progress import ProgressTracker, RobotProgress
 from coverage_fleet.vehicles.base import VehicleModel
 
@@ -56,6 +57,9 @@ class SampledController:
         self.last_step: ControlStep | None = None
         self.solves = 0
         self.failures = 0
+        #: The keep-apart snapshots this robot honours (None: keep-apart off); the owner
+        #: adds each new FleetSnapshot with `cells.add`.
+        self.cells: CellWindow | None = None
 
     def set_target(
         self, key: Hashable, target: np.ndarray, distance_at_commit: float | None = None
@@ -80,7 +84,10 @@ class SampledController:
         held = self.held_input
         if held is None or self.due(state_time):
             target = self.target if self.target is not None else position
-            step = self.controller.step(x, target)
+            cell = (
+                None if self.cells is None else self.cells.rows_at(float(state_time), position)
+            )
+            step = self.controller.step(x, target, cell)
             self.last_step = step
             self.last_solve_time = float(state_time)
             held = self.held_input = np.asarray(step.input, float)

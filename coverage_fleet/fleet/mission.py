@@ -26,6 +26,12 @@
                 progress_tolerance + noise_tolerance (+ 4 x measurement_noise_std)
     simulation: {duration, seed, process_noise_std, measurement_noise_std, plant_substeps,
                  step}
+    keep_apart: {enabled (default true), margin (m between footprints, default 0.1),
+                 neighbours (rows per snapshot, default 6, 1-32), snapshot_period (s,
+                 default the longest sample time), latency (s a snapshot may take to reach
+                 a controller, default 0), max_age (s; a controller whose newest snapshot
+                 is older brakes, default 1)}: buffered cells in every robot's MPC
+                 (control/keep_apart.py); `enabled: false` for comparison runs only
 
 Validation collects every problem (file, dotted key path, what is wrong) before raising one
 ConfigError; reading, YAML and the wording of each fault are the package's one path
@@ -51,6 +57,7 @@ from typing import Any
 import numpy as np
 
 from coverage_fleet.control.gate import GateSettings
+from coverage_fleet.control.keep_apart import KEEP_APART_NEIGHBOURS_MAX, KeepApartSettings
 from coverage_fleet.errors import ConfigError
 from coverage_fleet.fleet.density_updates import DensityUpdate
 from coverage_fleet.fleet.settling import SettleSettings, settle_problems
@@ -147,6 +154,7 @@ class Mission:
     frame: LocalFrame | None = None
     #: Scripted density changes (the `density_updates` section), by time.
     density_updates: tuple[DensityUpdate, ...] = ()
+    keep_apart: KeepApartSettings = field(default_factory=KeepApartSettings)
 
     @property
     def robot_names(self) -> tuple[str, ...]:
@@ -208,6 +216,22 @@ def _read_settle(read: FieldReader) -> SettleSettings:
         speed=read.positive("speed", d.speed, maximum=SPEED_MAX),
         dwell=read.non_negative("dwell", d.dwell, maximum=DURATION_MAX),
         stuck_timeout=read.positive("stuck_timeout", d.stuck_timeout, maximum=DURATION_MAX),
+    )
+    read.check_unknown()
+    return settings
+
+
+def _read_keep_apart(read: FieldReader) -> KeepApartSettings:
+    d = KeepApartSettings()
+    settings = KeepApartSettings(
+        enabled=read.boolean("enabled", d.enabled),
+        margin=read.non_negative("margin", d.margin, maximum=DISTANCE_MAX),
+        neighbours=read.integer("neighbours", d.neighbours, minimum=1,
+                                maximum=KEEP_APART_NEIGHBOURS_MAX),
+        snapshot_period=read.number("snapshot_period", d.snapshot_period, minimum=STEP_MIN,
+                                    maximum=STEP_MAX, nullable=True),
+        latency=read.non_negative("latency", d.latency, maximum=STEP_MAX),
+        max_age=read.positive("max_age", d.max_age, maximum=DURATION_MAX),
     )
     read.check_unknown()
     return settings
@@ -290,6 +314,8 @@ def mission_from_mapping(raw: Any, path: Path) -> Mission:
     settle = _read_settle(out.fields(top.raw("settle"), "settle", optional=True))
     simulation = _read_simulation(out.fields(top.raw("simulation"), "simulation",
                                              optional=True))
+    keep_apart = _read_keep_apart(out.fields(top.raw("keep_apart"), "keep_apart",
+                                             optional=True))
     roster = (_load_roster(top.raw("roster"), base_dir, region, out)
               if top.has("roster") else [])
     for key in ("region", "density", "roster"):
@@ -321,6 +347,7 @@ def mission_from_mapping(raw: Any, path: Path) -> Mission:
         settle=settle,
         frame=frame,
         density_updates=tuple(updates),
+        keep_apart=keep_apart,
     )
 
 

@@ -103,6 +103,17 @@ class VehicleModel(ABC):
     def footprint_radius(self) -> float:
         """Radius in metres of a disc that contains the vehicle."""
 
+    @property
+    def max_planar_speed(self) -> float:
+        """Largest speed (m/s) of the reference point over the ground that the limits
+        allow; the keep-apart cells (control/keep_apart.py) need it to bound how far a
+        robot moves between samples and while its position ages. A model that does not
+        say refuses to run with keep-apart on."""
+        raise NotImplementedError(
+            f"{self.source}: vehicle model '{self.kind}' does not state max_planar_speed "
+            "(needed by keep_apart)"
+        )
+
     @abstractmethod
     def continuous_dynamics(self, x: ca.SX, u: ca.SX) -> ca.SX:
         """dx/dt = f_c(x, u) as a casadi expression (column vector of length nx)."""

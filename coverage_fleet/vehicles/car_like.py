@@ -69,6 +69,10 @@ class CarLikeModel(VehicleModel):
     def footprint_radius(self) -> float:
         return self._footprint_radius
 
+    @property
+    def max_planar_speed(self) -> float:
+        return max(self.max_speed, self.max_reverse_speed)
+
     def continuous_dynamics(self, x: ca.SX, u: ca.SX) -> ca.SX:
         v = x[3]
         return ca.vertcat(

@@ -52,6 +52,10 @@ class DifferentialDriveModel(VehicleModel):
     def footprint_radius(self) -> float:
         return self._footprint_radius
 
+    @property
+    def max_planar_speed(self) -> float:
+        return max(self.max_speed, self.max_reverse_speed)
+
     def continuous_dynamics(self, x: ca.SX, u: ca.SX) -> ca.SX:
         return ca.vertcat(u[0] * ca.cos(x[2]), u[0] * ca.sin(x[2]), u[1])
 

@@ -13,6 +13,7 @@ Stabilisable at rest.
 
 from __future__ import annotations
 
+import math
 from collections.abc import Mapping
 from typing import Any
 
@@ -65,6 +66,13 @@ class MultirotorModel(VehicleModel):
     @property
     def footprint_radius(self) -> float:
         return self._footprint_radius
+
+    @property
+    def max_planar_speed(self) -> float:
+        # The speed polygon's corners reach radius / cos(pi/sides) when it circumscribes.
+        if self.polygon_fit == "outer":
+            return self.max_speed / math.cos(math.pi / self.polygon_sides)
+        return self.max_speed
 
     def continuous_dynamics(self, x: ca.SX, u: ca.SX) -> ca.SX:
         return ca.vertcat(x[2], x[3], u[0] - self.drag * x[2], u[1] - self.drag * x[3])

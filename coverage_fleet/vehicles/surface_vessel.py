@@ -14,6 +14,7 @@ torque.z; body frame). Stabilisable at rest.
 
 from __future__ import annotations
 
+import math
 from collections.abc import Mapping
 from typing import Any
 
@@ -82,6 +83,10 @@ class SurfaceVesselModel(VehicleModel):
     @property
     def footprint_radius(self) -> float:
         return self._footprint_radius
+
+    @property
+    def max_planar_speed(self) -> float:
+        return math.hypot(max(self.max_surge_speed, self.max_reverse_speed), self.max_sway_speed)
 
     def continuous_dynamics(self, x: ca.SX, u: ca.SX) -> ca.SX:
         psi, surge, sway, r = x[2], x[3], x[4], x[5]

@@ -12,6 +12,7 @@ unicycle its linearisation at rest is stabilisable.
 
 from __future__ import annotations
 
+import math
 from collections.abc import Mapping
 from typing import Any
 
@@ -52,6 +53,10 @@ class OmniRoverModel(VehicleModel):
     @property
     def footprint_radius(self) -> float:
         return self._footprint_radius
+
+    @property
+    def max_planar_speed(self) -> float:
+        return math.sqrt(2.0) * self.max_speed  # the speed box's corner
 
     def continuous_dynamics(self, x: ca.SX, u: ca.SX) -> ca.SX:
         c, s = ca.cos(x[2]), ca.sin(x[2])
