@@ -49,6 +49,7 @@ from coverage_fleet.errors import ConfigError
 from coverage_fleet.fleet.controllers import LocalControllers, assign_robots
 from coverage_fleet.fleet.mission import Mission
 from coverage_fleet.fleet.parallel import PINNED_THREADS, default_workers
+from coverage_fleet.geometry.buffered_cells import FleetSnapshot
 from coverage_fleet.interrupts import raise_if_interrupted
 
 #: Robots per worker below which the simulate command keeps its controllers in one process
@@ -89,6 +90,7 @@ class ControllerPool:
         self._targets: list[list[tuple[str, Hashable, np.ndarray, float]]] = [
             [] for _ in self.shares
         ]
+        self._snapshots: list[FleetSnapshot] = []
         try:
             for share in self.shares:
                 self._start_worker()
@@ -144,6 +146,9 @@ class ControllerPool:
         self._targets[self._worker_of[name]].append(
             (name, key, np.asarray(target, float), float(distance_at_commit)))
 
+    def add_snapshot(self, snapshot: FleetSnapshot) -> None:
+        self._snapshots.append(snapshot)
+
     def answer_all(
         self, states: Mapping[str, np.ndarray], state_time: float
     ) -> dict[str, Answer]:
@@ -151,8 +156,9 @@ class ControllerPool:
         for index, share in enumerate(self.shares):
             batch = [(name, states[name]) for name in share if name in states]
             self._connections[index].send(
-                ("answer", float(state_time), self._targets[index], batch))
+                ("answer", float(state_time), self._targets[index], self._snapshots, batch))
             self._targets[index] = []
+        self._snapshots = []
         answers: dict[str, Answer] = {}
         for index in range(len(self.shares)):
             answers.update(self._receive(index, None, "a tick"))
@@ -199,10 +205,12 @@ def serve(connection: Connection) -> None:
             return
         if message[0] != "answer":
             return
-        _, state_time, targets, batch = message
+        _, state_time, targets, snapshots, batch = message
         try:
             for name, key, target, distance in targets:
                 controllers.set_target(name, key, target, distance)
+            for snapshot in snapshots:
+                controllers.add_snapshot(snapshot)
             answers = controllers.answer_all(dict(batch), state_time)
         except Exception:
             connection.send(("error", traceback.format_exc()))

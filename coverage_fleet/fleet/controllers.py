@@ -7,9 +7,14 @@ Two ways to hold them, with the same interface (`FleetControllers`):
   (`assign_robots`), each worker holding its robots' controllers from start to end.
 
 Both give the same answers for the same states: a controller's answer depends only on the
-states, targets and times it was given and on its own history (warm start, held input,
-fallback plan), never on where it runs or on the other robots. The split is therefore
-independent of the solver a vehicle file chooses.
+states, targets, snapshots and times it was given and on its own history (warm start, held
+input, fallback plan), never on where it runs. The split is therefore independent of the
+solver a vehicle file chooses.
+
+Keep-apart (the mission's `keep_apart`, control/keep_apart.py): every controller's MPC
+takes the fleet's cell rows, and each controller keeps the snapshots of its window; the
+fleet step hands every snapshot to every controller (`add_snapshot`) before the answers
+of that tick.
 """
 
 from __future__ import annotations
@@ -20,24 +25,62 @@ from typing import Protocol
 import numpy as np
 
 from coverage_fleet.control.controller import RobotController
+from coverage_fleet.control.keep_apart import CellLayout, CellWindow, cell_layout, horizon_reach
 from coverage_fleet.control.sampling import Answer, SampledController
 from coverage_fleet.control.terminal import terminal_for_vehicle
 from coverage_fleet.fleet.mission import Mission, RobotEntry
+from coverage_fleet.geometry.buffered_cells import FleetSnapshot
 
 
 def sampled_controller(
     entry: RobotEntry, mission: Mission, sample_tolerance: float
 ) -> SampledController:
-    """The robot's tracking MPC with failure fallback, sampled at its vehicle's sample time."""
+    """The robot's tracking MPC with failure fallback, sampled at its vehicle's sample time;
+    with the mission's keep-apart cells when they are enabled."""
     spec = entry.vehicle
     terminal, _ = terminal_for_vehicle(spec)
-    controller = RobotController(spec.model, spec.mpc, mission.region.halfspaces(), terminal)
-    return SampledController(
+    layout = mission_cell_layout(mission)
+    controller = RobotController(
+        spec.model, spec.mpc, mission.region.halfspaces(), terminal,
+        cell_rows=0 if layout is None else layout.rows,
+    )
+    sampled = SampledController(
         controller,
         spec.mpc.sample_time,
         sample_tolerance,
         mission.gate.noise_tolerance,
         mission.gate.progress_tolerance,
+    )
+    if layout is not None:
+        sampled.cells = CellWindow(
+            entry.name, mission.keep_apart, layout.window, layout.rows,
+            horizon_reach(spec.model.max_planar_speed, spec.mpc.sample_time, spec.mpc.horizon),
+        )
+    return sampled
+
+
+def mission_cell_layout(mission: Mission) -> CellLayout | None:
+    """The fleet's keep-apart layout (None when the mission turns keep-apart off)."""
+    if not mission.keep_apart.enabled:
+        return None
+    longest = max(e.vehicle.mpc.sample_time for e in mission.roster)
+    return cell_layout(mission.keep_apart, longest)
+
+
+def fleet_snapshot(
+    mission: Mission, time: float, positions: Mapping[str, np.ndarray],
+    ages: Mapping[str, float] | None = None,
+) -> FleetSnapshot:
+    """The snapshot of the roster robots in `positions` (metres) taken at `time`; ages 0
+    unless given (seconds)."""
+    entries = [e for e in mission.roster if e.name in positions]
+    return FleetSnapshot(
+        time=float(time),
+        names=tuple(e.name for e in entries),
+        positions=np.array([positions[e.name] for e in entries], dtype=float).reshape(-1, 2),
+        ages=np.array([0.0 if ages is None else ages[e.name] for e in entries]),
+        radii=np.array([e.vehicle.model.footprint_radius for e in entries]),
+        speed_limits=np.array([e.vehicle.model.max_planar_speed for e in entries]),
     )
 
 
@@ -48,6 +91,9 @@ class FleetControllers(Protocol):
         self, name: str, key: Hashable, target: np.ndarray, distance_at_commit: float
     ) -> None:
         """Commit a target to one robot (it applies before the robot's next answer)."""
+
+    def add_snapshot(self, snapshot: FleetSnapshot) -> None:
+        """A keep-apart snapshot for every controller (it applies before the next answers)."""
 
     def answer_all(
         self, states: Mapping[str, np.ndarray], state_time: float
@@ -77,6 +123,11 @@ class LocalControllers:
         self, name: str, key: Hashable, target: np.ndarray, distance_at_commit: float
     ) -> None:
         self.controllers[name].set_target(key, target, distance_at_commit)
+
+    def add_snapshot(self, snapshot: FleetSnapshot) -> None:
+        for controller in self.controllers.values():
+            if controller.cells is not None:
+                controller.cells.add(snapshot)
 
     def answer_all(
         self, states: Mapping[str, np.ndarray], state_time: float

@@ -9,8 +9,11 @@
     position and may commit the candidates as the next generation (GateKeeper, what the
     gate node runs); committed targets reach the robots at once; the settle monitor
     (fleet/settling.py, also the gate node's) judges the fleet settled, stuck or moving;
- 4. controllers: every robot answers its state (SampledController, what each controller
-    node runs): a solve when its sample is due, the held input otherwise, and its progress;
+ 4. controllers: with keep-apart on, a snapshot of the measured positions every
+    snapshot period (what the partition node broadcasts) goes to every controller first
+    (control/keep_apart.py); then every robot answers its state (SampledController, what
+    each controller node runs): a solve when its sample is due, the held input otherwise,
+    and its progress;
  5. plants: every plant advances by one step under its robot's input, plus process noise
     (FleetPlants, what the simulator node runs).
 
@@ -31,7 +34,12 @@ from typing import ClassVar
 import numpy as np
 
 from coverage_fleet.control.gate import GateOpening
-from coverage_fleet.fleet.controllers import FleetControllers, LocalControllers
+from coverage_fleet.fleet.controllers import (
+    FleetControllers,
+    LocalControllers,
+    fleet_snapshot,
+    mission_cell_layout,
+)
 from coverage_fleet.fleet.coordination import Candidates, GateKeeper, candidates_at
 from coverage_fleet.fleet.density_updates import DensitySource
 from coverage_fleet.fleet.mission import Mission
@@ -120,6 +128,10 @@ class FleetStep:
             LocalControllers(mission, step) if controllers is None else controllers
         )
         self.times = StageTimes()
+        layout = mission_cell_layout(mission)
+        self._snapshot_period = None if layout is None else layout.snapshot_period
+        self._snapshots_taken = 0
+        self._half_step = step / 2
         # Until the first answers the plants hold the rest input (its speed is the robot's).
         self._inputs: dict[str, np.ndarray] = {
             e.name: np.clip(np.zeros(e.vehicle.model.nu), *e.vehicle.model.input_bounds())
@@ -172,6 +184,7 @@ class FleetStep:
         solving = perf_counter()
         times.gate += solving - gated
 
+        self._snapshot_when_due(t, positions)
         answers = self.controllers.answer_all(measured, t)
         logging = perf_counter()
         times.solves += logging - solving
@@ -206,6 +219,15 @@ class FleetStep:
         times.robot_steps += len(self.names)
         times.logging += perf_counter() - logging
         return Tick(t, candidates, opening, settling, records)
+
+    def _snapshot_when_due(self, t: float, positions: Mapping[str, np.ndarray]) -> None:
+        """Snapshots at k * period (counted, so that float sums do not drift)."""
+        period = self._snapshot_period
+        if period is None or t < self._snapshots_taken * period - self._half_step:
+            return
+        self.controllers.add_snapshot(fleet_snapshot(self.mission, t, positions))
+        while self._snapshots_taken * period - self._half_step <= t:
+            self._snapshots_taken += 1
 
     def _planar_speed(self, name: str, x: np.ndarray) -> float:
         """Speed of the robot's reference point: its odometry twist for the state and the
