@@ -75,7 +75,7 @@ def test_trial_directory_layout(trials) -> None:
     names = sorted(str(p.relative_to(directory)) for p in directory.rglob("*") if p.is_file())
     robots = ["rover_a", "rover_b", "rover_c"]
     expected = sorted(
-        ["mission.yaml", "fleet.csv", "gate_openings.csv", "violations.csv",
+        ["mission.yaml", "fleet.csv", "gate_openings.csv", "violations.csv", "plant_clearance.csv",
          "report/metrics.json", *(f"report/{f}" for f in FIGURES),
          *(f"robots/{r}.csv" for r in robots), *(f"vehicles/{r}.yaml" for r in robots)]
     )
@@ -138,7 +138,13 @@ def test_report_numbers_agree_with_the_log(trials) -> None:
               for p in sorted((directory / "robots").glob("*.csv"))]
     closest = min(pdist(np.array([t[k] for t in tracks])).min() for k in range(len(tracks[0])))
     assert metrics["closest_approach_m"] == pytest.approx(closest, abs=1e-12)
-    assert metrics["smallest_clearance_m"] == pytest.approx(closest - 0.7, abs=1e-12)
+    # The plant's substeps between the ticks are the finer record: the smallest clearance is
+    # the least of both, never more than the states' own.
+    fine = min(float(r["clearance"]) for r in read_rows(directory / "plant_clearance.csv"))
+    assert fine <= closest - 0.7 + 1e-12
+    assert metrics["smallest_clearance_m"] == pytest.approx(fine, abs=1e-12)
+    assert metrics["clearance_measured_on"] == "plant substeps"
+    assert metrics["footprints_overlap"] is (fine < 0)
 
 
 def test_figures_are_real_images(trials) -> None:

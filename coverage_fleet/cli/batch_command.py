@@ -17,7 +17,12 @@ from typing import Any
 from coverage_fleet.errors import ConfigError
 from coverage_fleet.fleet.batch import run_batch, summarise
 from coverage_fleet.fleet.density_updates import density_in_force
-from coverage_fleet.fleet.mission import DURATION_MAX, SEED_MAX, load_mission_with
+from coverage_fleet.fleet.mission import (
+    DURATION_MAX,
+    SEED_MAX,
+    load_mission_with,
+    with_keep_apart,
+)
 from coverage_fleet.fleet.parallel import (
     WORKERS_MAX,
     Placement,
@@ -36,10 +41,12 @@ COLUMNS = (
     ("generations", "gens", "{:>4}"),
     ("final_cost", "final cost", "{:>11.5g}"),
     ("cvt_gap", "CVT gap", "{:>7.2%}"),
+    ("held_cvt_gap", "held gap", "{:>8.2%}"),
     ("final_largest_distance_to_centroid_m", "max dist (m)", "{:>12.3g}"),
     ("limit_violations", "limits", "{:>6}"),
     ("solver_failures", "fails", "{:>5}"),
-    ("smallest_clearance_m", "clear (m)", "{:>9.2f}"),
+    ("smallest_clearance_m", "clear (m)", "{:>9.3f}"),
+    ("footprints_overlap", "overlap", "{!s:>7}"),
     ("wall_time_s", "wall (s)", "{:>8.1f}"),
 )
 SUMMARY_KEYS = (
@@ -47,6 +54,7 @@ SUMMARY_KEYS = (
     "generations",
     "final_cost",
     "cvt_gap",
+    "held_cvt_gap",
     "final_largest_distance_to_centroid_m",
     "limit_violations",
     "solver_failures",
@@ -57,6 +65,8 @@ SUMMARY_KEYS = (
 
 #: Runs in one batch: a day of runs of a few seconds each; more is a typing mistake.
 BATCH_SEEDS_MAX = 100_000
+#: Largest --packed-starts gap (m): beyond a few hundred metres nothing is packed.
+PACKED_GAP_MAX = 1000.0
 
 
 def table_header() -> str:
@@ -81,6 +91,16 @@ def register(subparsers: argparse._SubParsersAction) -> None:
     parser.add_argument("--seeds", type=int, required=True, help="number of runs")
     parser.add_argument("--first-seed", type=int, default=0, help="seed of the first run")
     parser.add_argument("--duration", type=float, help="simulated seconds per run")
+    parser.add_argument(
+        "--packed-starts", type=float, metavar="GAP",
+        help="start the fleet packed together instead of spread out: every footprint inside "
+             "the region, no two overlapping, every robot within GAP metres (footprint to "
+             "footprint) of at least one other; drawn with each run's seed "
+             "(fleet/batch.packed_initial_poses)")
+    parser.add_argument(
+        "--keep-apart", choices=("mission", "on", "off"), default="mission",
+        help="buffered cells in every robot's MPC: as the mission says (default), or forced "
+             "on or off for this batch (off: the comparison without avoidance)")
     parser.add_argument(
         "--json",
         type=Path,
@@ -125,9 +145,14 @@ def run(args: argparse.Namespace) -> int:
         options.check("--duration", number_fault(
             args.duration, minimum=0.0, exclusive_minimum=True, maximum=DURATION_MAX))
     placement = placement_from(args, options)
+    if args.packed_starts is not None:
+        options.check("--packed-starts", number_fault(
+            args.packed_starts, minimum=0.0, maximum=PACKED_GAP_MAX))
     if args.json is not None:
         options.check("--json", output_fault(args.json))
     mission = load_mission_with(args.mission, options)
+    if args.keep_apart != "mission":
+        mission = with_keep_apart(mission, args.keep_apart == "on")
     stamp = datetime.now(UTC).strftime("%Y%m%dT%H%M%SZ")
     out = args.json or Path("trials") / f"{mission.name}-batch-{stamp}.json"
     if out.exists():
@@ -137,7 +162,10 @@ def run(args: argparse.Namespace) -> int:
     check_output_location(out, "--json")
     seeds = list(range(args.first_seed, args.first_seed + args.seeds))
     footprints = {e.name: e.footprint_radius for e in mission.roster}
-    print(f"batch: {len(seeds)} runs on {placement.describe()}", file=sys.stderr)
+    starts = ("random spread" if args.packed_starts is None
+              else f"packed within {args.packed_starts:g} m")
+    print(f"batch: {len(seeds)} runs on {placement.describe()}; starts {starts}; keep-apart "
+          f"{'on' if mission.keep_apart.enabled else 'off'}", file=sys.stderr)
     print(table_header())
     finished: dict[int, dict[str, Any]] = {}
     shown = 0
@@ -161,15 +189,22 @@ def run(args: argparse.Namespace) -> int:
                                       density=density_in_force(
                                           mission.density, mission.density_updates,
                                           args.duration or mission.simulation.duration),
-                                      footprints=footprints),
+                                      footprints=footprints,
+                                      held=mission.settle.cells),
             on_run=show,
             placement=placement,
+            packed_gap=args.packed_starts,
         )
     summary = summarise(rows, SUMMARY_KEYS)
     print("summary over", len(rows), "runs:")
     for key, stats in summary.items():
         print(f"  {key}: mean {stats['mean']:.4g}  min {stats['min']:.4g}  max {stats['max']:.4g}")
-    document = {"mission": str(mission.source), "seeds": seeds, "summary": summary, "runs": rows}
+    overlaps = sum(bool(r.get("footprints_overlap")) for r in rows)
+    if overlaps:
+        print(f"FOOTPRINTS OVERLAP in {overlaps} of {len(rows)} runs (column 'overlap')")
+    document = {"mission": str(mission.source), "seeds": seeds, "summary": summary,
+                "keep_apart": mission.keep_apart.enabled, "packed_starts": args.packed_starts,
+                "runs": rows}
     out.parent.mkdir(parents=True, exist_ok=True)
     staging = out.with_name(f".{out.name}.partial")
     staging.write_text(json.dumps(document, indent=2) + "\n")

@@ -144,10 +144,16 @@ def _clearance_line(metrics: dict[str, Any]) -> list[str]:
     clearance = metrics.get("smallest_clearance_m")
     if clearance is None:
         return []
-    warning = (
-        " (FOOTPRINTS OVERLAP: the controllers do not avoid each other)" if clearance < 0 else ""
-    )
-    return [f"smallest clearance between two robots' footprints {clearance:.2f} m{warning}"]
+    where = metrics.get("clearance_measured_on", "logged states")
+    line = f"smallest clearance between two robots' footprints {clearance:.3f} m (on the {where})"
+    if not metrics.get("footprints_overlap", clearance < 0):
+        return [line]
+    pairs = ", ".join("/".join(pair) for pair in metrics.get("overlap_pairs", []))
+    first = metrics.get("overlap_first_time_s")
+    when = "" if first is None else f" first at {first:.2f} s"
+    return [line, f"FOOTPRINTS OVERLAP: {pairs or 'two robots'} touched{when} "
+                  f"({metrics.get('overlap_samples', 1)} samples); check keep_apart and the "
+                  "robots' localisation before any trial with people near"]
 
 
 def register(subparsers: argparse._SubParsersAction) -> None:

@@ -49,8 +49,8 @@ from __future__ import annotations
 
 import copy
 import math
-from collections.abc import Mapping
-from dataclasses import dataclass, field
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any
 
@@ -60,7 +60,7 @@ from coverage_fleet.control.gate import GateSettings
 from coverage_fleet.control.keep_apart import KEEP_APART_NEIGHBOURS_MAX, KeepApartSettings
 from coverage_fleet.errors import ConfigError
 from coverage_fleet.fleet.density_updates import DensityUpdate
-from coverage_fleet.fleet.settling import SettleSettings, settle_problems
+from coverage_fleet.fleet.settling import HeldCells, SettleSettings, settle_problems
 from coverage_fleet.geometry.density import Density, density_from_config
 from coverage_fleet.geometry.geodetic import (
     LocalFrame,
@@ -344,10 +344,41 @@ def mission_from_mapping(raw: Any, path: Path) -> Mission:
         simulation=simulation,
         description=description,
         raw=dict(raw),
-        settle=settle,
+        settle=replace(settle, cells=held_cells(region, roster, keep_apart)),
         frame=frame,
         density_updates=tuple(updates),
         keep_apart=keep_apart,
+    )
+
+
+def held_cells(
+    region: ConvexRegion, roster: Sequence[RobotEntry], keep_apart: KeepApartSettings
+) -> HeldCells | None:
+    """The buffered cells the settle monitor measures "near" in (fleet/settling.py); None
+    with keep-apart off. Each robot's pad is its MPC's: v_max * sample_time / 2."""
+    if not keep_apart.enabled:
+        return None
+    return HeldCells(
+        region=region,
+        radii={e.name: e.footprint_radius for e in roster},
+        pads={e.name: float(e.vehicle.model.max_planar_speed) * e.vehicle.mpc.sample_time / 2.0
+              for e in roster},
+        margin=keep_apart.margin,
+    )
+
+
+def with_keep_apart(mission: Mission, enabled: bool) -> Mission:
+    """The mission with keep-apart turned on or off (a study's comparison, `batch
+    --keep-apart`): its settings, the settle monitor's cells and the mission as run."""
+    keep_apart = replace(mission.keep_apart, enabled=bool(enabled))
+    raw = dict(mission.raw)
+    raw["keep_apart"] = {**(raw.get("keep_apart") or {}), "enabled": bool(enabled)}
+    return replace(
+        mission,
+        keep_apart=keep_apart,
+        raw=raw,
+        settle=replace(mission.settle,
+                       cells=held_cells(mission.region, mission.roster, keep_apart)),
     )
 
 

@@ -12,6 +12,13 @@ noise for the same seed.
 
 A robot given no input (None) gets its model's braking input: no usable command never means
 driving on an old one.
+
+How close the robots came is measured on the plants' own paths, at every RK4 substep (not
+only at the ticks the controllers see): after each step `last_clearance` holds the smallest
+clearance between two footprint discs (centre distance minus both radii, metres; negative:
+the footprints overlapped) over that step's substeps, the pair and the substep's time. The
+last substep is the state after process noise (the state the next tick starts from); the
+substeps before it are the noise-free integration under the held input.
 """
 
 from __future__ import annotations
@@ -44,6 +51,32 @@ def initial_state(entry: RobotEntry, start: Pose | OdometryValues) -> np.ndarray
     return np.asarray(model.state_from_odometry(start), float)
 
 
+@dataclass(frozen=True)
+class StepClearance:
+    """The smallest footprint clearance (m; negative: overlap) of any two plants over one
+    plant step, at its substeps: when (s, on the run's clock) and which pair."""
+
+    time: float
+    clearance: float
+    robots: tuple[str, str]
+
+
+def smallest_clearance(
+    names: Sequence[str], paths: np.ndarray, radii: np.ndarray
+) -> tuple[int, float, tuple[str, str]] | None:
+    """The smallest footprint clearance over paths (n robots, S samples, 2): (sample index,
+    clearance, pair); None with fewer than two robots."""
+    n = len(names)
+    if n < 2:
+        return None
+    gaps = np.linalg.norm(paths[:, None, :, :] - paths[None, :, :, :], axis=-1)
+    clearance = gaps - (radii[:, None] + radii[None, :])[:, :, None]
+    first, second = np.triu_indices(n, k=1)
+    pairs = clearance[first, second]  # (pairs, S)
+    pair, sample = np.unravel_index(int(np.argmin(pairs)), pairs.shape)
+    return int(sample), float(pairs[pair, sample]), (names[first[pair]], names[second[pair]])
+
+
 class FleetPlants:
     """The plants of the simulated robots, stepped together."""
 
@@ -67,6 +100,14 @@ class FleetPlants:
         self._dynamics = {
             e.name: e.vehicle.model.discrete_dynamics(step, substeps) for e in entries
         }
+        self.substeps = int(substeps)
+        self._substep_states = {
+            e.name: e.vehicle.model.substep_states(step, substeps) for e in entries
+        }
+        self._radii = np.array([e.footprint_radius for e in entries], dtype=float)
+        #: The smallest footprint clearance over the last step's substeps (None before the
+        #: first step, or with one robot).
+        self.last_clearance: StepClearance | None = None
         self.states = {
             e.name: initial_state(e, (starts or {}).get(e.name, e.initial_pose)) for e in entries
         }
@@ -107,12 +148,24 @@ class FleetPlants:
     def advance(self, inputs: Mapping[str, np.ndarray | None]) -> None:
         """Advance every plant by one step; a robot missing from `inputs` or given None
         brakes."""
-        for name, x in self.states.items():
+        started = self.time
+        paths = np.empty((len(self.states), self.substeps, 2))
+        for index, (name, x) in enumerate(self.states.items()):
             u = self.applied_input(name, inputs.get(name))
             x_next = np.asarray(self._dynamics[name](x, u), float).ravel()
+            i, j = self.entries[name].vehicle.model.position_indices
             if self.noise.process_std > 0:
-                i, j = self.entries[name].vehicle.model.position_indices
                 x_next[[i, j]] += self._positions_noise(self.noise.process_std)
+            path = np.asarray(self._substep_states[name](x, u), float).reshape(len(x), -1)
+            paths[index, :, 0] = path[i]
+            paths[index, :, 1] = path[j]
+            paths[index, -1] = x_next[[i, j]]
             self.states[name] = x_next
         self.ticks += 1
         self._measured = None
+        found = smallest_clearance(list(self.states), paths, self._radii)
+        if found is not None:
+            sample, clearance, pair = found
+            self.last_clearance = StepClearance(
+                started + (sample + 1) * self.step / self.substeps, clearance, pair
+            )

@@ -14,6 +14,18 @@ closer by the progress tolerance. So "settled" is judged on what the fleet is do
              tolerances leave a robot short of its centroid);
     moving:  anything else.
 
+Keeping apart (the mission's `keep_apart`): a robot's MPC holds it inside its buffered cell
+(geometry/buffered_cells.py), so a robot whose centroid lies beyond its cell comes to rest
+at the best admissible point short of it (the offset cost's steady state, control/mpc.py)
+and never within `distance` of the centroid. With `SettleSettings.cells` set, "near" is
+measured from the point of the robot's buffered cell nearest the centroid of its current
+cell instead (cells of the positions now, ages 0, the mission's margin, each robot's cell
+pulled in by the MPC's pad v_max * sample_time / 2, which a robot at rest keeps from the
+rows): a robot held at its cell boundary is settled, a robot that could still get closer
+is not. Where the cell does not bind, that point is the centroid itself, so nothing changes
+for robots far apart. How much coverage avoidance costs at such a rest is the report's
+`held_cvt_gap` (report/metrics.py: Lloyd's iteration constrained to the same cells).
+
 A robot of the roster that is not taking part (its state or controller not live, so the
 partition left it out) is not near its centroid: the fleet is never "settled" without it,
 only "stuck" once the rest has been still for `stuck_timeout` (`absent` in `update`).
@@ -57,10 +69,44 @@ from typing import Literal
 
 import numpy as np
 
+from coverage_fleet.geometry.buffered_cells import admissible_points
+from coverage_fleet.geometry.region import ConvexRegion
+
 SettleStatus = Literal["moving", "settled", "stuck"]
 
 #: Standard deviations of measurement noise a settle distance must allow for (see above).
 MEASUREMENT_NOISE_MARGIN = 4.0
+
+
+@dataclass(frozen=True)
+class HeldCells:
+    """The buffered cells the robots' MPCs hold them to (keep-apart on): the region, every
+    robot's footprint radius and pad (m, by name) and the margin between footprints (m)."""
+
+    region: ConvexRegion
+    radii: Mapping[str, float]
+    pads: Mapping[str, float]
+    margin: float
+
+    def admissible_targets(
+        self, positions: Mapping[str, np.ndarray], targets: Mapping[str, np.ndarray]
+    ) -> dict[str, np.ndarray]:
+        """By robot (those in `positions`): the point of its buffered cell nearest its
+        target (the target itself where its cell is empty)."""
+        names = tuple(positions)
+        A, b = self.region.halfspaces()
+        points, _ = admissible_points(
+            names,
+            np.array([positions[n] for n in names], float).reshape(-1, 2),
+            np.array([targets[n] for n in names], float).reshape(-1, 2),
+            np.array([self.radii[n] for n in names], float),
+            self.margin,
+            self.region.vertices,
+            A,
+            b,
+            np.array([self.pads[n] for n in names], float),
+        )
+        return {n: points[k] for k, n in enumerate(names)}
 
 
 @dataclass(frozen=True)
@@ -73,12 +119,16 @@ class SettleSettings:
     dwell: seconds the settled condition must hold without a break.
     stuck_timeout: seconds of a shut gate and a still fleet, not settled, before the run
         is reported stuck; at least `dwell`.
+    cells: the buffered cells the robots are held to (None: keep-apart off); "near" is then
+        measured from the point of the robot's cell nearest its centroid (see above). Set
+        by the mission loader from the mission's keep_apart section, not read from a file.
     """
 
     distance: float = 0.2
     speed: float = 0.02
     dwell: float = 2.0
     stuck_timeout: float = 10.0
+    cells: HeldCells | None = None
 
 
 def settle_problems(
@@ -170,8 +220,12 @@ class SettleMonitor:
             self.largest_distance = self.largest_speed = float("nan")
             self.status = "moving"
             return self.status
+        targets = (
+            centroids if self.settings.cells is None
+            else self.settings.cells.admissible_targets(positions, centroids)
+        )
         distances = [
-            float(np.linalg.norm(np.asarray(positions[n], float) - np.asarray(centroids[n], float)))
+            float(np.linalg.norm(np.asarray(positions[n], float) - np.asarray(targets[n], float)))
             for n in robots
         ]
         self.largest_distance = np.inf if absent else max(distances)

@@ -5,6 +5,9 @@ progress reports and gate offer, controllers due, then the plants advance (with 
 mission's process and measurement noise, fleet/plants.py). The records each tick produces
 go to the trial assembler (fleet/trial_records.py), the same one the ROS recorder feeds.
 
+After each plant step the smallest footprint clearance at the plant's substeps goes to the
+log too (fleet/plants.py), so the report judges contact on the plants' own paths.
+
 After the gate, the settle monitor (fleet/settling.py) judges the tick: the run stops when
 the fleet has settled, when it is stuck, or when the duration ends. Noise comes from one
 numpy Generator seeded with the seed, so a run is deterministic for a given seed.
@@ -23,7 +26,7 @@ from coverage_fleet.fleet.mission import Mission, simulation_step
 from coverage_fleet.fleet.plants import Pose
 from coverage_fleet.fleet.step import FleetStep, StageTimes
 from coverage_fleet.fleet.trial import TrialLog
-from coverage_fleet.fleet.trial_records import SettlingRecord, TrialAssembler
+from coverage_fleet.fleet.trial_records import ClearanceRecord, SettlingRecord, TrialAssembler
 from coverage_fleet.interrupts import raise_if_interrupted
 from coverage_fleet.vehicles.base import OdometryValues
 
@@ -108,6 +111,11 @@ def _run(
             break
         if tick < ticks:
             fleet.advance()
+            # How close the robots came between the ticks, at the plant's substeps.
+            clearance = fleet.plants.last_clearance
+            if clearance is not None:
+                assembler.add(ClearanceRecord(clearance.time, clearance.clearance,
+                                              clearance.robots))
 
     finishing = wallclock.perf_counter()
     log = assembler.finish(

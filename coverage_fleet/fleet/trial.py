@@ -19,6 +19,9 @@ Layout of a trial directory:
     gate_openings.csv     generation, time, reason, cost, robot, position_x, position_y,
                           target_x, target_y, distance
     violations.csv        time, robot, limit, value, bound
+    plant_clearance.csv   time, clearance, robot_a, robot_b: per plant step the smallest
+                          clearance between two footprints at the plant's RK4 substeps
+                          (offline runs; empty for runs of the ROS graph)
     report/               metrics.json (with provenance) and PNG figures
                           (coverage_fleet.report)
     recording.mcap        runs of the ROS graph: the recording the trial was built from
@@ -94,6 +97,17 @@ class LimitViolation:
     bound: float
 
 
+@dataclass(frozen=True)
+class ClearanceSample:
+    """The smallest clearance between two robots' footprint discs (m; negative: overlap)
+    over one plant step, at the plant's substeps (fleet/plants.py): when and which pair."""
+
+    time: float
+    clearance: float
+    robot_a: str
+    robot_b: str
+
+
 @dataclass
 class TrialLog:
     """Everything one run of the fleet produced."""
@@ -109,6 +123,8 @@ class TrialLog:
     robots: dict[str, RobotLog] = field(default_factory=dict)
     openings: list[GateOpening] = field(default_factory=list)
     violations: list[LimitViolation] = field(default_factory=list)
+    #: Offline runs: one sample per plant step (the finest record of how close robots came).
+    plant_clearance: list[ClearanceSample] = field(default_factory=list)
     #: Simulated time at which the settle monitor first reported the fleet settled within
     #: tolerance (fleet/settling.py), None if it never did.
     settled_time: float | None = None
@@ -233,6 +249,11 @@ def write_log(directory: Path, log: TrialLog) -> None:
         directory / "violations.csv",
         ["time", "robot", "limit", "value", "bound"],
         [[v.time, v.robot, v.limit, v.value, v.bound] for v in log.violations],
+    )
+    _write_csv(
+        directory / "plant_clearance.csv",
+        ["time", "clearance", "robot_a", "robot_b"],
+        [[c.time, c.clearance, c.robot_a, c.robot_b] for c in log.plant_clearance],
     )
 
 
@@ -394,5 +415,11 @@ def read_trial_log(directory: str | Path, mission: Any) -> TrialLog:
         LimitViolation(float(r["time"]), r["robot"], r["limit"], float(r["value"]),
                        float(r["bound"]))
         for r in read_csv(directory / "violations.csv")
+    ]
+    # Trials written before the plant clearance was recorded have no such file.
+    clearance_path = directory / "plant_clearance.csv"
+    log.plant_clearance = [
+        ClearanceSample(float(r["time"]), float(r["clearance"]), r["robot_a"], r["robot_b"])
+        for r in (read_csv(clearance_path) if clearance_path.is_file() else [])
     ]
     return log

@@ -23,6 +23,9 @@ record, so a run stamped with the wall clock starts at 0 too):
 - CandidatesRecord: a partition of the live robots (one row of fleet.csv: time, generation,
   cost, largest distance of a robot in it from its committed target).
 - OpeningRecord: a gate opening (control.gate.GateOpening).
+- ClearanceRecord: the smallest footprint clearance of any two robots over one plant step,
+  at the plant's substeps (fleet/plants.py StepClearance; offline runs only: a recording
+  of the ROS graph has the odometry states, whose clearance the report computes itself).
 - SettlingRecord: the settle monitor's status ("moving", "settled", "stuck"); the first
   "settled" and the first "stuck" count, at the newest state time recorded so far. A
   density opening (a new density: a new job for the fleet) forgets both, so they then
@@ -40,7 +43,7 @@ from coverage_fleet.control.progress import judge
 from coverage_fleet.fleet.coordination import largest_distance
 from coverage_fleet.fleet.limit_check import limit_violations
 from coverage_fleet.fleet.mission import Mission
-from coverage_fleet.fleet.trial import RobotLog, TrialLog
+from coverage_fleet.fleet.trial import ClearanceSample, RobotLog, TrialLog
 
 #: Two state times closer than this name the same state.
 SAME_TIME = 1e-6
@@ -105,6 +108,13 @@ class SettlingRecord:
     status: str
 
 
+@dataclass(frozen=True)
+class ClearanceRecord:
+    time: float
+    clearance: float
+    robots: tuple[str, str]
+
+
 TrialRecord = (
     StateRecord
     | CommandRecord
@@ -115,6 +125,7 @@ TrialRecord = (
     | CandidatesRecord
     | OpeningRecord
     | SettlingRecord
+    | ClearanceRecord
 )
 
 
@@ -203,6 +214,9 @@ class TrialAssembler:
                 )
                 if opening.reason == "density":
                     self.log.settled_time = self.log.stuck_time = None
+            case ClearanceRecord():
+                self.log.plant_clearance.append(ClearanceSample(
+                    self._relative(record.time), float(record.clearance), *record.robots))
             case SettlingRecord():
                 times = [r.time[-1] for r in self.log.robots.values() if r.time]
                 now = max(times, default=0.0)

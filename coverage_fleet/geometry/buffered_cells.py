@@ -131,3 +131,80 @@ def cell_polygon_rows(
     A = np.asarray(region_A, float).reshape(-1, 2)
     b = np.asarray(region_b, float).reshape(-1) - shrink * np.linalg.norm(A, axis=1)
     return np.vstack([A, halfplanes.normals]), np.concatenate([b, halfplanes.offsets])
+
+
+def buffered_cell_polygon(
+    snapshot: FleetSnapshot,
+    own: str,
+    margin: float,
+    region_vertices: np.ndarray,
+    region_A: np.ndarray,
+    region_b: np.ndarray,
+    hold_back: float = 0.0,
+) -> np.ndarray:
+    """Where `own`'s centre may be: the region shrunk by its footprint radius, cut by its
+    separating half-planes, everything pulled in by a further `hold_back` metres (what the
+    MPC keeps clear of the rows at rest: control/mpc.py's pad). (k, 2) counter-clockwise
+    vertices, (0, 2) when nothing is left."""
+    from coverage_fleet.geometry.polygon import clip_halfplane
+
+    i = snapshot.names.index(own)
+    shrink = float(snapshot.radii[i]) + hold_back
+    planes = separating_halfplanes(snapshot, own, margin)
+    A, b = cell_polygon_rows(planes, region_A, region_b, shrink)
+    b = b.copy()
+    b[len(region_b):] -= hold_back
+    polygon = np.asarray(region_vertices, float)
+    for normal, offset in zip(A, b, strict=True):
+        polygon = clip_halfplane(polygon, normal, offset)
+    return polygon
+
+
+def nearest_point_of_polygon(polygon: np.ndarray, point: np.ndarray) -> np.ndarray:
+    """The point of a convex polygon (k >= 3 vertices, counter-clockwise) nearest `point`:
+    the point itself when inside, else the nearest point of the nearest edge (the
+    Euclidean projection onto a closed convex set, unique: Boyd & Vandenberghe, Convex
+    Optimization, 2004, sec. 8.1)."""
+    q = np.asarray(point, float).reshape(2)
+    start = np.asarray(polygon, float)
+    edge = np.roll(start, -1, axis=0) - start
+    outward = np.column_stack([edge[:, 1], -edge[:, 0]])  # right of a CCW edge is outside
+    if np.all(np.einsum("kj,kj->k", q - start, outward) <= 0.0):
+        return q.copy()
+    length2 = np.einsum("kj,kj->k", edge, edge)
+    t = np.clip(np.einsum("kj,kj->k", q - start, edge) / np.where(length2 > 0, length2, 1.0),
+                0.0, 1.0)
+    nearest = start + t[:, None] * edge
+    return nearest[int(np.argmin(np.linalg.norm(nearest - q, axis=1)))]
+
+
+def admissible_points(
+    names: tuple[str, ...],
+    positions: np.ndarray,
+    targets: np.ndarray,
+    radii: np.ndarray,
+    margin: float,
+    region_vertices: np.ndarray,
+    region_A: np.ndarray,
+    region_b: np.ndarray,
+    hold_back: np.ndarray | None = None,
+) -> tuple[np.ndarray, np.ndarray]:
+    """For every robot the point of its buffered cell (fresh positions, ages 0) nearest its
+    target: where a tracking MPC that honours the cell brings it to rest (the offset cost's
+    best admissible steady state). Returns (points (n, 2), has_cell (n,) bool); a robot
+    whose cell is empty (already too close to a neighbour) keeps its target."""
+    n = len(names)
+    positions = np.asarray(positions, float).reshape(n, 2)
+    targets = np.asarray(targets, float).reshape(n, 2)
+    hold = np.zeros(n) if hold_back is None else np.asarray(hold_back, float)
+    snapshot = FleetSnapshot(0.0, tuple(names), positions, np.zeros(n),
+                             np.asarray(radii, float), np.zeros(n))
+    points = targets.copy()
+    has_cell = np.zeros(n, bool)
+    for k, name in enumerate(names):
+        polygon = buffered_cell_polygon(snapshot, name, margin, region_vertices, region_A,
+                                        region_b, float(hold[k]))
+        if len(polygon) >= 3:
+            points[k] = nearest_point_of_polygon(polygon, targets[k])
+            has_cell[k] = True
+    return points, has_cell

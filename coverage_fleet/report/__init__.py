@@ -25,15 +25,17 @@ def write_report(
     footprints: dict[str, float] | None = None,
     map_origin: str | None = None,
     extra_metrics: dict[str, Any] | None = None,
+    held: Any = None,
 ) -> dict[str, Any]:
     """Write metrics.json and the figures into `directory`; returns the metrics (with
     `extra_metrics`, e.g. the provenance, added). `map_origin` (a geodetic mission's
-    origin, LocalFrame.describe) labels the map axes."""
+    origin, LocalFrame.describe) labels the map axes. `held` (fleet/settling.HeldCells, a
+    keep-apart run's buffered cells) adds the held CVT gap."""
     from coverage_fleet.report import figures
     from coverage_fleet.report.metrics import trial_metrics
 
     directory = Path(directory)
-    metrics = {**trial_metrics(log, region, density, footprints), **(extra_metrics or {})}
+    metrics = {**trial_metrics(log, region, density, footprints, held), **(extra_metrics or {})}
     (directory / "metrics.json").write_text(json.dumps(metrics, indent=2) + "\n")
     figures.plot_trajectories(directory / "trajectories.png", log, region, density,
                               map_origin)

@@ -255,23 +255,40 @@ def plot_clearance(
     path: Path, log: TrialLog, footprints: dict[str, float] | None = None
 ) -> tuple[np.ndarray, np.ndarray]:
     """The smallest clearance between any two robots against time (footprint discs; centre
-    distance without footprints); zero and below means footprints overlap. Returns the
-    plotted (times, clearance)."""
-    from coverage_fleet.report.metrics import clearance_over_time
+    distance without footprints): at the logged states and, offline, at every plant
+    substep; zero and below means footprints overlap, shaded red and named in the title.
+    Returns the plotted (times, clearance) of the logged states."""
+    from coverage_fleet.report.metrics import clearance_over_time, plant_clearance_over_time
 
     times, clearance = clearance_over_time(log, footprints)
+    fine_times, fine = plant_clearance_over_time(log) if footprints is not None else (
+        np.zeros(0), np.zeros(0))
     what = "clearance between footprints" if footprints is not None else "centre distance"
     fig, ax = plt.subplots(figsize=(8, 3.5), dpi=DPI)
+    if len(fine):
+        ax.plot(fine_times, fine, color="#8e44ad", linewidth=0.9, alpha=0.8,
+                label="smallest over each plant step's substeps")
     ax.plot(times, clearance, color="#1f6fb2", linewidth=1.3,
-            label=f"smallest {what} over all pairs")
+            label=f"smallest {what} over all pairs (logged states)")
     ax.axhline(0.0, color="#c0392b", linestyle="--", linewidth=1, label="touching")
-    if np.isfinite(clearance).any():
-        k = int(np.nanargmin(clearance))
-        ax.plot(times[k], clearance[k], marker="v", color="#c0392b", linestyle="none",
-                label=f"smallest {clearance[k]:.2f} m at {times[k]:.1f} s")
+    every_time = np.concatenate([times, fine_times])
+    every_value = np.concatenate([clearance, fine])
+    overlap = footprints is not None and bool(np.any(every_value < 0))
+    if np.isfinite(every_value).any():
+        k = int(np.nanargmin(every_value))
+        ax.plot(every_time[k], every_value[k], marker="v", color="#c0392b", linestyle="none",
+                label=f"smallest {every_value[k]:.3f} m at {every_time[k]:.1f} s")
+    if overlap:
+        low = min(float(np.nanmin(every_value)), -0.01)
+        ax.axhspan(low * 1.1, 0.0, color="#c0392b", alpha=0.15, linewidth=0)
+        ax.set_title(f"{log.mission_name}: FOOTPRINTS OVERLAP (smallest clearance "
+                     f"{np.nanmin(every_value):.3f} m)", fontsize=11, color="#c0392b",
+                     fontweight="bold")
+    else:
+        ax.set_title(f"{log.mission_name}: how close the robots came to each other",
+                     fontsize=10)
     ax.set_xlabel("time (s)")
     ax.set_ylabel(f"smallest {what} (m)")
-    ax.set_title(f"{log.mission_name}: how close the robots came to each other", fontsize=10)
     ax.grid(alpha=0.3)
     ax.legend(fontsize=8)
     fig.tight_layout()

@@ -6,7 +6,8 @@ from typing import Any
 
 import numpy as np
 
-from coverage_fleet.fleet.lloyd import lloyd
+from coverage_fleet.fleet.lloyd import held_lloyd, lloyd
+from coverage_fleet.fleet.settling import HeldCells
 from coverage_fleet.fleet.trial import RobotLog, TrialLog
 from coverage_fleet.geometry.density import Density
 from coverage_fleet.geometry.partition import compute_partition
@@ -47,10 +48,46 @@ def cvt_gap(positions: np.ndarray, region: ConvexRegion, density: Density) -> di
     }
 
 
+def held_cvt_gap(
+    positions: np.ndarray, names: list[str], region: ConvexRegion, density: Density,
+    held: HeldCells,
+) -> dict[str, Any]:
+    """The CVT gap judged under keep-apart: the relative cost decrease (H_start - H_held) /
+    H_start that Lloyd's iteration *constrained to the same buffered cells* achieves from
+    `positions` (fleet/lloyd.held_lloyd: every step to the point of the agent's buffered
+    cell nearest its centroid, cells pulled in by the MPC's pad). 0 when no robot could get
+    closer to its centroid without leaving its cell: the run is as finished as avoidance
+    allows, even where the plain `cvt_gap` (unconstrained Lloyd) is not 0 because robots
+    are held apart at their cell boundaries. Two robots pressing on their shared line rest
+    anywhere within a short family of positions (neither cell lets them slide apart), so
+    0 means "no robot can get closer within its cell", not "the best configuration the
+    cells allow"; the plain `cvt_gap` beside it shows what keeping apart costs."""
+    result = held_lloyd(
+        positions, region, density,
+        np.array([held.radii[n] for n in names]), held.margin,
+        np.array([held.pads[n] for n in names]),
+        max_iterations=CVT_GAP_MAX_ITERATIONS, tolerance=CVT_GAP_STEP_TOLERANCE,
+    )
+    start, end = float(result.costs[0]), float(np.min(result.costs))
+    return {
+        "held_cvt_gap": (start - end) / start if start > 0 else 0.0,
+        "held_lloyd_cost_from_final": end,
+        "held_lloyd_iterations": result.iterations,
+        "held_lloyd_converged": result.converged,
+    }
+
+
 def closest_approach(log: TrialLog, footprints: dict[str, float] | None = None) -> dict[str, Any]:
     """Smallest centre distance between any two robots over the run, and (with footprint
-    radii) the smallest clearance between their footprint discs. The controllers do not
-    avoid each other, so this is worth a look before a real trial.
+    radii) the smallest clearance between their footprint discs, with any overlap flagged.
+
+    The clearance is taken from every sample there is: the logged states (odometry of the
+    ROS graph, the ticks offline) and, offline, the plant's own path at every RK4 substep
+    (`log.plant_clearance`, fleet/plants.py), the finer record. Keys:
+    smallest_clearance_m (m; negative: footprints overlapped), smallest_clearance_time_s,
+    smallest_clearance_robots, clearance_measured_on ("plant substeps" when the run has
+    them, else "logged states"), footprints_overlap (bool), overlap_first_time_s,
+    overlap_pairs (each pair that overlapped at some sample), overlap_samples.
 
     Robots' rows need not share times (a recording of the ROS graph logs each robot as its
     messages arrive): each pair is compared at the union of its sample times within the
@@ -59,17 +96,43 @@ def closest_approach(log: TrialLog, footprints: dict[str, float] | None = None) 
     if len(names) < 2:
         return {"closest_approach_m": None, "smallest_clearance_m": None}
     radii = {n: 0.0 for n in names} if footprints is None else footprints
-    closest, clearance = np.inf, np.inf
+    closest = np.inf
+    samples: list[tuple[float, float, tuple[str, str]]] = []  # (time, clearance, pair)
+    best: tuple[float, float, tuple[str, str]] | None = None
     for a_index, a in enumerate(names):
         for b in names[a_index + 1:]:
-            _, gap = _pair_gaps(log.robots[a], log.robots[b])
-            if len(gap):
-                closest = min(closest, float(gap.min()))
-                clearance = min(clearance, float(gap.min()) - radii[a] - radii[b])
+            times, gap = _pair_gaps(log.robots[a], log.robots[b])
+            if not len(gap):
+                continue
+            closest = min(closest, float(gap.min()))
+            clearance = gap - radii[a] - radii[b]
+            k = int(np.argmin(clearance))
+            if best is None or clearance[k] < best[1]:
+                best = (float(times[k]), float(clearance[k]), (a, b))
+            samples.extend(
+                (float(t), float(c), (a, b)) for t, c in zip(times, clearance, strict=True)
+                if c < 0
+            )
     result: dict[str, Any] = {"closest_approach_m": float(closest) if np.isfinite(closest)
                               else None}
-    if footprints is not None:
-        result["smallest_clearance_m"] = float(clearance) if np.isfinite(clearance) else None
+    if footprints is None:
+        return result
+    plant = [(c.time, c.clearance, (c.robot_a, c.robot_b)) for c in log.plant_clearance]
+    for sample in plant:
+        if best is None or sample[1] < best[1]:
+            best = sample
+    samples.extend(sample for sample in plant if sample[1] < 0)
+    overlaps = sorted(samples)
+    result.update({
+        "smallest_clearance_m": None if best is None else best[1],
+        "smallest_clearance_time_s": None if best is None else best[0],
+        "smallest_clearance_robots": None if best is None else list(best[2]),
+        "clearance_measured_on": "plant substeps" if plant else "logged states",
+        "footprints_overlap": bool(overlaps),
+        "overlap_first_time_s": overlaps[0][0] if overlaps else None,
+        "overlap_pairs": [list(pair) for pair in sorted({pair for _, _, pair in overlaps})],
+        "overlap_samples": len(overlaps),
+    })
     return result
 
 
@@ -117,13 +180,22 @@ def clearance_over_time(
     return times, np.where(np.isfinite(smallest), smallest, np.nan)
 
 
+def plant_clearance_over_time(log: TrialLog) -> tuple[np.ndarray, np.ndarray]:
+    """(times, smallest footprint clearance) per plant step at the plant's substeps
+    (offline runs; empty arrays for a run of the ROS graph)."""
+    return (np.array([c.time for c in log.plant_clearance], float),
+            np.array([c.clearance for c in log.plant_clearance], float))
+
+
 def trial_metrics(
     log: TrialLog,
     region: ConvexRegion,
     density: Density,
     footprints: dict[str, float] | None = None,
+    held: HeldCells | None = None,
 ) -> dict[str, Any]:
-    """outcome (settled / stuck / duration reached) and its time, final_cost, the CVT gap,
+    """outcome (settled / stuck / duration reached) and its time, final_cost, the CVT gap
+    (and, with `held`, the buffered cells of a keep-apart run, the held CVT gap),
     final_largest_distance_to_centroid, generations, the reason of each opening and the
     times of density updates, limit_violations, solver_failures,
     solve-time statistics and the opening costs."""
@@ -150,6 +222,8 @@ def trial_metrics(
         "stuck_time_s": log.stuck_time,
         "final_cost": final_cost,
         **cvt_gap(final, region, density),
+        "keep_apart": held is not None,
+        **(held_cvt_gap(final, names, region, density, held) if held is not None else {}),
         "final_largest_distance_to_centroid_m": float(np.max(to_centroid)),
         "final_distance_to_centroid_m": {
             n: float(d) for n, d in zip(names, to_centroid, strict=True)

@@ -88,6 +88,7 @@ def write_mission_trial(
                 footprints={e.name: e.footprint_radius for e in mission.roster},
                 map_origin=None if mission.frame is None else mission.frame.describe(),
                 extra_metrics={"provenance": found},
+                held=mission.settle.cells,
             )
         )
 
@@ -120,6 +121,7 @@ def rebuild_report(trial: str | Path, out: str | Path) -> dict[str, Any]:
         footprints={e.name: e.footprint_radius for e in mission.roster},
         map_origin=None if mission.frame is None else mission.frame.describe(),
         extra_metrics={"provenance": old.get("provenance", current_provenance())},
+        held=mission.settle.cells,
     )
 
 

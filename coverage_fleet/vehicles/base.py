@@ -179,18 +179,34 @@ class VehicleModel(ABC):
             out[i] = reference[i] + (out[i] - reference[i] + np.pi) % (2.0 * np.pi) - np.pi
         return out
 
-    def discrete_dynamics(self, sample_time: float, substeps: int) -> ca.Function:
-        """x_{k+1} = F(x_k, u_k): `substeps` classical Runge-Kutta 4 steps over sample_time
-        with the input held (zero-order hold)."""
+    def _runge_kutta_states(
+        self, sample_time: float, substeps: int
+    ) -> tuple[ca.SX, ca.SX, list[ca.SX]]:
+        """(x, u, [state after each substep]): classical Runge-Kutta 4 with the input held."""
         x = ca.SX.sym("x", self.nx)
         u = ca.SX.sym("u", self.nu)
         f = ca.Function("f", [x, u], [self.continuous_dynamics(x, u)])
         h = sample_time / substeps
         xk = x
+        states = []
         for _ in range(substeps):
             k1 = f(xk, u)
             k2 = f(xk + h / 2 * k1, u)
             k3 = f(xk + h / 2 * k2, u)
             k4 = f(xk + h * k3, u)
             xk = xk + h / 6 * (k1 + 2 * k2 + 2 * k3 + k4)
-        return ca.Function("F", [x, u], [xk], ["x", "u"], ["x_next"])
+            states.append(xk)
+        return x, u, states
+
+    def discrete_dynamics(self, sample_time: float, substeps: int) -> ca.Function:
+        """x_{k+1} = F(x_k, u_k): `substeps` classical Runge-Kutta 4 steps over sample_time
+        with the input held (zero-order hold)."""
+        x, u, states = self._runge_kutta_states(sample_time, substeps)
+        return ca.Function("F", [x, u], [states[-1]], ["x", "u"], ["x_next"])
+
+    def substep_states(self, sample_time: float, substeps: int) -> ca.Function:
+        """X = S(x_k, u_k): the (nx, substeps) states after each of the substeps that
+        `discrete_dynamics` takes (its last column is x_{k+1}): the plant's path between
+        two ticks, where the trial measures how close robots came."""
+        x, u, states = self._runge_kutta_states(sample_time, substeps)
+        return ca.Function("S", [x, u], [ca.horzcat(*states)], ["x", "u"], ["states"])
