@@ -351,18 +351,51 @@ def mission_from_mapping(raw: Any, path: Path) -> Mission:
     )
 
 
+class RestingHoldBacks(Mapping[str, float]):
+    """By robot: how far inside its cell rows its MPC keeps a resting robot (m): the larger
+    of the pad v_max * sample_time / 2 (every predicted position) and the terminal set's
+    position extent (the steady state), control/mpc.py. The terminal ingredients are
+    computed (or read from their cache) on first use, not when the mission loads."""
+
+    def __init__(self, roster: Sequence[RobotEntry]) -> None:
+        self._roster = tuple(roster)
+        self._values: dict[str, float] | None = None
+
+    def _computed(self) -> dict[str, float]:
+        if self._values is None:
+            from coverage_fleet.control.terminal import terminal_for_vehicle
+
+            values = {}
+            for entry in self._roster:
+                model, mpc = entry.vehicle.model, entry.vehicle.mpc
+                terminal, _ = terminal_for_vehicle(entry.vehicle)
+                values[entry.name] = max(float(model.max_planar_speed) * mpc.sample_time / 2.0,
+                                         float(terminal.position_extent))
+            self._values = values
+        return self._values
+
+    def __getitem__(self, name: str) -> float:
+        return self._computed()[name]
+
+    def __iter__(self):
+        return iter(entry.name for entry in self._roster)
+
+    def __len__(self) -> int:
+        return len(self._roster)
+
+
 def held_cells(
     region: ConvexRegion, roster: Sequence[RobotEntry], keep_apart: KeepApartSettings
 ) -> HeldCells | None:
     """The buffered cells the settle monitor measures "near" in (fleet/settling.py); None
-    with keep-apart off. Each robot's pad is its MPC's: v_max * sample_time / 2."""
+    with keep-apart off. Each robot's cell is pulled in by what its MPC keeps clear at rest
+    (`RestingHoldBacks`)."""
     if not keep_apart.enabled:
         return None
     return HeldCells(
         region=region,
         radii={e.name: e.footprint_radius for e in roster},
-        pads={e.name: float(e.vehicle.model.max_planar_speed) * e.vehicle.mpc.sample_time / 2.0
-              for e in roster},
+        pads=RestingHoldBacks(roster),
         margin=keep_apart.margin,
     )
 

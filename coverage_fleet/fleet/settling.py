@@ -20,11 +20,15 @@ at the best admissible point short of it (the offset cost's steady state, contro
 and never within `distance` of the centroid. With `SettleSettings.cells` set, "near" is
 measured from the point of the robot's buffered cell nearest the centroid of its current
 cell instead (cells of the positions now, ages 0, the mission's margin, each robot's cell
-pulled in by the MPC's pad v_max * sample_time / 2, which a robot at rest keeps from the
-rows): a robot held at its cell boundary is settled, a robot that could still get closer
-is not. Where the cell does not bind, that point is the centroid itself, so nothing changes
-for robots far apart. How much coverage avoidance costs at such a rest is the report's
-`held_cvt_gap` (report/metrics.py: Lloyd's iteration constrained to the same cells).
+pulled in by what its MPC keeps clear of the rows at rest: the larger of the pad
+v_max * sample_time / 2 and the terminal set's position extent, fleet/mission.py
+RestingHoldBacks): a robot held at its cell boundary is settled, a robot that could still
+get closer is not. A robot whose pulled-in cell is empty has no admissible rest at all (its
+MPC rests where the soft rows' violation is least, control/mpc.py): it counts as near where
+it stands, and only its speed decides. Where the cell does not bind, that point is the
+centroid itself, so nothing changes for robots far apart. How much coverage avoidance costs
+at such a rest is the report's `held_cvt_gap` (report/metrics.py: Lloyd's iteration
+constrained to the same cells).
 
 A robot of the roster that is not taking part (its state or controller not live, so the
 partition left it out) is not near its centroid: the fleet is never "settled" without it,
@@ -81,7 +85,8 @@ MEASUREMENT_NOISE_MARGIN = 4.0
 @dataclass(frozen=True)
 class HeldCells:
     """The buffered cells the robots' MPCs hold them to (keep-apart on): the region, every
-    robot's footprint radius and pad (m, by name) and the margin between footprints (m)."""
+    robot's footprint radius, how far inside its rows its MPC keeps it at rest (`pads`,
+    m, by name) and the margin between footprints (m)."""
 
     region: ConvexRegion
     radii: Mapping[str, float]
@@ -92,10 +97,11 @@ class HeldCells:
         self, positions: Mapping[str, np.ndarray], targets: Mapping[str, np.ndarray]
     ) -> dict[str, np.ndarray]:
         """By robot (those in `positions`): the point of its buffered cell nearest its
-        target (the target itself where its cell is empty)."""
+        target (its own position where its cell is empty: no admissible rest exists)."""
         names = tuple(positions)
         A, b = self.region.halfspaces()
-        points, _ = admissible_points(
+        at = np.array([positions[n] for n in names], float).reshape(-1, 2)
+        points, has_cell = admissible_points(
             names,
             np.array([positions[n] for n in names], float).reshape(-1, 2),
             np.array([targets[n] for n in names], float).reshape(-1, 2),
@@ -106,6 +112,7 @@ class HeldCells:
             b,
             np.array([self.pads[n] for n in names], float),
         )
+        points = np.where(has_cell[:, None], points, at)
         return {n: points[k] for k, n in enumerate(names)}
 
 
