@@ -14,13 +14,21 @@ real-time iteration, the closed-loop cost of the fast loop over the full loop's 
 error to the target and input effort, summed over the loop: issue 13 asks for <= 1.01),
 and whether the fast path's 95th percentile is below 20 % of the sample time.
 
+With --keep-apart: the cost of the buffered-cell rows (issue 12 allows 30 % more median
+solve time). For every vehicle file and two solver paths (the shipped default `full`, and
+`real_time` compiled), the same MPC without rows and with the fleet's row count (6
+neighbours x 2 snapshots = 12 rows) is given the same states of one closed loop (the loop
+with rows drives the plant) past eight invented neighbours standing in the block; the
+rows come from control/keep_apart.CellWindow with a snapshot every sample. Printed: median /
+95th percentile without and with rows, their ratio, and the largest row slack used.
+
 Timing: CPU time of this process around each solver call (time.process_time). The machine
 is shared (2 cores, load often far above 2), and wall-clock time then measures the other
 processes' share as much as ours (casadi's own t_wall / t_proc differed 10x in a loaded
 run); every controller runs interleaved in the same run, so the ratios compare like with
 like. Print `uptime` with the figures.
 
-    .venv/bin/python benchmarks/mpc_benchmark.py [--steps 200] [vehicle files...]
+    .venv/bin/python benchmarks/mpc_benchmark.py [--steps 200] [--keep-apart] [vehicle files...]
 """
 
 from __future__ import annotations
@@ -210,6 +218,78 @@ def run(path: Path, steps: int, solver: dict | None) -> dict[str, float | str | 
     }
 
 
+#: Invented neighbours standing in the block (metres), near the route between the targets.
+NEIGHBOURS = [(10.0, 8.0), (18.0, 14.0), (26.0, 18.0), (24.0, 22.0), (16.0, 20.0),
+              (30.0, 12.0), (28.0, 6.0), (20.0, 9.0)]
+NEIGHBOUR_RADIUS = 0.4
+CELL_ROWS = 12
+
+
+def run_cells(path: Path, steps: int, solver: dict) -> dict[str, object]:
+    """Median / p95 CPU ms without and with keep-apart rows on the same states."""
+    from coverage_fleet.control.keep_apart import CellWindow, KeepApartSettings, horizon_reach
+    from coverage_fleet.geometry.buffered_cells import FleetSnapshot
+
+    spec = _with_solver(load_vehicle_file(path), **solver)
+    terminal = compute_terminal_ingredients(spec.model, spec.mpc, spec.cache_key)
+    region = ConvexRegion.from_vertices(REGION, source="benchmark").halfspaces()
+    model, settings = spec.model, spec.mpc
+    plain = TrackingMpc(model, settings, region, terminal)
+    with_rows = TrackingMpc(model, settings, region, terminal, cell_rows=CELL_ROWS)
+    window = CellWindow(
+        "robot", KeepApartSettings(), window=2 * settings.sample_time, rows=CELL_ROWS,
+        reach=horizon_reach(model.max_planar_speed, settings.sample_time, settings.horizon),
+    )
+    F = model.discrete_dynamics(settings.sample_time, settings.substeps)
+    i, j = model.position_indices
+    x = np.zeros(model.nx)
+    x[[i, j]] = START
+    times: dict[str, list[float]] = {"plain": [], "rows": []}
+    largest_slack = 0.0
+    for k in range(steps):
+        target = np.array(TARGETS[min(k * len(TARGETS) // steps, len(TARGETS) - 1)])
+        t = k * settings.sample_time
+        n = len(NEIGHBOURS) + 1
+        window.add(FleetSnapshot(
+            time=t, names=("robot", *(f"n{m}" for m in range(n - 1))),
+            positions=np.vstack([model.position(x), NEIGHBOURS]), ages=np.zeros(n),
+            radii=np.r_[model.footprint_radius, np.full(n - 1, NEIGHBOUR_RADIUS)],
+            speed_limits=np.zeros(n),
+        ))
+        rows = window.rows_at(t, model.position(x))
+        _, elapsed_plain = _timed(plain.solve, x, target)
+        answer, elapsed_rows = _timed(with_rows.solve, x, target, (rows.normals, rows.offsets))
+        largest_slack = max(largest_slack, answer.cell_violation)
+        if k > 0:
+            times["plain"].append(elapsed_plain)
+            times["rows"].append(elapsed_rows)
+        x = np.array(F(x, answer.first_input)).reshape(-1)
+    stats = {name: np.percentile(v, [50, 95]) * 1e3 for name, v in times.items()}
+    return {"model": model.kind, "stats": stats,
+            "ratio": stats["rows"][0] / stats["plain"][0], "slack": largest_slack}
+
+
+def main_cells(files: list[Path], steps: int) -> int:
+    print(f"keep-apart rows: {CELL_ROWS} rows, {steps} closed-loop samples; CPU ms per solve as")
+    print("median/95th percentile without and with rows on the same states; ratio = medians")
+    print("(issue 12: at most 1.30); slack = largest keep-apart slack used (m)")
+    header = f"{'model':<20}{'path':<11}{'no rows':>15}{'12 rows':>15}{'ratio':>8}{'slack':>10}"
+    print(header)
+    print("-" * len(header))
+    for solver in ({"path": "full"}, {"path": "real_time", "compile": True}):
+        for path in files:
+            r = run_cells(path, steps, solver)
+            st = r["stats"]
+            print(
+                f"{r['model']:<20}{solver['path']:<11}"
+                f"{st['plain'][0]:>8.2f}/{st['plain'][1]:<6.2f}"
+                f"{st['rows'][0]:>8.2f}/{st['rows'][1]:<6.2f}{r['ratio']:>7.2f}x"
+                f"{r['slack']:>10.1e}",
+                flush=True,
+            )
+    return 0
+
+
 def main(argv: list[str] | None = None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("files", nargs="*", type=Path)
@@ -220,8 +300,14 @@ def main(argv: list[str] | None = None) -> int:
         default=None,
         help='override mpc.solver, e.g. \'{"plugin": "ipopt"}\'',
     )
+    parser.add_argument(
+        "--keep-apart", action="store_true",
+        help="time the MPC without and with keep-apart rows instead",
+    )
     args = parser.parse_args(argv)
     files = args.files or sorted((REPO / "config" / "vehicles").glob("*.yaml"))
+    if args.keep_apart:
+        return main_cells(files, args.steps)
     header = (
         f"{'model':<20}{'fast':>15}{'fast, no cc':>15}{'full':>15}{'Opti+IPOPT':>15}"
         f"{'ratio':>7}{'no cc':>7}{'RTI':>6}{'cost':>8}{'dt':>5}{'p95<dt/5':>9}{'fails':>10}"

@@ -56,7 +56,11 @@ def half_scale_orchard(path: Path) -> Mission:
     for robot in raw["roster"]:
         x, y, heading = robot["initial_pose"]
         robot["initial_pose"] = [scale * x, scale * y, heading]
-    raw["settle"]["distance"] = 0.15
+    # A car-like robot may come to rest up to about 0.15 m sideways of its target: there a
+    # sideways shuffle within its 2 s horizon costs more than the offset (measured: from
+    # 0.154 m sideways, forward-back, back-forward and forward guesses all return to
+    # "stay"), so the settle distance leaves room above that.
+    raw["settle"]["distance"] = 0.2
     raw["simulation"]["duration"] = 90.0
     return mission_from_mapping(raw, path)
 

@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import Any
 
 import numpy as np
@@ -34,6 +34,23 @@ class TerminalIngredients:
     position_extent: float = 0.0
     reason: str = ""
     content_hash: str = ""
+
+    def within_extent(self, extent: float) -> TerminalIngredients:
+        """The same ellipsoid at a lower level, so that its positions stay within `extent`
+        metres of the steady position (the extent scales with sqrt(alpha)). A sublevel set
+        of a valid terminal set is valid too: it lies inside the limits, and V_f decreases
+        under K along the whole set, so no trajectory leaves a smaller level (Chen &
+        Allgower, Automatica 34(10), 1998, the argument of section 3 holds for every level
+        up to alpha). Unchanged when already small enough, or for `equality`."""
+        if self.kind != "ellipsoid" or self.position_extent <= extent:
+            return self
+        scale = (extent / self.position_extent) ** 2
+        return replace(
+            self,
+            alpha=self.alpha * scale,
+            position_extent=extent,
+            active_limit=f"{self.active_limit}; level lowered to a {extent:g} m extent",
+        )
 
     @staticmethod
     def equality(reason: str, content_hash: str = "") -> TerminalIngredients:

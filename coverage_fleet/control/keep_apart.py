@@ -35,6 +35,9 @@ DEFAULT_MARGIN = 0.10
 #: Default neighbour rows per snapshot: a planar Voronoi cell has six neighbours on average
 #: (Okabe, Boots, Sugihara & Chiu, Spatial Tessellations, 2nd ed., 2000, section 5.1).
 DEFAULT_NEIGHBOURS = 6
+#: Seconds by which two stamps may differ and still count as the same instant (float sums
+#: of sample times; stamps on the wire are nanoseconds).
+STAMP_TOLERANCE = 1e-6
 #: Upper bound of `neighbours` (each row costs solve time at every stage).
 KEEP_APART_NEIGHBOURS_MAX = 32
 
@@ -79,8 +82,8 @@ def window_length(longest_sample_time: float, snapshot_period: float, latency: f
 
 
 def snapshots_in_window(window: float, snapshot_period: float) -> int:
-    """How many snapshots (t - W, t] can hold (one more for rounding of the stamps)."""
-    return math.ceil(window / snapshot_period - 1e-9) + 1
+    """How many snapshots taken every P the window (t - W, t] can hold."""
+    return math.ceil(window / snapshot_period - STAMP_TOLERANCE)
 
 
 class CellWindow:
@@ -117,7 +120,10 @@ class CellWindow:
     def rows_at(self, now: float, position: np.ndarray) -> CellRows:
         """The rows to honour for a solve at `now` from `position` (metres)."""
         # The newest stays even when out of the window: its age decides (max_age).
-        while len(self._snapshots) > 1 and self._snapshots[0].time <= now - self.window:
+        while (
+            len(self._snapshots) > 1
+            and self._snapshots[0].time <= now - self.window + STAMP_TOLERANCE
+        ):
             self._snapshots.popleft()
         newest = self.newest
         if newest is None:

@@ -74,6 +74,10 @@ STALL_DISTANCE = 0.01
 STALL_OFFSET = 0.02
 #: How far the second-start guess drives towards the target (metres).
 ESCAPE_DISTANCE = 1.0
+#: Largest terminal-set extent (metres) with keep-apart rows: the terminal level is lowered
+#: to it (TerminalIngredients.within_extent), so the steady state may come this close to
+#: its cell's edge; our choice, about the pad of the faster vehicles.
+KEEP_APART_TERMINAL_EXTENT = 0.2
 #: Price of the keep-apart slack (cost units per square metre): large against the offset
 #: and tracking costs, so a feasible cell is kept to micrometres.
 CELL_PENALTY = 1e7
@@ -155,6 +159,10 @@ class TrackingMpc:
                 if settings.terminal == "ellipsoid"
                 else TerminalIngredients.equality("equality asked for in the settings")
             )
+        if self.cell_rows:
+            # The steady state keeps the terminal set inside the cell: a wide set would hold
+            # the robot that far back from every neighbour.
+            terminal = terminal.within_extent(KEEP_APART_TERMINAL_EXTENT)
         self.model = model
         self.settings = settings
         self.terminal = terminal

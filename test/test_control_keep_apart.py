@@ -1,0 +1,142 @@
+"""The tracking MPC with buffered-cell rows (control/mpc.py, control/keep_apart.py).
+
+Sources: the artificial steady state settles at the admissible steady state closest to an
+unreachable target (Limon, Alvarado, Alamo & Camacho, Automatica 44(9), 2008, the offset
+cost's tracking property); the nearest admissible point is computed independently with
+shapely (nearest_points on the admissible polygon). Buffered cells: Zhou, Wang,
+Bandyopadhyay & Schwager, IEEE RA-L 2(2), 2017. A sublevel set of a valid terminal set is
+valid: Chen & Allgower, Automatica 34(10), 1998, section 3.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+import pytest
+import shapely
+from shapely.ops import nearest_points
+
+from coverage_fleet.control.controller import RobotController
+from coverage_fleet.control.keep_apart import CellRows, CellWindow, KeepApartSettings
+from coverage_fleet.control.mpc import KEEP_APART_TERMINAL_EXTENT, TrackingMpc
+from coverage_fleet.control.stage_cost import stage_weights
+from coverage_fleet.control.terminal import terminal_for_vehicle
+from coverage_fleet.geometry.region import ConvexRegion
+from coverage_fleet.vehicles.loader import load_vehicle_file
+
+VEHICLES = Path(__file__).resolve().parents[1] / "config" / "vehicles"
+REGION = ConvexRegion.from_vertices(np.array([[-10, -10], [10, -10], [10, 10], [-10, 10]], float))
+ROWS = 4
+
+
+def padded(rows: list[tuple[tuple[float, float], float]]) -> tuple[np.ndarray, np.ndarray]:
+    normals, offsets = np.zeros((ROWS, 2)), np.ones(ROWS)
+    for k, (normal, offset) in enumerate(rows):
+        n = np.asarray(normal, float)
+        normals[k], offsets[k] = n / np.linalg.norm(n), offset / np.linalg.norm(n)
+    return normals, offsets
+
+
+def spec_for(kind: str):
+    return load_vehicle_file(VEHICLES / f"{kind}.yaml")
+
+
+def closed_loop(mpc: TrackingMpc, x: np.ndarray, target, cell, samples: int):
+    model, settings = mpc.model, mpc.settings
+    fine = model.discrete_dynamics(settings.sample_time / 8, settings.substeps)
+    positions, plans, solution = [], [], None
+    for _ in range(samples):
+        solution = mpc.solve(x, target, cell)
+        plans.append(solution.predicted_states[:, list(model.position_indices)])
+        for _ in range(8):  # the plant between samples, finely
+            x = np.array(fine(x, solution.first_input)).ravel()
+            positions.append(model.position(x))
+    return x, np.array(positions), plans, solution
+
+
+@pytest.mark.parametrize("kind", ["differential_drive", "car_like", "multirotor", "surface_vessel"])
+def test_robot_stops_at_the_nearest_admissible_point_of_its_cell(kind) -> None:
+    """Target beyond two cell rows (a corner): the closed loop keeps every fine plant
+    position inside the cell (the pad covers the motion between samples), and the robot
+    comes to rest at the point of the admissible set nearest the target (shapely): the cell
+    pulled back by the larger of the terminal extent (the steady state keeps it) and the pad
+    (every predicted position keeps it, the resting one too)."""
+    spec = spec_for(kind)
+    terminal, _ = terminal_for_vehicle(spec)
+    mpc = TrackingMpc(spec.model, spec.mpc, REGION.halfspaces(), terminal, cell_rows=ROWS)
+    assert mpc.terminal.position_extent <= KEEP_APART_TERMINAL_EXTENT + 1e-12
+    cell = padded([((1.0, 0.0), 2.0), ((1.0, 1.0), 3.0)])  # x <= 2, x + y <= 3
+    x = np.zeros(spec.model.nx)
+    target = np.array([5.0, 4.0])
+    x, positions, plans, solution = closed_loop(mpc, x, target, cell, samples=120)
+    normals, offsets = cell
+    tolerance = 1e-3  # the soft rows' slack stays at micrometres; solver tolerances
+    assert np.max(positions @ normals[:2].T - offsets[:2]) <= tolerance
+    for plan in plans:
+        assert np.max(plan[1:] @ normals[:2].T - offsets[:2] + mpc.cell_pad) <= tolerance
+    extent = max(mpc.terminal.position_extent, mpc.cell_pad)
+    admissible = shapely.box(-9, -9, 2 - extent, 9).intersection(
+        shapely.Polygon([(-9, 3 - extent * np.sqrt(2) + 9), (-9, -9),
+                         (3 - extent * np.sqrt(2) + 9, -9)])
+    )
+    expected = np.array(nearest_points(admissible, shapely.Point(target))[0].coords[0])
+    final = spec.model.position(x)
+    assert np.linalg.norm(final - expected) < 0.02, (final, expected)
+    steady = solution.steady_state.position
+    assert np.max(normals[:2] @ steady - offsets[:2]) <= -mpc.terminal.position_extent + 1e-3
+    assert solution.cell_violation < 1e-3
+
+
+def test_robot_outside_its_cell_is_pushed_back_not_stopped_by_infeasibility() -> None:
+    """Start 0.3 m beyond a row (a neighbour came too close): hard rows would be
+    infeasible; the soft rows solve, report the violation, and the robot moves back in."""
+    spec = spec_for("multirotor")
+    terminal, _ = terminal_for_vehicle(spec)
+    mpc = TrackingMpc(spec.model, spec.mpc, REGION.halfspaces(), terminal, cell_rows=ROWS)
+    cell = padded([((1.0, 0.0), -0.3)])  # x <= -0.3, the robot is at 0 moving on at 1 m/s
+    x = np.array([0.0, 0.0, 1.0, 0.0])
+    first = mpc.solve(x, np.array([3.0, 0.0]), cell)
+    assert first.success and first.cell_violation > 0.05
+    x, positions, _, last = closed_loop(mpc, x, np.array([3.0, 0.0]), cell, samples=60)
+    assert positions[-1][0] <= -0.3 + 1e-3
+    assert last.cell_violation < 1e-3
+
+
+def test_controller_brakes_when_its_snapshots_are_too_old() -> None:
+    spec = spec_for("multirotor")
+    terminal, _ = terminal_for_vehicle(spec)
+    controller = RobotController(
+        spec.model, spec.mpc, REGION.halfspaces(), terminal, cell_rows=ROWS
+    )
+    window = CellWindow("me", KeepApartSettings(max_age=0.5), window=1.0, rows=ROWS, reach=5.0)
+    x = np.array([0.0, 0.0, 1.0, 0.0])
+    step = controller.step(x, np.array([3.0, 0.0]), window.rows_at(0.0, x[:2]))
+    assert step.fallback == "braking" and "no snapshot" in step.status
+    assert np.dot(step.input, x[2:]) < 0  # opposes the motion
+    step = controller.step(x, np.array([3.0, 0.0]), None)
+    assert step.fallback == "braking" and "keep-apart" in step.status
+    assert not controller.step(x, np.array([3.0, 0.0]), CellRows(*padded([]))).used_fallback
+
+
+def test_lowered_terminal_level_keeps_the_decrease_condition() -> None:
+    """within_extent lowers alpha by (extent ratio)^2; the decrease condition of the
+    terminal cost, checked by sampling the smaller set, still holds (Chen & Allgower)."""
+    spec = spec_for("multirotor")
+    terminal, _ = terminal_for_vehicle(spec)
+    small = terminal.within_extent(0.1)
+    assert small.alpha == pytest.approx(terminal.alpha * (0.1 / terminal.position_extent) ** 2)
+    model, settings = spec.model, spec.mpc
+    F = model.discrete_dynamics(settings.sample_time, settings.substeps)
+    q_weights, r_weights = stage_weights(model, settings)
+    rng = np.random.default_rng(0)
+    L = np.linalg.cholesky(np.linalg.inv(small.P))
+    for _ in range(300):
+        direction = rng.normal(size=model.nx)
+        e = L @ (direction / np.linalg.norm(direction)) * np.sqrt(small.alpha) * rng.uniform()
+        u = small.K @ e
+        e_next = np.array(F(e, u)).ravel()
+        stage = e @ q_weights @ e + u @ r_weights @ u
+        decrease = e_next @ small.P @ e_next - e @ small.P @ e + stage
+        assert decrease <= 1e-9 * max(1.0, e @ small.P @ e)
+        assert np.sqrt(e[:2] @ e[:2]) <= 0.1 + 1e-9
