@@ -14,7 +14,7 @@ IEEE TAC 63(11), 2018), direct multiple shooting:
           steady state: limits scaled by 1 - steady_state_margin towards rest (limits.py),
                         A position(x_s) <= b - (r + e_f) |A_i|  (e_f: terminal-set extent)
           keep-apart (cell_rows > 0): n_m . position(x_k) - sigma <= c_m - pad  (k >= 1),
-                        n_m . position(x_s) - sigma <= c_m - e_f,  sigma >= 0,
+                        n_m . position(x_s) - sigma <= c_m - e_f,
                         cost + CELL_PENALTY * sigma^2
                         (rows n_m . p <= c_m: the robot's buffered cell, parameters of the
                         problem, control/keep_apart.py; pad = v_max * sample_time / 2, how
@@ -29,7 +29,7 @@ admissible steady state closest to it (the tracking property of the references a
 the projection of the target onto the doubly shrunk region (and the buffered cell).
 
 The cell rows are soft: a robot already outside its cell (measurement noise, latency, a
-neighbour that came close) would make hard rows infeasible, so one slack sigma >= 0,
+neighbour that came close) would make hard rows infeasible, so one slack sigma,
 carried through the horizon like theta, relaxes every cell row at a quadratic price
 CELL_PENALTY; the solution reports it (`cell_violation`), and a feasible cell leaves it at
 tens of micrometres (the multiplier over twice the penalty).
@@ -266,7 +266,9 @@ class TrackingMpc:
             x_s = ca.mtimes(Mx, theta) + x0s
             stage_starts.append(sum(e.shape[0] for e in g))
             w.append(Z[k])
-            slack_lower, slack_upper = np.zeros(n_slack), np.full(n_slack, np.inf)
+            # No bound sigma >= 0: a negative sigma only tightens the rows and costs, so the
+            # optimum never takes one, and a bound would add a barrier term (iterations).
+            slack_lower, slack_upper = np.full(n_slack, -np.inf), np.full(n_slack, np.inf)
             if k == 0:
                 lbw.append(np.concatenate([np.full(nx, -np.inf), -free_theta, slack_lower]))
                 ubw.append(np.concatenate([np.full(nx, np.inf), free_theta, slack_upper]))
