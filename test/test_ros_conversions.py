@@ -278,3 +278,82 @@ def test_candidates_without_layout_or_naming_robot_99_are_refused_as_bad_message
         cv.candidates_from_msg(far, roster_size=4)
     assert caught.value.reason == BAD_INDEX
     assert sorted(cv.candidates_from_msg(far).positions) == [99]  # no roster: any index
+
+
+def _snapshot(**changes):
+    from coverage_fleet.geometry.buffered_cells import FleetSnapshot
+
+    values = dict(
+        time=12.5, names=("rover_c", "rover_a"),
+        positions=np.array([[3.0, 4.0], [1.0, -2.0]]), ages=np.array([0.25, 0.0]),
+        radii=np.array([0.35, 0.3]), speed_limits=np.array([0.5, 1.2]),
+    )
+    return FleetSnapshot(**{**values, **changes})
+
+
+ROSTER = ("rover_a", "rover_b", "rover_c")
+
+
+def test_snapshot_table_round_trip_in_roster_order_and_readable_from_its_labels() -> None:
+    """The keep-apart snapshot (issue 12) on the wire: the same values back, robots by roster
+    index, and a reader that knows only the labels gets every field (common practice: a
+    Float64MultiArray's layout labels describe its dimensions, std_msgs/MultiArrayLayout)."""
+    msg = cv.snapshot_to_msg(_snapshot(), ROSTER)
+    row0, body, _ = _read_by_labels(msg)
+    assert row0 == {"time": 12.5, "robots": 2.0}
+    assert body == [
+        {"roster_index": 0.0, "px": 1.0, "py": -2.0, "age": 0.0, "radius": 0.3,
+         "speed_limit": 1.2},
+        {"roster_index": 2.0, "px": 3.0, "py": 4.0, "age": 0.25, "radius": 0.35,
+         "speed_limit": 0.5},
+    ]
+    back = cv.snapshot_from_msg(msg, ROSTER)
+    assert back.time == 12.5 and back.names == ("rover_a", "rover_c")
+    assert np.array_equal(back.positions, [[1.0, -2.0], [3.0, 4.0]])
+    assert np.array_equal(back.ages, [0.0, 0.25])
+    assert np.array_equal(back.radii, [0.3, 0.35])
+    assert np.array_equal(back.speed_limits, [1.2, 0.5])
+
+
+@pytest.mark.parametrize(
+    ("spoil", "reason"),
+    [
+        ("negative_age", "bad_table"),
+        ("negative_radius", "bad_table"),
+        ("nan_position", "not_finite"),
+        ("robot_99", "bad_index"),
+        ("robot_twice", "bad_index"),
+        ("count", "bad_table"),
+        ("short", "bad_table"),
+        ("columns", "bad_table"),
+    ],
+)
+def test_a_spoilt_snapshot_is_a_bad_message_with_its_reason(spoil: str, reason: str) -> None:
+    """Every way a snapshot can be wrong ends as a BadMessageError (the controller drops and
+    counts it, ros/inbox.py), never as a crash or as cells from nonsense."""
+    from coverage_fleet.fleet.message_checks import BadMessageError
+
+    msg = cv.snapshot_to_msg(_snapshot(), ROSTER)
+    data = list(msg.data)
+    width = len(cv.SNAPSHOT_COLUMNS)
+    column = {name: k for k, name in enumerate(cv.SNAPSHOT_COLUMNS)}
+    if spoil == "negative_age":
+        data[width + column["age"]] = -0.5
+    elif spoil == "negative_radius":
+        data[2 * width + column["radius"]] = -0.1
+    elif spoil == "nan_position":
+        data[width + column["px"]] = float("nan")
+    elif spoil == "robot_99":
+        data[width] = 99.0
+    elif spoil == "robot_twice":
+        data[2 * width] = data[width]
+    elif spoil == "count":
+        data[1] = 3.0
+    elif spoil == "short":
+        data = data[:-1]
+    elif spoil == "columns":
+        msg.layout.dim[1].label = "roster_index,px,py,cx,cy,mass"
+    msg.data = data
+    with pytest.raises(BadMessageError) as caught:
+        cv.snapshot_from_msg(msg, ROSTER)
+    assert caught.value.reason == reason

@@ -22,6 +22,12 @@ Layouts that standard types do not name by field:
   the targets came from, reason, robots, 0] with reason 0 = start, 1 = progress, 2 = roster
   change, 3 = density update; then per robot [roster index, px, py, target x, target y,
   distance at commit].
+- fleet snapshot (`coverage/snapshot`, std_msgs/Float64MultiArray): what the keep-apart
+  cells are built from (geometry/buffered_cells.py); rows of SNAPSHOT_COLUMNS; row 0 is
+  [time of the snapshot (s, the clock of the graph), robots, 0, 0, 0, 0], then one row per
+  robot the partition node has heard from: [index in the mission roster, px, py, age of
+  the position at the snapshot's time (s), footprint radius (m), largest planar speed
+  (m/s)]. Positions in the map frame.
 
 Both tables carry their layout in the message itself, so that `ros2 topic echo` or a
 recording is readable without this file: the first dimension's label names the fields of
@@ -66,6 +72,7 @@ from coverage_fleet.fleet.message_checks import (
     roster_indices,
     table_rows,
 )
+from coverage_fleet.geometry.buffered_cells import FleetSnapshot
 from coverage_fleet.vehicles.base import CommandKind, CommandValues, OdometryValues
 
 from .topics import MAP_FRAME
@@ -74,6 +81,9 @@ CANDIDATE_COLUMNS = ("roster_index", "px", "py", "cx", "cy", "mass")
 #: Fields of row 0 of a candidates table (the rest of row 0 is zero).
 CANDIDATE_HEADER = ("time", "cost", "robots", "density_version")
 OPENING_COLUMNS = ("roster_index", "px", "py", "tx", "ty", "distance")
+SNAPSHOT_COLUMNS = ("roster_index", "px", "py", "age", "radius", "speed_limit")
+#: Fields of row 0 of a snapshot table (the rest of row 0 is zero).
+SNAPSHOT_HEADER = ("time", "robots")
 OPENING_REASONS = ("start", "progress", "roster", "density")
 #: Fields of row 0 of an openings table; reason is an index into OPENING_REASONS.
 OPENING_HEADER = ("generation", "time", "cost", "reason", "robots")
@@ -292,6 +302,7 @@ def table_rows_label(header: Sequence[str], codes: str = "") -> str:
 
 
 CANDIDATE_ROWS_LABEL = table_rows_label(CANDIDATE_HEADER)
+SNAPSHOT_ROWS_LABEL = table_rows_label(SNAPSHOT_HEADER)
 OPENING_ROWS_LABEL = table_rows_label(
     OPENING_HEADER,
     "reason " + " ".join(f"{k}={name}" for k, name in enumerate(OPENING_REASONS)),
@@ -349,6 +360,51 @@ def candidates_from_msg(
         centroids={i: body[k, 3:5].copy() for k, i in enumerate(indices)},
         masses={i: float(body[k, 5]) for k, i in enumerate(indices)},
         density_version=int(rows[0, 3]),
+    )
+
+
+# --- fleet snapshot (keep-apart) -----------------------------------------------------------
+
+
+def snapshot_to_msg(snapshot: FleetSnapshot, roster: Sequence[str]) -> Float64MultiArray:
+    """The snapshot as a table (layout in the module docstring); robots by their index in
+    `roster` (the mission's robot names), in roster order."""
+    order = sorted(range(len(snapshot.names)), key=lambda k: roster.index(snapshot.names[k]))
+    rows = np.zeros((len(order) + 1, len(SNAPSHOT_COLUMNS)))
+    rows[0, :2] = (snapshot.time, len(order))
+    for row, k in enumerate(order, start=1):
+        rows[row] = (
+            roster.index(snapshot.names[k]),
+            *snapshot.positions[k],
+            snapshot.ages[k],
+            snapshot.radii[k],
+            snapshot.speed_limits[k],
+        )
+    return _table(rows, SNAPSHOT_COLUMNS, SNAPSHOT_ROWS_LABEL)
+
+
+def snapshot_from_msg(msg: Float64MultiArray, roster: Sequence[str]) -> FleetSnapshot:
+    """The snapshot; BadMessageError (message_checks) for a table that is not the
+    documented layout, holds a value that is not finite, names a robot outside `roster`
+    (the mission's robot names) or twice, or gives a negative age, radius or speed."""
+    rows = _rows(msg, SNAPSHOT_COLUMNS)
+    if rows[0, 1] != rows.shape[0] - 1:
+        raise BadMessageError(BAD_TABLE, "snapshot table: the robot count in row 0 does not match")
+    body = rows[1:]
+    indices = roster_indices(body[:, 0], len(roster))
+    negative = [
+        f"{SNAPSHOT_COLUMNS[column]} of {roster[indices[k]]} = {body[k, column]:g}"
+        for column in (3, 4, 5) for k in range(len(indices)) if body[k, column] < 0
+    ]
+    if negative:
+        raise BadMessageError(BAD_TABLE, f"snapshot table: negative {', '.join(negative)}")
+    return FleetSnapshot(
+        time=float(rows[0, 0]),
+        names=tuple(roster[i] for i in indices),
+        positions=body[:, 1:3].copy(),
+        ages=body[:, 3].copy(),
+        radii=body[:, 4].copy(),
+        speed_limits=body[:, 5].copy(),
     )
 
 

@@ -18,6 +18,31 @@ version, carried in the candidates, and the gate commits a fresh generation for 
 (reason "density"). A grid that breaks the rule is refused with a warning and the
 density in force stays.
 
+Keep-apart snapshots (mission `keep_apart`, control/keep_apart.py): every
+`snapshot_period` (ROS clock; default the roster's longest sample time) the node publishes
+`coverage/snapshot` (layout in conversions.py): every robot it has heard from, with its
+newest position, the age of that position (the snapshot's stamp minus the odometry stamp),
+its footprint radius and its largest planar speed (from the roster's vehicle files, which
+the mission names and this node loads). The controllers build their buffered cells from it.
+
+Why this broadcast and not each controller listening to its neighbours' odometry: cells are
+disjoint only when both robots of a pair build them from the *same* positions. With one
+snapshot for everyone, each pair shares the snapshot's positions, and the window rule
+(control/keep_apart.py: every robot honours every snapshot of the last W seconds) makes any
+two robots honour at least one common snapshot at every moment. Odometry heard separately
+by each controller arrives at different times with different losses, so two neighbours
+would build their shared boundary from different positions and their cells could overlap.
+It is also one subscription per controller instead of one per neighbour.
+
+Robots left out are still there: a robot that the partition leaves out (stale odometry,
+silent controller, stopped, outside the geofence) stays in every snapshot at its last known
+position, its age growing, so that its allowance (age times its largest speed) grows and
+the neighbours keep clear of everywhere it could have got to. A robot is gone only when it
+is no longer in the roster (the mission relaunched without it): within a run the node never
+forgets a robot it has heard from. A roster robot never heard from is in no snapshot (there
+is no position to keep clear of); snapshots start with the first partition, which waits
+`startup_grace` for the whole roster.
+
 The liveness rules and the partition are core objects (fleet/liveness.py,
 fleet/coordination.py); this node converts messages and calls them.
 """
@@ -32,11 +57,13 @@ from rclpy.node import Node
 from std_msgs.msg import Float64, Float64MultiArray
 from visualization_msgs.msg import MarkerArray
 
+from coverage_fleet.control.keep_apart import cell_layout
 from coverage_fleet.fleet.coordination import candidates_at
 from coverage_fleet.fleet.density_updates import UNKNOWN_DENSITY, DensitySource, occupancy_density
 from coverage_fleet.fleet.liveness import FleetLiveness
 from coverage_fleet.fleet.message_checks import check_finite, check_frame
 from coverage_fleet.fleet.mission import load_mission
+from coverage_fleet.geometry.buffered_cells import FleetSnapshot
 
 from . import qos, topics
 from .conversions import (
@@ -45,6 +72,7 @@ from .conversions import (
     occupancy_from_msg,
     partition_markers,
     seconds_to_stamp,
+    snapshot_to_msg,
     target_from_msg,
 )
 from .frames import declare_map_frame
@@ -104,6 +132,8 @@ class PartitionNode(Node):
         )
         self.run_start: float | None = None
         self.positions: dict[str, np.ndarray] = {}
+        #: Odometry stamp (s) of each robot's newest position (the snapshots' ages).
+        self.position_stamps: dict[str, float] = {}
         self.targets: dict[str, np.ndarray] = {}
         for name in self.names:
             self.create_subscription(
@@ -139,10 +169,23 @@ class PartitionNode(Node):
         self.diag_pub = self.create_publisher(DiagnosticArray, topics.DIAGNOSTICS, qos.DISPLAY)
         self.partitions = 0
         self.create_timer(1.0 / rate, self._on_timer)
+        self.snapshots = 0
+        keep_apart = self.mission.keep_apart
+        if keep_apart.enabled and self.mission.roster:
+            longest = max(e.vehicle.mpc.sample_time for e in self.mission.roster)
+            self.snapshot_period = cell_layout(keep_apart, longest).snapshot_period
+            self.snapshot_pub = self.create_publisher(
+                Float64MultiArray, topics.SNAPSHOT, qos.REPORTS
+            )
+            self.create_timer(self.snapshot_period, self._publish_snapshot)
+        else:
+            self.snapshot_period = None
         self.create_timer(diagnostics_period, self._publish_diagnostics)
         self.get_logger().info(
             f"partitioning {self.mission.name!r} for {len(self.names)} robots at {rate:g} Hz"
             + (f"; densities from {self.density_topic}" if take_density else "")
+            + (f"; keep-apart snapshots every {self.snapshot_period:g} s"
+               if self.snapshot_period else "; keep-apart off")
         )
 
     def _now(self) -> float:
@@ -154,6 +197,7 @@ class PartitionNode(Node):
             return
         odom, stamp = good
         self.positions[name] = np.array([odom.x, odom.y])
+        self.position_stamps[name] = stamp
         self.liveness.saw_state(name, stamp)
 
     def _on_progress(self, name: str) -> None:
@@ -211,11 +255,33 @@ class PartitionNode(Node):
             "live_count": len(live),
             "left_out": ",".join(missing),
             "partitions": self.partitions,
+            "snapshots": self.snapshots,
             **self.inbox.diagnostic_values(self.names),
         }
         self.inbox.publish(
             self.diag_pub, "coverage_fleet/partition", level, message, values
         )
+
+    def _publish_snapshot(self) -> None:
+        """Every robot heard from, left out or not (module docstring), once the first
+        partition has started."""
+        if not self.liveness.started or not self.positions:
+            return
+        entries = [e for e in self.mission.roster if e.name in self.positions]
+        stamps = np.array([self.position_stamps[e.name] for e in entries])
+        # On simulated time odometry may be stamped ahead of this node's clock (it reads
+        # /clock later): the snapshot is never older than its newest position.
+        time = max(self._now(), float(stamps.max()))
+        snapshot = FleetSnapshot(
+            time=time,
+            names=tuple(e.name for e in entries),
+            positions=np.array([self.positions[e.name] for e in entries]),
+            ages=time - stamps,
+            radii=np.array([e.vehicle.model.footprint_radius for e in entries]),
+            speed_limits=np.array([e.vehicle.model.max_planar_speed for e in entries]),
+        )
+        self.snapshot_pub.publish(snapshot_to_msg(snapshot, self.names))
+        self.snapshots += 1
 
     def _on_timer(self) -> None:
         now = self._now()

@@ -89,6 +89,8 @@ def graph_topics(mission: Mission) -> list[tuple[str, str, QoSProfile]]:
         (topics.DIAGNOSTICS, "diagnostic_msgs/msg/DiagnosticArray", qos.DISPLAY),
         (topics.CLOCK, "rosgraph_msgs/msg/Clock", qos.CLOCK),
     ]
+    if mission.keep_apart.enabled:  # what each controller's buffered cells were built from
+        found.append((topics.SNAPSHOT, "std_msgs/msg/Float64MultiArray", qos.REPORTS))
     for entry in mission.roster:
         kind = entry.vehicle.command_kind
         command = command_message_type(kind, entry.vehicle.command_stamped)

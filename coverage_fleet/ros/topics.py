@@ -30,6 +30,10 @@ SOLVE = "coverage/solve"
 CELLS = "coverage/cells"
 COST = "coverage/cost"
 CANDIDATES = "coverage/candidates"
+#: Every known robot's stamped position, age, footprint and speed limit (std_msgs/
+#: Float64MultiArray, layout in conversions.py), every keep-apart snapshot period: what the
+#: controllers build their buffered cells from (partition_node.py says why this topic).
+SNAPSHOT = "coverage/snapshot"
 #: Density raster at run time (nav_msgs/OccupancyGrid, latched; the partition node reads it
 #: when its `density_updates` parameter is true; rule in fleet/density_updates.py).
 DENSITY = "coverage/density"
