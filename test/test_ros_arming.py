@@ -25,6 +25,7 @@ rclpy = pytest.importorskip("rclpy", reason="ROS 2 wheels not installed (scripts
 from diagnostic_msgs.msg import DiagnosticArray  # noqa: E402
 from geometry_msgs.msg import PointStamped, Twist, Vector3Stamped  # noqa: E402
 from nav_msgs.msg import Odometry  # noqa: E402
+from support_snapshots import SnapshotSender  # noqa: E402
 
 from coverage_fleet.cli.launcher import SAFETY_CAUTION  # noqa: E402
 from coverage_fleet.cli.main import main  # noqa: E402
@@ -91,12 +92,14 @@ def test_a_disarmed_real_robot_controller_sends_nothing_until_armed(tmp_path: Pa
     target_pub = node.create_publisher(
         PointStamped, topics.robot_topic(ROBOT, topics.TARGET), qos.LATCHED)
     state = OdometryValues(x=1.0, y=1.0, yaw=0.0)
+    snapshots = SnapshotSender(node, mission, ROBOT)  # keep-apart: the fleet is this robot
 
     def drive_until(condition, what: str) -> None:
         deadline = time.monotonic() + PATIENCE
         while not condition():
             assert controller.poll() is None, controller.communicate()[0][-3000:]
             assert time.monotonic() < deadline, f"never saw {what}"
+            snapshots.send((state.x, state.y))
             odom_pub.publish(odometry_to_msg(
                 state, node.get_clock().now().to_msg(), child_frame_id=f"{ROBOT}/base_link"))
             rclpy.spin_once(node, timeout_sec=0.05)

@@ -33,6 +33,7 @@ from diagnostic_msgs.msg import DiagnosticArray, DiagnosticStatus  # noqa: E402
 from geometry_msgs.msg import PointStamped, Twist  # noqa: E402
 from nav_msgs.msg import Odometry  # noqa: E402
 from rclpy.duration import Duration  # noqa: E402
+from support_snapshots import SnapshotSender  # noqa: E402
 
 from coverage_fleet.fleet.mission import load_mission  # noqa: E402
 from coverage_fleet.ros import qos, topics  # noqa: E402
@@ -97,6 +98,8 @@ class Robot:
         self.target = self.node.create_publisher(
             PointStamped, topics.robot_topic(ROBOT, topics.TARGET), qos.LATCHED
         )
+        # Keep-apart: the fleet is this robot alone (a snapshot with each state sent).
+        self.snapshots = SnapshotSender(self.node, MISSION, ROBOT)
 
     def _on_command(self, msg: Twist) -> None:
         values = command_from_msg(msg, "twist")
@@ -125,6 +128,7 @@ class Robot:
         while not condition():
             assert self.controller.poll() is None, "the controller died"
             assert time.monotonic() < deadline, f"never saw {what}"
+            self.snapshots.send()
             self.send(values, **kwargs)
             for _ in range(2):
                 rclpy.spin_once(self.node, timeout_sec=0.05)

@@ -22,6 +22,7 @@ rclpy = pytest.importorskip("rclpy", reason="ROS 2 wheels not installed (scripts
 
 from geometry_msgs.msg import PointStamped, Twist  # noqa: E402
 from nav_msgs.msg import Odometry  # noqa: E402
+from support_snapshots import SnapshotSender  # noqa: E402
 
 from coverage_fleet.fleet.mission import load_mission  # noqa: E402
 from coverage_fleet.ros import qos, topics  # noqa: E402
@@ -64,20 +65,27 @@ def test_the_last_command_of_a_stopped_controller_is_braking(stop_signal) -> Non
     target_pub = node.create_publisher(
         PointStamped, topics.robot_topic(ROBOT, topics.TARGET), qos.LATCHED
     )
+    snapshots = SnapshotSender(node, MISSION, ROBOT)  # keep-apart: the fleet is this robot
     state = OdometryValues(x=1.0, y=1.0, yaw=0.0, body_vx=0.5)
     try:
         target_pub.publish(target_to_msg([10.0, 1.0], seconds_to_stamp(1.0)))
-        deadline = time.monotonic() + PATIENCE
-        # Drive until the controller has answered a good number of states.
-        while len(commands) < 20:
-            assert controller.poll() is None, controller.communicate()[0][-3000:]
-            assert time.monotonic() < deadline, "the controller never answered"
-            odom_pub.publish(odometry_to_msg(
-                state, node.get_clock().now().to_msg(), child_frame_id=f"{ROBOT}/base_link"))
-            rclpy.spin_once(node, timeout_sec=0.1)
         x = model.state_from_odometry(state)
         braking = model.command_from_input(model.braking_input(x), x)
         expected = np.array([*braking.linear, *braking.angular])
+
+        def moving() -> bool:
+            return any(np.abs(c - expected).max() > 1e-6 for c in commands)
+
+        deadline = time.monotonic() + PATIENCE
+        # Drive until the controller has answered a good number of states, and commanded
+        # motion (it brakes until its first keep-apart snapshot has arrived).
+        while len(commands) < 20 or not moving():
+            assert controller.poll() is None, controller.communicate()[0][-3000:]
+            assert time.monotonic() < deadline, "the controller never commanded motion"
+            snapshots.send((state.x, state.y))
+            odom_pub.publish(odometry_to_msg(
+                state, node.get_clock().now().to_msg(), child_frame_id=f"{ROBOT}/base_link"))
+            rclpy.spin_once(node, timeout_sec=0.1)
         assert any(np.abs(c - expected).max() > 1e-6 for c in commands), (
             "the controller never commanded motion, so braking cannot be told apart")
         controller.send_signal(stop_signal)

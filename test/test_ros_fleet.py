@@ -313,9 +313,13 @@ def test_a_killed_controller_does_not_take_down_the_fleet(faulty) -> None:
     assert "launch: WARN from reference_gate: drone_b leaves the gate" in output, output[-3000:]
     simulator_log = (trial / "logs" / "simulator.log").read_text()
     assert "drone_b: no answer" in simulator_log
-    # The other three came to rest, but a fleet without drone_b is never "settled": the
-    # run ends stuck, naming the missing robot.
-    assert "(fleet stuck), but not with the whole fleet: drone_b" in simulator_log
+    # A fleet without drone_b is never "settled": the run ends stuck (or, when a robot's
+    # keep-apart cell holds it short of its target beside the braked drone_b and the gate
+    # keeps re-committing around it, at the end of its duration), naming the missing robot.
+    assert re.search(
+        r"\((fleet stuck|duration reached)\), but not with the whole fleet: drone_b",
+        simulator_log,
+    ), simulator_log[-2000:]
     assert "(fleet settled" not in simulator_log
     openings = rows(trial / "gate_openings.csv")
     robots_of = {}

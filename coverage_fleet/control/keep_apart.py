@@ -158,6 +158,16 @@ class CellWindow:
         return CellRows(out_normals, out_offsets, used=len(kept), dropped=dropped)
 
 
+def shifted_rows(rows: CellRows, shift: np.ndarray) -> CellRows:
+    """The rows for a problem whose positions are moved by `shift` (metres; the geofence's
+    return plan, control/geofence.py): n . (p - shift) <= o is n . p <= o + n . shift;
+    padding rows (n = 0) stay as they are, and braking rows stay braking rows."""
+    if rows.brake:
+        return rows
+    offsets = rows.offsets + rows.normals @ np.asarray(shift, float).reshape(2)
+    return CellRows(rows.normals, offsets, rows.used, rows.dropped, rows.reason)
+
+
 @dataclass(frozen=True)
 class CellLayout:
     """The fleet-wide numbers every robot's cells follow: snapshot period P (s), window

@@ -19,7 +19,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from coverage_fleet.control.controller import ControlStep, RobotController
-from coverage_fleet.control.keep_apart import CellWindow
+from coverage_fleet.control.keep_apart import CellRows, CellWindow
 from coverage_fleet.control.progress import ProgressTracker, RobotProgress
 from coverage_fleet.vehicles.base import VehicleModel
 
@@ -60,6 +60,9 @@ class SampledController:
         #: The keep-apart snapshots this robot honours (None: keep-apart off); the owner
         #: adds each new FleetSnapshot with `cells.add`.
         self.cells: CellWindow | None = None
+        #: The rows of the newest solve (rows used and dropped, why it braked), for
+        #: diagnostics; None without keep-apart or before the first solve.
+        self.last_cells: CellRows | None = None
 
     def set_target(
         self, key: Hashable, target: np.ndarray, distance_at_commit: float | None = None
@@ -88,7 +91,7 @@ class SampledController:
                 None if self.cells is None else self.cells.rows_at(float(state_time), position)
             )
             step = self.controller.step(x, target, cell)
-            self.last_step = step
+            self.last_step, self.last_cells = step, cell
             self.last_solve_time = float(state_time)
             held = self.held_input = np.asarray(step.input, float)
             self.solves += 1

@@ -46,6 +46,20 @@ are filtered finite differences of successive poses (fleet/pose_state.py, time c
 `pose_velocity_time_constant`). The state so formed goes out as nav_msgs/Odometry on
 `coverage/state`, where the base station reads the robot's map-frame position and speed.
 
+Keep-apart (the mission's `keep_apart`, control/keep_apart.py): when enabled, the MPC
+carries the fleet's fixed number of buffered-cell rows and the node keeps a CellWindow of
+the snapshots the partition node broadcasts on `coverage/snapshot` (in the fleet namespace;
+why that broadcast in partition_node.py). Every snapshot is checked (the documented table,
+roster indices, no negative age/radius/speed, stamped at most `stamp_future_tolerance`
+ahead) and dropped and counted like any bad message otherwise; snapshots without this robot
+are skipped (counted as `keep_apart_without_own`): the partition node has not heard from it
+yet. At each solve the rows come from every snapshot of the window (window W = longest
+sample time + snapshot period + the mission's keep_apart `latency`, the bound on how late a
+snapshot may reach a controller); with no snapshot, or the newest older than `max_age`
+(stamp of the state solved on minus the snapshot's), the robot brakes and its status says
+why. The settings are the mission file's, like the gate tolerances: the window rule needs
+the same period, window and row count in every robot, which one file guarantees.
+
 Geofence (control/geofence.py): a robot more than `geofence_margin` outside the region gets
 its braking input and an ERROR diagnostic; once slower than `geofence_rest_speed` a return
 plan (the MPC on a problem shifted inside, position invariance) brings it back, then normal
@@ -55,6 +69,7 @@ the gate sees that the robot is farther than at the commit.
 
 from __future__ import annotations
 
+import math
 import sys
 import time as wallclock
 
@@ -63,10 +78,18 @@ from diagnostic_msgs.msg import DiagnosticArray, DiagnosticStatus
 from geometry_msgs.msg import PointStamped, PoseWithCovarianceStamped, Vector3Stamped
 from nav_msgs.msg import Odometry, Path
 from rclpy.lifecycle import LifecycleNode, LifecycleState, TransitionCallbackReturn
-from std_msgs.msg import UInt32
+from std_msgs.msg import Float64MultiArray, UInt32
 
 from coverage_fleet.control.controller import RobotController
 from coverage_fleet.control.geofence import BRAKING, INSIDE, RETURNING, Geofence, GeofenceSettings
+from coverage_fleet.control.keep_apart import (
+    CellLayout,
+    CellRows,
+    CellWindow,
+    cell_layout,
+    horizon_reach,
+    shifted_rows,
+)
 from coverage_fleet.control.sampling import SampledController
 from coverage_fleet.control.solver_chain import describe_path
 from coverage_fleet.control.terminal import terminal_for_vehicle
@@ -77,9 +100,11 @@ from coverage_fleet.fleet.message_checks import (
     WRONG_FRAME,
     BadMessageError,
     RateLimit,
+    StampLimits,
     check_finite,
     check_frame,
     check_odometry,
+    check_stamp,
 )
 from coverage_fleet.fleet.mission import load_mission
 from coverage_fleet.fleet.pose_state import PoseVelocity, check_position_covariance
@@ -95,6 +120,7 @@ from .conversions import (
     plan_to_msg,
     pose_from_msg,
     progress_to_msg,
+    snapshot_from_msg,
     solve_to_msg,
     stamp_to_seconds,
     target_from_msg,
@@ -106,6 +132,11 @@ from .parameters import declare
 from .runtime import main_for
 from .topics import fleet_namespace_of
 from .vehicle_parameters import controller_vehicle, declare_vehicle_parameters
+
+#: Inbox source of the keep-apart snapshots (counts on /diagnostics as `snapshot.*`).
+SNAPSHOT_SOURCE = "snapshot"
+#: How RobotController's status starts when keep-apart makes it brake.
+KEEP_APART_STATUS = "keep-apart:"
 
 
 class ControllerNode(LifecycleNode):
@@ -200,6 +231,14 @@ class ControllerNode(LifecycleNode):
         self._mission = mission
         self._sample_tolerance = sample_tolerance
         self.simulated = entry.simulated
+        #: The fleet's keep-apart layout (None: the mission turns keep-apart off).
+        self.cell_layout: CellLayout | None = None
+        if mission.keep_apart.enabled:
+            longest = max(e.vehicle.mpc.sample_time for e in mission.roster)
+            self.cell_layout = cell_layout(
+                mission.keep_apart, max(longest, self.sample_time)
+            )
+        self.snapshots_without_own = 0
         #: Built in on_configure; motion commands only while armed (active).
         self.controller: SampledController | None = None
         self.armed = False
@@ -236,6 +275,11 @@ class ControllerNode(LifecycleNode):
             UInt32, topics.in_namespace(fleet, topics.GENERATION),
             lambda msg: setattr(self, "fleet_generation", int(msg.data)), qos.LATCHED,
         )
+        if self.cell_layout is not None:
+            self.create_subscription(
+                Float64MultiArray, topics.in_namespace(fleet, topics.SNAPSHOT),
+                self._on_snapshot, qos.REPORTS,
+            )
         self.create_timer(self.sample_time, self._watchdog)
         self.create_timer(self.diagnostics_period, self._publish_diagnostics)
         if self.trigger_configure() != TransitionCallbackReturn.SUCCESS:
@@ -255,15 +299,24 @@ class ControllerNode(LifecycleNode):
         started = wallclock.perf_counter()
         try:
             terminal, _ = terminal_for_vehicle(self.spec)
+            layout = self.cell_layout
             self.controller = SampledController(
                 RobotController(
-                    self.model, self.spec.mpc, self._mission.region.halfspaces(), terminal
+                    self.model, self.spec.mpc, self._mission.region.halfspaces(), terminal,
+                    cell_rows=0 if layout is None else layout.rows,
                 ),
                 self.sample_time,
                 self._sample_tolerance,
                 self._mission.gate.noise_tolerance,
                 self._mission.gate.progress_tolerance,
             )
+            if layout is not None:
+                self.controller.cells = CellWindow(
+                    self.robot, self._mission.keep_apart, layout.window, layout.rows,
+                    horizon_reach(
+                        self.model.max_planar_speed, self.sample_time, self.spec.mpc.horizon
+                    ),
+                )
         except Exception as error:  # kept for __init__ (rclpy would swallow it)
             self._configure_failure = error
             return TransitionCallbackReturn.FAILURE
@@ -273,6 +326,11 @@ class ControllerNode(LifecycleNode):
             f"{self.robot}: {self.model.kind} from {self.spec.source}, sample time "
             f"{self.sample_time:g} s, command {self.spec.command_kind}; MPC ready in "
             f"{wallclock.perf_counter() - started:.1f} s; {describe_path(self.spec.mpc)}"
+            + (
+                "; keep-apart off" if self.cell_layout is None else
+                f"; keep-apart: {self.cell_layout.rows} cell rows, snapshots of the last "
+                f"{self.cell_layout.window:g} s"
+            )
         )
         return TransitionCallbackReturn.SUCCESS
 
@@ -364,6 +422,22 @@ class ControllerNode(LifecycleNode):
         if self.controller is not None:
             self.controller.set_target(stamp_ns, target)
 
+    def _on_snapshot(self, msg: Float64MultiArray) -> None:
+        future = self.state_checks.stamps.future if self.state_checks.stamps else math.inf
+
+        def convert():
+            snapshot = snapshot_from_msg(msg, self._mission.robot_names)
+            check_stamp(snapshot.time, self.inbox.now(), StampLimits(future, math.inf))
+            return snapshot
+
+        snapshot = self.inbox.accept(SNAPSHOT_SOURCE, "keep-apart snapshot", convert)
+        if snapshot is None or self.controller is None or self.controller.cells is None:
+            return
+        if self.robot not in snapshot.names:
+            self.snapshots_without_own += 1
+            return
+        self.controller.cells.add(snapshot)
+
     def _on_fleet_stop(self, stopped: bool) -> None:
         if stopped == self.fleet_stopped:
             return
@@ -446,12 +520,25 @@ class ControllerNode(LifecycleNode):
         """(input, solve step or None, shift of the plan) outside the geofence."""
         if mode == BRAKING:
             return self.controller.brake(x), None, None
-        problem = self.geofence.return_problem(self.model.position(x))
+        position = self.model.position(x)
+        problem = self.geofence.return_problem(position)
         shifted = x.copy()
         shifted[list(self.model.position_indices)] += problem.shift
-        step = self.controller.controller.step(shifted, problem.target)
+        step = self.controller.controller.step(
+            shifted, problem.target, self._shifted_cell(position, problem.shift)
+        )
         self.controller.held_input = np.asarray(step.input, float)
         return self.controller.held_input.copy(), step, problem.shift
+
+    def _shifted_cell(self, position: np.ndarray, shift: np.ndarray) -> CellRows | None:
+        """The keep-apart rows for a return plan: taken at the robot's real position, then
+        moved with the problem (keep_apart.shifted_rows)."""
+        cells = self.controller.cells
+        if cells is None:
+            return None
+        rows = cells.rows_at(self.state_time, position)
+        self.controller.last_cells = rows
+        return shifted_rows(rows, shift)
 
     def _log_geofence(self, mode: str) -> None:
         where = f"{self.geofence.outside:.2f} m outside the region"
@@ -473,6 +560,23 @@ class ControllerNode(LifecycleNode):
             plan_to_msg(positions, yaws, self.state_time, self.sample_time, self.frames.map)
         )
 
+    def _keep_apart_values(self, now: float, step) -> dict[str, object]:
+        """Keep-apart on /diagnostics: newest snapshot's age, the newest solve's cell
+        violation (soft slack, m) and rows used / dropped for lack of room."""
+        if self.cell_layout is None:
+            return {"keep_apart": "off"}
+        cells = self.controller.cells if self.controller is not None else None
+        newest = cells.newest if cells is not None else None
+        rows = self.controller.last_cells if self.controller is not None else None
+        return {
+            "keep_apart": "on",
+            "snapshot_age": "inf" if newest is None else f"{now - newest.time:.3f}",
+            "cell_violation": f"{step.cell_violation:.4f}" if step else "nan",
+            "cell_rows_used": rows.used if rows is not None else "",
+            "cell_rows_dropped": rows.dropped if rows is not None else "",
+            "keep_apart_without_own": self.snapshots_without_own,
+        }
+
     def _publish_diagnostics(self) -> None:
         now = self.get_clock().now().nanoseconds * 1e-9
         step = self.controller.last_step if self.controller is not None else None
@@ -489,6 +593,8 @@ class ControllerNode(LifecycleNode):
             action = "braking" if self.geofence.mode == BRAKING else "returning inside"
             level = DiagnosticStatus.ERROR
             message = f"outside the geofence ({self.geofence.outside:.2f} m): {action}"
+        elif step is not None and step.status.startswith(KEEP_APART_STATUS):
+            level, message = DiagnosticStatus.WARN, step.status
         elif self.inbox.new_drops():
             level, message = DiagnosticStatus.WARN, "messages dropped (see dropped.*)"
         elif step is not None and step.used_fallback:
@@ -518,7 +624,8 @@ class ControllerNode(LifecycleNode):
             "target_committed_at": f"{self.generation_stamp_ns * 1e-9:.3f}",
             "geofence": self.geofence.mode,
             "outside_m": f"{self.geofence.outside:.3f}",
-            **self.inbox.diagnostic_values([self.robot]),
+            **self._keep_apart_values(now, step),
+            **self.inbox.diagnostic_values([self.robot, SNAPSHOT_SOURCE]),
         }
         array = DiagnosticArray()
         array.header.stamp = self.get_clock().now().to_msg()
