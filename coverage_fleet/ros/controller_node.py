@@ -86,7 +86,6 @@ from coverage_fleet.control.keep_apart import (
     CellLayout,
     CellRows,
     CellWindow,
-    cell_layout,
     horizon_reach,
     shifted_rows,
 )
@@ -94,6 +93,7 @@ from coverage_fleet.control.sampling import SampledController
 from coverage_fleet.control.solver_chain import describe_path
 from coverage_fleet.control.terminal import terminal_for_vehicle
 from coverage_fleet.errors import ConfigError
+from coverage_fleet.fleet.controllers import mission_cell_layout
 from coverage_fleet.fleet.liveness import fresh
 from coverage_fleet.fleet.message_checks import (
     FLOOD,
@@ -232,12 +232,9 @@ class ControllerNode(LifecycleNode):
         self._sample_tolerance = sample_tolerance
         self.simulated = entry.simulated
         #: The fleet's keep-apart layout (None: the mission turns keep-apart off).
-        self.cell_layout: CellLayout | None = None
-        if mission.keep_apart.enabled:
-            longest = max(e.vehicle.mpc.sample_time for e in mission.roster)
-            self.cell_layout = cell_layout(
-                mission.keep_apart, max(longest, self.sample_time)
-            )
+        # The roster's layout, the same in every node of the graph (the window rule needs
+        # that); a vehicle override on this robot does not change it.
+        self.cell_layout: CellLayout | None = mission_cell_layout(mission)
         self.snapshots_without_own = 0
         #: Built in on_configure; motion commands only while armed (active).
         self.controller: SampledController | None = None

@@ -131,6 +131,9 @@ class GateNode(Node):
                 "reported stuck (default: the mission's settle.stuck_timeout).",
                 (1e-6, 3600.0),
             ),
+            # Keep-apart: "near" measured from the point of the buffered cell nearest the
+            # centroid, as offline (fleet/settling.py; built by the mission loader).
+            cells=settle_defaults.cells,
         )
         problems = mission_settle_problems(mission.roster, settings, settle, mission.simulation)
         if problems:

@@ -57,13 +57,12 @@ from rclpy.node import Node
 from std_msgs.msg import Float64, Float64MultiArray
 from visualization_msgs.msg import MarkerArray
 
-from coverage_fleet.control.keep_apart import cell_layout
+from coverage_fleet.fleet.controllers import fleet_snapshot, mission_cell_layout
 from coverage_fleet.fleet.coordination import candidates_at
 from coverage_fleet.fleet.density_updates import UNKNOWN_DENSITY, DensitySource, occupancy_density
 from coverage_fleet.fleet.liveness import FleetLiveness
 from coverage_fleet.fleet.message_checks import check_finite, check_frame
 from coverage_fleet.fleet.mission import load_mission
-from coverage_fleet.geometry.buffered_cells import FleetSnapshot
 
 from . import qos, topics
 from .conversions import (
@@ -131,6 +130,7 @@ class PartitionNode(Node):
             self.names, state_timeout, controller_timeout, startup_grace
         )
         self.run_start: float | None = None
+        self._warm_up()
         self.positions: dict[str, np.ndarray] = {}
         #: Odometry stamp (s) of each robot's newest position (the snapshots' ages).
         self.position_stamps: dict[str, float] = {}
@@ -170,10 +170,9 @@ class PartitionNode(Node):
         self.partitions = 0
         self.create_timer(1.0 / rate, self._on_timer)
         self.snapshots = 0
-        keep_apart = self.mission.keep_apart
-        if keep_apart.enabled and self.mission.roster:
-            longest = max(e.vehicle.mpc.sample_time for e in self.mission.roster)
-            self.snapshot_period = cell_layout(keep_apart, longest).snapshot_period
+        layout = mission_cell_layout(self.mission) if self.mission.roster else None
+        if layout is not None:
+            self.snapshot_period = layout.snapshot_period
             self.snapshot_pub = self.create_publisher(
                 Float64MultiArray, topics.SNAPSHOT, qos.REPORTS
             )
@@ -186,6 +185,18 @@ class PartitionNode(Node):
             + (f"; densities from {self.density_topic}" if take_density else "")
             + (f"; keep-apart snapshots every {self.snapshot_period:g} s"
                if self.snapshot_period else "; keep-apart off")
+        )
+
+    def _warm_up(self) -> None:
+        """One partition of two points before listening to odometry: the compiled loops
+        (numba) take seconds to load the first time, and the lockstep simulator starts as
+        soon as this node listens, so it would otherwise run ahead of the first partition
+        (with keep-apart the robots brake until the first snapshot, which comes after it)."""
+        centre = np.asarray(self.mission.region.centroid, float)
+        corner = np.asarray(self.mission.region.vertices[0], float)
+        candidates_at(
+            {"a": centre, "b": (centre + corner) / 2.0}, 0.0, self.mission.region,
+            self.densities.density,
         )
 
     def _now(self) -> float:
@@ -267,19 +278,11 @@ class PartitionNode(Node):
         partition has started."""
         if not self.liveness.started or not self.positions:
             return
-        entries = [e for e in self.mission.roster if e.name in self.positions]
-        stamps = np.array([self.position_stamps[e.name] for e in entries])
         # On simulated time odometry may be stamped ahead of this node's clock (it reads
         # /clock later): the snapshot is never older than its newest position.
-        time = max(self._now(), float(stamps.max()))
-        snapshot = FleetSnapshot(
-            time=time,
-            names=tuple(e.name for e in entries),
-            positions=np.array([self.positions[e.name] for e in entries]),
-            ages=time - stamps,
-            radii=np.array([e.vehicle.model.footprint_radius for e in entries]),
-            speed_limits=np.array([e.vehicle.model.max_planar_speed for e in entries]),
-        )
+        time = max(self._now(), max(self.position_stamps.values()))
+        ages = {name: time - stamp for name, stamp in self.position_stamps.items()}
+        snapshot = fleet_snapshot(self.mission, time, self.positions, ages)
         self.snapshot_pub.publish(snapshot_to_msg(snapshot, self.names))
         self.snapshots += 1
 
