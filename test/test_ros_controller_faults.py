@@ -11,6 +11,11 @@ Issue 9's rows for a controller:
 - the robot outside the region (geofence): braking input first and an ERROR diagnostic;
   once at rest a return plan drives it towards the region; back inside it tracks again.
 
+Issue 12's rows (keep-apart on, the probe plays the partition node's snapshots too):
+- a snapshot giving a negative age: dropped and counted (`snapshot.dropped.bad_table`);
+- no snapshot for longer than the mission's keep_apart.max_age: the braking input, and
+  the status on /diagnostics says why; with snapshots again it tracks again.
+
 Braking is the vehicle model's own braking input (common practice: a controller without a
 usable state leaves its actuators in a safe state); finite values, the map frame (REP 105)
 and the stamp limits are fleet/message_checks.py's rules.
@@ -36,11 +41,14 @@ from rclpy.duration import Duration  # noqa: E402
 from support_snapshots import SnapshotSender  # noqa: E402
 
 from coverage_fleet.fleet.mission import load_mission  # noqa: E402
+from coverage_fleet.geometry.buffered_cells import FleetSnapshot  # noqa: E402
 from coverage_fleet.ros import qos, topics  # noqa: E402
 from coverage_fleet.ros.conversions import (  # noqa: E402
+    SNAPSHOT_COLUMNS,
     command_from_msg,
     odometry_to_msg,
     seconds_to_stamp,
+    snapshot_to_msg,
     solve_from_msg,
     target_to_msg,
 )
@@ -100,6 +108,7 @@ class Robot:
         )
         # Keep-apart: the fleet is this robot alone (a snapshot with each state sent).
         self.snapshots = SnapshotSender(self.node, MISSION, ROBOT)
+        self.sending_snapshots = True
 
     def _on_command(self, msg: Twist) -> None:
         values = command_from_msg(msg, "twist")
@@ -111,8 +120,8 @@ class Robot:
                 self.diagnostics = {kv.key: kv.value for kv in status.values}
                 self.level, self.message = status.level, status.message
 
-    def count(self, reason: str) -> int:
-        return int(self.diagnostics.get(f"{ROBOT}.dropped.{reason}", "0"))
+    def count(self, reason: str, source: str = ROBOT) -> int:
+        return int(self.diagnostics.get(f"{source}.dropped.{reason}", "0"))
 
     def now(self):
         return self.node.get_clock().now()
@@ -128,7 +137,8 @@ class Robot:
         while not condition():
             assert self.controller.poll() is None, "the controller died"
             assert time.monotonic() < deadline, f"never saw {what}"
-            self.snapshots.send()
+            if self.sending_snapshots:
+                self.snapshots.send()
             self.send(values, **kwargs)
             for _ in range(2):
                 rclpy.spin_once(self.node, timeout_sec=0.05)
@@ -231,3 +241,38 @@ def test_outside_the_geofence_it_brakes_then_returns_then_tracks(robot: Robot) -
     robot.drive_until(OdometryValues(11.0, 4.0, math.pi),
                       lambda: robot.diagnostics.get("geofence") == "inside", "back inside")
     assert robot.level != DiagnosticStatus.ERROR, robot.message
+
+
+def test_a_snapshot_with_a_negative_age_is_dropped_and_counted(robot: Robot) -> None:
+    msg = snapshot_to_msg(FleetSnapshot(
+        time=robot.now().nanoseconds * 1e-9, names=(ROBOT,), positions=np.array([[2.0, 1.0]]),
+        ages=np.array([0.5]), radii=np.array([0.35]), speed_limits=np.array([1.0]),
+    ), load_mission(MISSION).robot_names)
+    data = list(msg.data)
+    data[len(SNAPSHOT_COLUMNS) + SNAPSHOT_COLUMNS.index("age")] = -1.0
+    msg.data = data
+    robot.snapshots.publisher.publish(msg)
+    robot.drive_until(OdometryValues(2.0, 1.0, 0.0),
+                      lambda: robot.count("bad_table", "snapshot") > 0, "the snapshot counted")
+    assert robot.diagnostics.get("keep_apart") == "on", robot.diagnostics
+
+
+def test_without_recent_snapshots_it_brakes_and_says_why(robot: Robot) -> None:
+    model = next(e for e in load_mission(MISSION).roster if e.name == ROBOT).vehicle.model
+    here = OdometryValues(2.0, 1.0, 0.0)
+    x = np.asarray(model.state_from_odometry(here), float)
+    braking = model.command_from_input(model.braking_input(x), x)
+    expected = np.array([*braking.linear, *braking.angular])
+    robot.drive_until(here, lambda: robot.message == "tracking", "tracking")
+    assert not np.allclose(robot.commands[-1], expected, atol=1e-9)  # it is driving
+    robot.sending_snapshots = False
+    try:
+        robot.drive_until(here, lambda: "newest snapshot" in robot.message, "the stale snapshot")
+        assert robot.message.startswith("keep-apart:") and "braking" in robot.message
+        assert float(robot.diagnostics["snapshot_age"]) > 1.0, robot.diagnostics
+        seen = len(robot.commands)
+        robot.drive_until(here, lambda: len(robot.commands) > seen + 3, "commands while stale")
+        assert np.allclose(robot.commands[-1], expected, atol=1e-9), robot.commands[-1]
+    finally:
+        robot.sending_snapshots = True
+    robot.drive_until(here, lambda: robot.message == "tracking", "tracking again")
