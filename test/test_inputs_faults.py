@@ -413,8 +413,8 @@ def test_unknown_key_lists_every_allowed_key_even_when_some_are_missing(tmp_path
     with pytest.raises(ConfigError) as caught:
         load_mission(write_files(tmp_path, mission=mission))
     [unknown] = [p.message for p in caught.value.problems if p.key == "regoin"]
-    assert unknown == ("unknown key (allowed: density, density_updates, description, gate, name, "
-                       "region, roster, settle, simulation)")
+    assert unknown == ("unknown key (allowed: density, density_updates, description, gate, "
+                       "keep_apart, name, region, roster, settle, simulation)")
 
 
 def test_a_retired_key_points_to_its_replacement(tmp_path: Path) -> None:

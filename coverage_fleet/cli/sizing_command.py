@@ -41,6 +41,7 @@ from coverage_fleet.fleet.mission import (
     mission_settle_problems,
     resolve_vehicle_path,
     simulation_step,
+    with_roster,
 )
 from coverage_fleet.fleet.parallel import run_all
 from coverage_fleet.inputs.fields import Collector, integer_fault, number_fault
@@ -207,7 +208,7 @@ def run_configuration(mission: Mission, job: tuple[tuple[RobotEntry, ...], int, 
                       ) -> dict[str, Any]:
     """One run of one configuration (a worker task: module level, picklable arguments)."""
     roster, seed, duration = job
-    sized = dataclasses.replace(mission, roster=roster)
+    sized = with_roster(mission, roster)
     footprints = {entry.name: entry.footprint_radius for entry in roster}
     # Judged with the density in force at the end (scripted updates included).
     final_density = density_in_force(mission.density, mission.density_updates,

@@ -400,6 +400,17 @@ def held_cells(
     )
 
 
+def with_roster(mission: Mission, roster: Sequence[RobotEntry]) -> Mission:
+    """The mission with another roster (a sizing study's fleet), its settle cells rebuilt
+    for those robots (not checked as a file is: the caller builds valid entries)."""
+    return replace(
+        mission,
+        roster=tuple(roster),
+        settle=replace(mission.settle,
+                       cells=held_cells(mission.region, roster, mission.keep_apart)),
+    )
+
+
 def with_keep_apart(mission: Mission, enabled: bool) -> Mission:
     """The mission with keep-apart turned on or off (a study's comparison, `batch
     --keep-apart`): its settings, the settle monitor's cells and the mission as run."""
