@@ -156,3 +156,32 @@ def test_only_selects_a_part_of_the_deployment(mission: Path) -> None:
     assert graph.select_nodes(nodes, [], "m") == nodes
     with pytest.raises(ConfigError, match=r"unknown part.*ghost.*drone_b, rover_a"):
         graph.select_nodes(nodes, ["ghost"], "m")
+
+
+def test_the_base_station_runs_the_vehicles_the_controllers_run(
+    mission: Path, tmp_path: Path
+) -> None:
+    """`--vehicle rover_a=FILE` reaches the base station too: the partition node's keep-apart
+    snapshots carry that file's footprint radius, not the roster's (a larger vehicle swapped
+    in must be kept apart as the larger one)."""
+    rclpy = pytest.importorskip("rclpy")
+    from coverage_fleet.ros.partition_node import PartitionNode
+
+    wide = tmp_path / "wide_rover.yaml"
+    text = (REPO / "config/vehicles/differential_drive.yaml").read_text()
+    assert "footprint_radius: 0.35" in text
+    wide.write_text(text.replace("footprint_radius: 0.35", "footprint_radius: 0.6"))
+    nodes = graph.fleet_nodes(mission, "lockstep", {"rover_a": wide})
+    station = next(n for n in nodes if n.role == "base_station")
+    controller = next(n for n in nodes if n.robot == "rover_a")
+    assert controller.parameters["vehicle_file"] == str(wide.resolve())
+    rclpy.init(args=["partition", *graph.ros_arguments(station)])
+    try:
+        node = PartitionNode()
+        try:
+            entry = next(e for e in node.mission.roster if e.name == "rover_a")
+            assert entry.vehicle.model.footprint_radius == pytest.approx(0.6)
+        finally:
+            node.destroy_node()
+    finally:
+        rclpy.shutdown()

@@ -93,18 +93,33 @@ def _tuned(spec: NodeSpec, tuning_file: str | Path | None) -> NodeSpec:
 def base_station_nodes(
     mission_file: str | Path, use_sim_time: bool = False, density_updates: bool = False,
     fleet: str = "", tuning_file: str | Path | None = None,
+    vehicle_overrides: dict[str, str | Path] | None = None,
 ) -> list[NodeSpec]:
     """The base-station part: partition node and reference gate in one process
     (`density_updates`: the partition node takes densities from coverage/density; in the
     fleet namespace; tuning_file: a node-tuning parameter file such as
-    config/node_tuning.yaml)."""
+    config/node_tuning.yaml; vehicle_overrides: the controllers' other vehicle files, whose
+    footprints and speeds the keep-apart snapshots and settle cells must use)."""
     mission_file = str(Path(mission_file).resolve())
     spec = _spec(
         "base_station", "coverage_fleet_base_station", None, fleet_namespace(fleet),
         mission_file=mission_file, use_sim_time=use_sim_time,
         density_updates=density_updates,
+        vehicle_overrides=overrides_parameter(vehicle_overrides),
     )
     return [_tuned(spec, tuning_file)]
+
+
+def overrides_parameter(vehicle_overrides: dict[str, str | Path] | None) -> str:
+    """The `vehicle_overrides` parameter (ros/mission_parameters.py): JSON robot -> absolute
+    vehicle file, "" without overrides."""
+    import json
+
+    if not vehicle_overrides:
+        return ""
+    return json.dumps(
+        {robot: str(Path(path).resolve()) for robot, path in vehicle_overrides.items()}
+    )
 
 
 def controller_node_spec(
@@ -159,14 +174,11 @@ def recorder_node_spec(
     """The recorder (coverage_fleet.ros.recorder_node): every topic into an MCAP file, in a
     process of its own, stopped after the others (in the fleet namespace, which it records
     with the run)."""
-    import json
 
     spec = _spec(
         "recorder", "coverage_fleet_recorder", "recorder", fleet_namespace(fleet),
         mission_file=str(Path(mission_file).resolve()),
-        vehicle_overrides=json.dumps(
-            {robot: str(Path(path).resolve()) for robot, path in (vehicle_overrides or {}).items()}
-        ) if vehicle_overrides else "",
+        vehicle_overrides=overrides_parameter(vehicle_overrides),
         output=str(Path(output).resolve()),
         duration=float(duration),
         simulation=simulation or "",
@@ -207,7 +219,7 @@ def fleet_nodes(
     any_real = any(not e.simulated for e in mission.roster)
     use_sim_time = simulation is not None and not any_real
     nodes = base_station_nodes(
-        mission.source, use_sim_time, density_updates, fleet, tuning_file
+        mission.source, use_sim_time, density_updates, fleet, tuning_file, overrides
     )
     for entry in mission.roster:
         nodes.append(

@@ -58,7 +58,7 @@ from coverage_fleet.control.gate import GateSettings
 from coverage_fleet.errors import ConfigError, Problem
 from coverage_fleet.fleet.coordination import Candidates, GateKeeper
 from coverage_fleet.fleet.message_checks import check_finite
-from coverage_fleet.fleet.mission import load_mission, mission_settle_problems
+from coverage_fleet.fleet.mission import mission_settle_problems
 from coverage_fleet.fleet.settling import SettleMonitor, SettleSettings
 
 from . import qos, topics
@@ -74,6 +74,7 @@ from .conversions import (
 from .fleet_stop import FleetStopService, listen_to_fleet_stop
 from .frames import declare_map_frame
 from .inbox import Inbox, declare_state_checks
+from .mission_parameters import declare_mission
 from .parameters import declare
 from .runtime import main_for
 
@@ -81,8 +82,8 @@ from .runtime import main_for
 class GateNode(Node):
     def __init__(self) -> None:
         super().__init__("reference_gate")
-        mission_file = declare(
-            self, "mission_file", "", "Mission file (YAML): roster and gate tolerances."
+        mission = declare_mission(
+            self, "Mission file (YAML): roster and gate tolerances.", "reference_gate parameters"
         )
         state_timeout = declare(
             self, "state_timeout", 2.0,
@@ -90,7 +91,6 @@ class GateNode(Node):
             (0.01, 600.0),
         )
         self.map_frame = declare_map_frame(self)
-        mission = load_mission(mission_file)
         self.state_checks = declare_state_checks(
             self, mission.region, state_timeout, self.map_frame
         )

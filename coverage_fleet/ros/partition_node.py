@@ -62,7 +62,6 @@ from coverage_fleet.fleet.coordination import candidates_at
 from coverage_fleet.fleet.density_updates import UNKNOWN_DENSITY, DensitySource, occupancy_density
 from coverage_fleet.fleet.liveness import FleetLiveness
 from coverage_fleet.fleet.message_checks import check_finite, check_frame
-from coverage_fleet.fleet.mission import load_mission
 
 from . import qos, topics
 from .conversions import (
@@ -76,6 +75,7 @@ from .conversions import (
 )
 from .frames import declare_map_frame
 from .inbox import Inbox, declare_state_checks
+from .mission_parameters import declare_mission
 from .parameters import declare
 from .runtime import main_for
 
@@ -83,8 +83,8 @@ from .runtime import main_for
 class PartitionNode(Node):
     def __init__(self) -> None:
         super().__init__("coverage_partition")
-        mission_file = declare(
-            self, "mission_file", "", "Mission file (YAML): region, density and roster."
+        mission = declare_mission(
+            self, "Mission file (YAML): region, density and roster.", "partition parameters"
         )
         self.map_frame = declare_map_frame(self)
         rate = declare(
@@ -115,7 +115,7 @@ class PartitionNode(Node):
             "Density of unknown (-1) occupancy cells and of the area outside the grid.",
             (0.0, 1.0),
         )
-        self.mission = load_mission(mission_file)
+        self.mission = mission
         self.densities = DensitySource(self.mission.density, self.mission.density_updates)
         diagnostics_period = declare(
             self, "diagnostics_period", 1.0, "Seconds between /diagnostics messages.",

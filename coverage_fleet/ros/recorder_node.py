@@ -24,7 +24,6 @@ file) are written before the first message.
 from __future__ import annotations
 
 import hashlib
-import json
 import os
 import shlex
 import time
@@ -49,6 +48,7 @@ from coverage_fleet.provenance import provenance
 from . import qos, topics
 from .conversions import command_message_type
 from .message_definitions import full_type_name, message_class
+from .mission_parameters import parse_overrides
 from .parameters import declare
 from .recording import (
     FLUSH_PERIOD,
@@ -131,26 +131,6 @@ def ros_provenance() -> dict[str, str]:
     }
 
 
-def parse_overrides(text: str) -> dict[str, str]:
-    """The `vehicle_overrides` parameter: a JSON object robot -> vehicle file."""
-    if not text:
-        return {}
-    try:
-        value = json.loads(text)
-    except json.JSONDecodeError as error:
-        raise ConfigError.single(
-            "recorder parameters", "vehicle_overrides", f"must be a JSON object: {error}"
-        ) from None
-    if not isinstance(value, dict) or not all(
-        isinstance(k, str) and isinstance(v, str) for k, v in value.items()
-    ):
-        raise ConfigError.single(
-            "recorder parameters", "vehicle_overrides",
-            "must be a JSON object of robot names to vehicle file paths",
-        )
-    return value
-
-
 class RecorderNode(Node):
     def __init__(self) -> None:
         super().__init__("coverage_recorder")
@@ -175,7 +155,8 @@ class RecorderNode(Node):
             raise ConfigError.single("recorder parameters", "output", "is required")
         options = Collector("recorder parameters")
         self.mission = with_vehicle_overrides(
-            load_mission(mission_file), parse_overrides(overrides), options
+            load_mission(mission_file), parse_overrides(overrides, "recorder parameters"),
+            options
         )
         self.writer = RecordingWriter(output)
         self._describe_run(duration, simulation, command_line)
