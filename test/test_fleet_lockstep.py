@@ -10,8 +10,17 @@ for them); the figures below are the ones each test sets.
 
 from __future__ import annotations
 
+import pytest
+
 from coverage_fleet.fleet.liveness import FleetLiveness, LivenessChange, fresh
-from coverage_fleet.fleet.lockstep import LIVE, LOST, WAITING, LockstepBarrier, LockstepTimeouts
+from coverage_fleet.fleet.lockstep import (
+    LIVE,
+    LOST,
+    WAITING,
+    LockstepBarrier,
+    LockstepTimeouts,
+    complete_step,
+)
 
 TIMEOUTS = LockstepTimeouts(answer=3.0, startup=20.0, republish=0.5)
 STEP = 0.1
@@ -118,6 +127,63 @@ def test_the_first_step_waits_until_every_state_has_its_subscribers() -> None:
     late = LockstepBarrier(["a"], TIMEOUTS, now=0.0)
     answer(late, "a", now=0.1)
     assert late.poll(now=TIMEOUTS.startup + 0.1, connected=False).advance
+
+
+def test_the_base_station_is_waited_for_like_a_controller() -> None:
+    """The step also waits for the base station's answer (no command from it): the
+    simulator never leaves a state the base station has not processed."""
+    barrier = LockstepBarrier(["a"], TIMEOUTS, now=0.0, stations=["base_station"])
+    assert barrier.condition("base_station") == WAITING
+    answer(barrier, "a", now=0.5)
+    decision = barrier.poll(now=0.5)
+    assert not decision.advance and decision.waiting == ("base_station",)
+    # Its answer to an older state does not count.
+    barrier.answer("base_station", -STEP, now=0.6)
+    assert barrier.poll(now=0.6).waiting == ("base_station",)
+    assert barrier.answer("base_station", 0.0, now=0.7)
+    take_step(barrier, now=0.7)
+    # The next state needs its answer again, and the controller's.
+    assert barrier.poll(now=0.8).waiting == ("a", "base_station")
+    answer(barrier, "a", now=0.9)
+    barrier.answer("base_station", barrier.time, now=0.9)
+    take_step(barrier, now=0.9)
+
+
+def test_a_silent_base_station_is_reported_lost_and_comes_back() -> None:
+    barrier = LockstepBarrier(["a"], TIMEOUTS, now=0.0, stations=["base_station"])
+    answer(barrier, "a", now=1.0)
+    # Before its first answer it gets the start-up timeout, as a controller does.
+    assert barrier.poll(now=TIMEOUTS.startup - 0.01).waiting == ("base_station",)
+    decision = barrier.poll(now=TIMEOUTS.startup + 0.01)
+    assert decision.lost == ("base_station",) and decision.advance
+    barrier.advanced(STEP, now=TIMEOUTS.startup + 0.01)
+    # A dead base station does not freeze the simulator: it is not waited for ...
+    answer(barrier, "a", now=TIMEOUTS.startup + 0.1)
+    assert barrier.poll(now=TIMEOUTS.startup + 0.1).advance
+    barrier.advanced(2 * STEP, now=TIMEOUTS.startup + 0.1)
+    # ... until it answers a state published since it was lost.
+    assert barrier.answer("base_station", 2 * STEP, now=TIMEOUTS.startup + 0.2)
+    assert barrier.condition("base_station") == LIVE
+    answer(barrier, "a", now=TIMEOUTS.startup + 0.2)
+    assert barrier.poll(now=TIMEOUTS.startup + 0.2).advance
+
+
+def test_a_name_is_either_a_controller_or_a_station() -> None:
+    with pytest.raises(ValueError, match="both"):
+        LockstepBarrier(["a"], TIMEOUTS, now=0.0, stations=["a"])
+
+
+def test_the_partition_takes_each_step_once_when_every_live_state_has_arrived() -> None:
+    names = ["a", "b"]
+    assert complete_step({}, names, None) is None
+    assert complete_step({"a": 0.0}, names, None) is None  # b's state not here yet
+    assert complete_step({"a": 0.0, "b": 0.0}, names, None) == 0.0
+    assert complete_step({"a": 0.0, "b": 0.0}, names, last=0.0) is None  # done already
+    assert complete_step({"a": 0.1, "b": 0.0}, names, last=0.0) is None  # half a step
+    assert complete_step({"a": 0.1, "b": 0.1 + 1e-9}, names, last=0.0) == 0.1 + 1e-9
+    # A robot left out (not live) does not hold the step back.
+    assert complete_step({"a": 0.2, "b": 0.1}, ["a"], last=0.1) == 0.2
+    assert complete_step({"a": 0.2}, [], last=0.1) is None
 
 
 # --- liveness ----------------------------------------------------------------------------

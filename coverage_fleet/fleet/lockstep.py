@@ -1,29 +1,55 @@
-"""The lockstep barrier: simulated time advances by one step only when every live controller
-has answered the current state.
+"""The lockstep barrier: simulated time advances by one step only when every live
+participant has answered the current state.
 
-A controller answers a state by sending a command and a progress report naming that state's
-time. Each controller is in one of three conditions:
+Participants are the robots' controllers and, as one more participant, the base station
+(partition and gate). A controller answers a state by sending a command and a progress
+report naming that state's time; the base station answers it once the gate has offered the
+candidates partitioned from that state (and published any targets it committed). Each
+participant is in one of three conditions:
 
 - waiting: it has never answered; it is waited for up to `startup` wall seconds (solver
   set-up included) from the publication of the current state;
 - live: it answered; it is waited for up to `answer` wall seconds per state (counted from
   the state's publication, or from the moment it came back, whichever is later);
-- lost: it did not answer in time; its robot brakes and the fleet goes on without waiting
-  for it. It is live again as soon as it answers the current state or any state published
+- lost: it did not answer in time; a lost controller's robot brakes, a lost base station
+  commits nothing new, and the fleet goes on without waiting for it (the simulator reports
+  it). It is live again as soon as it answers the current state or any state published
   since it was lost (a late answer brings it back).
 
+Why the base station is a participant. The offline fleet (fleet/step.py) runs each tick in
+the order measure, partition, gate, controllers, plants: the base station has acted on the
+states of tick t before the plants leave t. A barrier over the controllers alone let the
+simulator run ahead of a base station that starts more slowly than the controllers (and
+that partitioned on a timer of the simulated clock): at start-up simulated time raced
+seconds ahead of the base station, robots looked stale to it (roster leave and rejoin),
+odometry arrived "stamped ahead of the clock", and the fleet idled for tens of simulated
+seconds with no committed target. With the base station in the barrier no step is taken
+before the base station has processed the states of the current step; in particular the
+first step waits until the first generation is committed and its targets are on their way
+to the controllers.
+
+Of the designs that achieve this, this one keeps the controllers' side unchanged: the
+controllers and the base station answer the same state concurrently (each robot's state goes
+out once, on the topic every node reads), and the barrier waits for both. The one remaining
+difference from the offline order is that a generation committed at step t is used by the
+controllers from step t + 1 (offline: at t), a one-step lag, the same on every run. Making
+the controllers wait for the gate before answering would remove that lag but put the base
+station on every robot's control path, which real robots (with no barrier) never have.
+
 While anyone is waited for, the current state is re-published every `republish` wall
-seconds, so that a controller that joins late still receives it. An answer to a
+seconds, so that a participant that joins late still receives it. An answer to a
 re-publication counts as much as one to the first publication. The very first step also
 waits (up to `startup`) until every robot's state has its subscribers (`connected`).
 
 Plain object driven by explicit times: `now` is wall-clock seconds, `time` simulated
 seconds; the simulator node passes time.monotonic(), tests pass made-up times.
+`complete_step` is the partition node's side of the same rule: in lockstep it partitions
+once per step, as soon as the state of that step has arrived for every live robot.
 """
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -46,7 +72,10 @@ class LockstepTimeouts:
 
 
 @dataclass
-class _Controller:
+class _Participant:
+    #: A controller answers with a progress report and a command; the base station with
+    #: its report alone.
+    needs_command: bool = True
     condition: str = WAITING
     answered_time: float = -np.inf
     commands: int = 0
@@ -62,20 +91,32 @@ class LockstepDecision:
     advance: bool
     #: Still waiting and due to re-publish the current state.
     republish: bool = False
-    #: Controllers marked lost by this poll.
+    #: Participants marked lost by this poll.
     lost: tuple[str, ...] = ()
-    #: Controllers still waited for.
+    #: Participants still waited for.
     waiting: tuple[str, ...] = field(default_factory=tuple)
 
 
 class LockstepBarrier:
+    """`names`: the controllers (by robot name); `stations`: participants that answer with a
+    report alone (the base station), under the same timeouts and conditions."""
+
     def __init__(
-        self, names: Sequence[str], timeouts: LockstepTimeouts, now: float, time: float = 0.0
+        self,
+        names: Sequence[str],
+        timeouts: LockstepTimeouts,
+        now: float,
+        time: float = 0.0,
+        stations: Sequence[str] = (),
     ) -> None:
         self.timeouts = timeouts
         self.time = float(time)
         self.steps = 0
-        self._controllers = {name: _Controller() for name in names}
+        self._controllers = {name: _Participant() for name in names}
+        for name in stations:
+            if name in self._controllers:
+                raise ValueError(f"{name!r} is both a controller and a station")
+            self._controllers[name] = _Participant(needs_command=False)
         self._published_wall = float(now)
         self._republished_wall = float(now)
 
@@ -95,8 +136,9 @@ class LockstepBarrier:
         self._controllers[name].commands += 1
 
     def answer(self, name: str, state_time: float, now: float) -> bool:
-        """A progress report from `name`'s controller for the state at `state_time`.
-        Returns True when this made the controller live (first answer or back from lost)."""
+        """A progress report from `name`'s controller (or the station `name`'s answer) for
+        the state at `state_time`. Returns True when this made the participant live (first
+        answer or back from lost)."""
         controller = self._controllers[name]
         current = self._current(state_time)
         if current:
@@ -111,14 +153,14 @@ class LockstepBarrier:
     # --- stepping -----------------------------------------------------------------------
 
     def poll(self, now: float, connected: bool = True) -> LockstepDecision:
-        """Check the barrier at wall time `now`; marks late controllers lost."""
+        """Check the barrier at wall time `now`; marks late participants lost."""
         waiting: list[str] = []
         lost: list[str] = []
         for name, controller in self._controllers.items():
             if controller.condition == LOST:
                 continue
             answered_state = self._current(controller.answered_time)
-            if answered_state and controller.commands > 0:
+            if answered_state and (controller.commands > 0 or not controller.needs_command):
                 continue
             if answered_state:
                 waiting.append(name)  # it answered this state; its command is on the way
@@ -151,3 +193,21 @@ class LockstepBarrier:
         self._published_wall = self._republished_wall = float(now)
         for controller in self._controllers.values():
             controller.commands = 0
+
+
+def complete_step(
+    state_times: Mapping[str, float], names: Sequence[str], last: float | None
+) -> float | None:
+    """The step to partition now, or None: the newest state time of `names` (the live
+    robots) when every one of them has its newest state at that time and it is newer than
+    `last` (the step partitioned last; None: none yet). A robot whose state of the step has
+    not arrived yet holds the partition back (the simulator re-publishes it)."""
+    if not names or any(name not in state_times for name in names):
+        return None
+    times = [state_times[name] for name in names]
+    newest = max(times)
+    if any(newest - t >= SAME_TIME for t in times):
+        return None
+    if last is not None and newest - last < SAME_TIME:
+        return None
+    return newest
