@@ -104,6 +104,10 @@ def test_fleet_graph_has_base_station_controllers_and_simulator(mission: Path) -
     assert simulator.parameters["mode"] == "lockstep"
     assert simulator.parameters["use_sim_time"] is False  # it is the clock
     assert all(Path(n.parameters["mission_file"]).is_file() for n in nodes)
+    # In lockstep the partition follows the simulator's steps (fleet/lockstep.py) ...
+    assert nodes[0].parameters["lockstep"] is True
+    # ... and in realtime it partitions at its rate.
+    assert graph.fleet_nodes(mission, "realtime")[0].parameters["lockstep"] is False
 
 
 def test_without_simulation_there_is_no_simulator_and_wall_time(mission: Path) -> None:

@@ -93,19 +93,20 @@ def _tuned(spec: NodeSpec, tuning_file: str | Path | None) -> NodeSpec:
 def base_station_nodes(
     mission_file: str | Path, use_sim_time: bool = False, density_updates: bool = False,
     fleet: str = "", tuning_file: str | Path | None = None,
-    vehicle_overrides: dict[str, str | Path] | None = None,
+    vehicle_overrides: dict[str, str | Path] | None = None, lockstep: bool = False,
 ) -> list[NodeSpec]:
     """The base-station part: partition node and reference gate in one process
     (`density_updates`: the partition node takes densities from coverage/density; in the
     fleet namespace; tuning_file: a node-tuning parameter file such as
     config/node_tuning.yaml; vehicle_overrides: the controllers' other vehicle files, whose
-    footprints and speeds the keep-apart snapshots and settle cells must use)."""
+    footprints and speeds the keep-apart snapshots and settle cells must use; `lockstep`: the
+    partition follows a lockstep simulator's steps, see fleet/lockstep.py)."""
     mission_file = str(Path(mission_file).resolve())
     spec = _spec(
         "base_station", "coverage_fleet_base_station", None, fleet_namespace(fleet),
         mission_file=mission_file, use_sim_time=use_sim_time,
         density_updates=density_updates,
-        vehicle_overrides=overrides_parameter(vehicle_overrides),
+        vehicle_overrides=overrides_parameter(vehicle_overrides), lockstep=lockstep,
     )
     return [_tuned(spec, tuning_file)]
 
@@ -219,7 +220,8 @@ def fleet_nodes(
     any_real = any(not e.simulated for e in mission.roster)
     use_sim_time = simulation is not None and not any_real
     nodes = base_station_nodes(
-        mission.source, use_sim_time, density_updates, fleet, tuning_file, overrides
+        mission.source, use_sim_time, density_updates, fleet, tuning_file, overrides,
+        lockstep=simulation == "lockstep",
     )
     for entry in mission.roster:
         nodes.append(

@@ -22,6 +22,13 @@ would keep the gate shut for everyone: it leaves the roster (logged with the rea
 rejoins once it is back within its distance at the commit. These rules live in
 the core (fleet/coordination.py, GateKeeper); this node converts messages and calls it.
 
+After every candidates message (offered, or skipped while the fleet is stopped) the gate
+publishes `coverage/station_answer` stamped with the candidates' state time, after any
+targets it committed: the lockstep simulator waits for it before leaving that state
+(fleet/lockstep.py), so the base station acts on every step as offline. A table identical
+to the one offered last (the partition re-sends it while the lockstep simulator waits) is
+answered again but not offered twice: one offer per state, as offline.
+
 After every offer the settle monitor (coverage_fleet.fleet.settling, the object the offline
 simulation uses) judges the fleet from the candidates message (positions and the centroids
 of the current cells, at the partition's time) and each robot's latest `odom` twist (its
@@ -52,7 +59,7 @@ from diagnostic_msgs.msg import DiagnosticArray, DiagnosticStatus
 from geometry_msgs.msg import PointStamped, Vector3Stamped
 from nav_msgs.msg import Odometry
 from rclpy.node import Node
-from std_msgs.msg import Float64MultiArray, String, UInt32
+from std_msgs.msg import Float64MultiArray, Header, String, UInt32
 
 from coverage_fleet.control.gate import GateSettings
 from coverage_fleet.errors import ConfigError, Problem
@@ -69,6 +76,7 @@ from .conversions import (
     nanoseconds_to_stamp,
     opening_to_msg,
     progress_from_msg,
+    seconds_to_stamp,
     target_to_msg,
 )
 from .fleet_stop import FleetStopService, listen_to_fleet_stop
@@ -190,8 +198,12 @@ class GateNode(Node):
             Float64MultiArray, topics.OPENINGS, qos.OPENINGS
         )
         self.settling_pub = self.create_publisher(String, topics.SETTLING, qos.LATCHED)
+        # Latched: a simulator that matched late still gets the newest answer.
+        self.answer_pub = self.create_publisher(Header, topics.STATION_ANSWER, qos.LATCHED)
         self.settling_pub.publish(String(data=self.settling))
         self.last_opening = None
+        #: The data of the candidates table offered last (a repeated table is not offered).
+        self.last_offered: list[float] | None = None
         self.diag_pub = self.create_publisher(DiagnosticArray, topics.DIAGNOSTICS, qos.DISPLAY)
         diagnostics_period = declare(
             self, "diagnostics_period", 1.0, "Seconds between /diagnostics messages.",
@@ -232,13 +244,21 @@ class GateNode(Node):
         self.keeper.acknowledge(name, generation)
 
     def _on_candidates(self, msg: Float64MultiArray) -> None:
-        if self.fleet_stopped:
-            return
         values = self.inbox.accept(
             "candidates", "candidates table", lambda: candidates_from_msg(msg, len(self.names))
         )
         if values is None:
             return
+        repeated = self.last_offered is not None and list(msg.data) == self.last_offered
+        if not self.fleet_stopped and not repeated:
+            self.last_offered = list(msg.data)
+            self._offer(values)
+        # Last: the targets of a commit go out before the answer that lets time move on.
+        self.answer_pub.publish(
+            Header(stamp=seconds_to_stamp(values.time), frame_id=self.map_frame)
+        )
+
+    def _offer(self, values) -> None:
         names = {i: self.names[i] for i in values.positions}
         candidates = Candidates(
             time=values.time,

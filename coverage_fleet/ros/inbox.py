@@ -44,11 +44,11 @@ def declare_state_checks(
     is stale, the node's own state timeout; `frame`: the map frame, the node's `map_frame`
     parameter, ros/frames.py)."""
     future = declare(
-        node, "stamp_future_tolerance", 10.0,
+        node, "stamp_future_tolerance", 1.0,
         "Seconds a state's stamp may be ahead of this node's clock; a state stamped later "
-        "is dropped (a clock fault would otherwise block every later state). Generous "
-        "because a node on simulated time may read /clock after odometry already stamped "
-        "seconds later (the lockstep simulator does not wait for the base station).",
+        "is dropped (a clock fault would otherwise block every later state). On simulated "
+        "time a node may read /clock after the odometry of the same step; in lockstep the "
+        "simulator never runs more than one step ahead of any node (fleet/lockstep.py).",
         (0.0, 3600.0),
     )
     implausible = declare(

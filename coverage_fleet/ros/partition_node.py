@@ -43,6 +43,17 @@ forgets a robot it has heard from. A roster robot never heard from is in no snap
 is no position to keep clear of); snapshots start with the first partition, which waits
 `startup_grace` for the whole roster.
 
+Lockstep (parameter `lockstep`, set by the launcher for a lockstep simulation): instead of
+a timer, the node partitions once per simulated step, as soon as the state of that step has
+arrived from every live robot (fleet/lockstep.complete_step), and judges liveness at that
+step's time. A state of the step already partitioned that arrives again is the simulator
+re-publishing while it waits: the node sends that step's candidates again (the first copy
+may have been lost while the gate's subscription was still being matched); the gate answers
+a repeated table without offering it twice. The simulator's clock does not move until the
+gate has answered that step, so a timer of the simulated clock would never fire at a held
+step; and this way each step's states are partitioned exactly once, as offline
+(fleet/step.py).
+
 The liveness rules and the partition are core objects (fleet/liveness.py,
 fleet/coordination.py); this node converts messages and calls them.
 """
@@ -61,6 +72,7 @@ from coverage_fleet.fleet.controllers import fleet_snapshot, mission_cell_layout
 from coverage_fleet.fleet.coordination import candidates_at
 from coverage_fleet.fleet.density_updates import UNKNOWN_DENSITY, DensitySource, occupancy_density
 from coverage_fleet.fleet.liveness import FleetLiveness
+from coverage_fleet.fleet.lockstep import complete_step
 from coverage_fleet.fleet.message_checks import check_finite, check_frame
 
 from . import qos, topics
@@ -115,6 +127,11 @@ class PartitionNode(Node):
             "Density of unknown (-1) occupancy cells and of the area outside the grid.",
             (0.0, 1.0),
         )
+        self.lockstep = declare(
+            self, "lockstep", False,
+            "Partition once per simulated step, when every live robot's state of that step "
+            "has arrived, instead of at `rate` (a lockstep simulation; the launcher sets it).",
+        )
         self.mission = mission
         self.densities = DensitySource(self.mission.density, self.mission.density_updates)
         diagnostics_period = declare(
@@ -134,6 +151,10 @@ class PartitionNode(Node):
         self.positions: dict[str, np.ndarray] = {}
         #: Odometry stamp (s) of each robot's newest position (the snapshots' ages).
         self.position_stamps: dict[str, float] = {}
+        #: robot -> stamp of its newest accepted state (lockstep: which step has arrived)
+        self.state_times: dict[str, float] = {}
+        self.last_step: float | None = None
+        self.last_candidates: Float64MultiArray | None = None
         self.targets: dict[str, np.ndarray] = {}
         for name in self.names:
             self.create_subscription(
@@ -168,7 +189,8 @@ class PartitionNode(Node):
         self.cells_pub = self.create_publisher(MarkerArray, topics.CELLS, qos.LATCHED)
         self.diag_pub = self.create_publisher(DiagnosticArray, topics.DIAGNOSTICS, qos.DISPLAY)
         self.partitions = 0
-        self.create_timer(1.0 / rate, self._on_timer)
+        if not self.lockstep:
+            self.create_timer(1.0 / rate, self._on_timer)
         self.snapshots = 0
         layout = mission_cell_layout(self.mission) if self.mission.roster else None
         if layout is not None:
@@ -183,6 +205,7 @@ class PartitionNode(Node):
         self.get_logger().info(
             f"partitioning {self.mission.name!r} for {len(self.names)} robots at {rate:g} Hz"
             + (f"; densities from {self.density_topic}" if take_density else "")
+            + ("; lockstep: once per simulated step" if self.lockstep else "")
             + (f"; keep-apart snapshots every {self.snapshot_period:g} s"
                if self.snapshot_period else "; keep-apart off")
         )
@@ -210,11 +233,33 @@ class PartitionNode(Node):
         self.positions[name] = np.array([odom.x, odom.y])
         self.position_stamps[name] = stamp
         self.liveness.saw_state(name, stamp)
+        repeated = self.state_times.get(name) == stamp
+        self.state_times[name] = stamp
+        if self.lockstep and repeated and self.last_candidates is not None \
+                and self.last_step == stamp:
+            self.candidates_pub.publish(self.last_candidates)
+            return
+        self._partition_if_step_complete()
 
     def _on_progress(self, name: str) -> None:
         # Only that the controller answers matters here (the gate reads the content).
         self.inbox.rates.saw(f"{name}.progress")
         self.liveness.saw_answer(name, self._now())
+        self._partition_if_step_complete()
+
+    def _partition_if_step_complete(self) -> None:
+        """Lockstep: partition the newest step once every live robot's state of it is in
+        (at start-up: once the whole roster is live, or the start-up grace has passed)."""
+        if not self.lockstep:
+            return
+        newest = max(self.state_times.values(), default=None)
+        if newest is None:
+            return
+        # Liveness at the step's own time: /clock may arrive after the step's states.
+        self._update_liveness(newest)
+        step = complete_step(self.state_times, self.liveness.live, self.last_step)
+        if step is not None and self._partition(step):
+            self.last_step = step
 
     def _on_density(self, msg: OccupancyGrid) -> None:
         try:
@@ -286,15 +331,23 @@ class PartitionNode(Node):
         self.snapshot_pub.publish(snapshot_to_msg(snapshot, self.names))
         self.snapshots += 1
 
-    def _on_timer(self) -> None:
-        now = self._now()
+    def _update_liveness(self, now: float) -> None:
         for change in self.liveness.update(now):
             verb = "joins" if change.live else "left out (stale odometry or silent controller)"
             self.get_logger().info(f"{change.robot} {verb}")
+
+    def _on_timer(self) -> None:
+        now = self._now()
+        self._update_liveness(now)
+        self._partition(now)
+
+    def _partition(self, now: float) -> bool:
+        """Partition the live robots' newest states at `now` (liveness updated); returns
+        whether candidates went out."""
         if not self.liveness.started:
             # The whole roster gets its first cells together (see fleet/liveness.py).
             if not self.liveness.may_start(now):
-                return
+                return False
             missing = self.liveness.missing()
             if missing:
                 self.get_logger().warning(
@@ -311,7 +364,7 @@ class PartitionNode(Node):
             )
         live = self.liveness.live
         if not live:
-            return
+            return False
         latest_state = self.liveness.newest_state_time(live)
         candidates, partition = candidates_at(
             {n: self.positions[n] for n in live},
@@ -329,7 +382,8 @@ class PartitionNode(Node):
             masses={index[n]: m for n, m in candidates.masses.items()},
             density_version=candidates.density_version,
         )
-        self.candidates_pub.publish(candidates_to_msg(values))
+        self.last_candidates = candidates_to_msg(values)
+        self.candidates_pub.publish(self.last_candidates)
         self.partitions += 1
         self.cost_pub.publish(Float64(data=candidates.cost))
         self.cells_pub.publish(
@@ -342,6 +396,7 @@ class PartitionNode(Node):
                 self.map_frame,
             )
         )
+        return True
 
 
 def main() -> None:

@@ -10,7 +10,14 @@ Two modes:
   answer within `lockstep_timeout` wall seconds (`startup_timeout` before its first answer)
   is marked not live: its robot brakes and the fleet goes on. It becomes live again when it
   answers. States are re-published every `republish_period` while waiting, so a controller
-  that joins late still receives the current state.
+  that joins late still receives the current state. The base station is one more
+  participant (`wait_for_base_station`, default on): time does not leave a state until the
+  gate has answered it on `coverage/station_answer` (it has offered the candidates of that
+  state and published any targets it committed), so the first step waits for the first
+  generation, and every step's states are partitioned before the plants move on, as
+  offline. A base station that does not answer in time is reported not answering and the
+  fleet goes on without new commits; it is waited for again once it answers. Why this design:
+  fleet/lockstep.py.
 
 The plants, their noise and the lockstep barrier are core objects (fleet/plants.py,
 fleet/lockstep.py); this node converts messages and calls them.
@@ -46,7 +53,7 @@ from geometry_msgs.msg import Vector3Stamped
 from nav_msgs.msg import Odometry
 from rclpy.node import Node
 from rosgraph_msgs.msg import Clock
-from std_msgs.msg import String
+from std_msgs.msg import Header, String
 
 from coverage_fleet.errors import ConfigError
 from coverage_fleet.fleet.liveness import fresh
@@ -62,6 +69,7 @@ from .conversions import (
     odometry_to_msg,
     progress_from_msg,
     seconds_to_stamp,
+    stamp_to_seconds,
 )
 from .fleet_stop import listen_to_fleet_stop
 from .frames import declare_map_frame, default_base_frame
@@ -71,6 +79,9 @@ from .parameters import declare
 from .runtime import RunFinished, main_for
 
 MODES = ("realtime", "lockstep")
+#: The base station's name as a participant of the lockstep barrier (never a robot's: robot
+#: names are ROS name segments, which hold no space).
+BASE_STATION = "base station"
 
 
 class SimulatorNode(Node):
@@ -118,6 +129,11 @@ class SimulatorNode(Node):
             "Realtime: wall seconds after which a robot's last command counts as stale (it "
             "brakes).",
             (0.01, 600.0),
+        )
+        self.wait_for_base_station = declare(
+            self, "wait_for_base_station", True,
+            "Lockstep: also wait for the base station's answer to each state "
+            "(coverage/station_answer), under the same timeouts as a controller.",
         )
         self.odom_subscribers = declare(
             self, "odom_subscribers", 2,
@@ -181,7 +197,12 @@ class SimulatorNode(Node):
                 self.plants.names,
                 LockstepTimeouts(lockstep_timeout, startup_timeout, republish_period),
                 now=wallclock.monotonic(),
+                stations=[BASE_STATION] if self.wait_for_base_station else [],
             )
+            if self.wait_for_base_station:
+                self.create_subscription(
+                    Header, topics.STATION_ANSWER, self._on_station_answer, qos.LATCHED
+                )
             # A short wall timer polls the barrier; the executor delivers answers between.
             self.create_timer(0.002, self._lockstep_poll)
         self.diag_pub = self.create_publisher(DiagnosticArray, topics.DIAGNOSTICS, qos.DISPLAY)
@@ -255,6 +276,21 @@ class SimulatorNode(Node):
         if self.barrier.answer(name, report.state_time, wallclock.monotonic()):
             self.get_logger().info(f"{name}: controller answering, live")
 
+    def _on_station_answer(self, msg: Header) -> None:
+        if self.barrier is None:
+            return
+
+        def convert() -> float:
+            state_time = stamp_to_seconds(msg.stamp)
+            check_finite({"state_time": state_time})
+            return state_time
+
+        state_time = self.inbox.accept(BASE_STATION, "station answer", convert)
+        if state_time is None:
+            return
+        if self.barrier.answer(BASE_STATION, state_time, wallclock.monotonic()):
+            self.get_logger().info("base station answering, live")
+
     def _on_fleet_stop(self, stopped: bool) -> None:
         if stopped != self.fleet_stopped:
             self.get_logger().info("fleet stop: braking every robot" if stopped
@@ -297,6 +333,11 @@ class SimulatorNode(Node):
             )
             for n in self.robots
         }
+        if self.barrier is not None and self.wait_for_base_station:
+            conditions["base_station"] = self.barrier.condition(BASE_STATION)
+            if self.barrier.is_lost(BASE_STATION):
+                level = DiagnosticStatus.WARN
+                message = "base station not answering; " + message
         values = {
             "time": f"{self.plants.time:.3f}",
             "steps": self.barrier.steps if self.barrier is not None else "",
@@ -359,6 +400,11 @@ class SimulatorNode(Node):
 
     def _finish(self, why: str) -> None:
         missing = self.missing()
+        if self.barrier is not None and self.wait_for_base_station \
+                and self.barrier.is_lost(BASE_STATION):
+            self.get_logger().warning(
+                f"{why}; the base station was not answering at the end (no new commits)"
+            )
         if missing:
             self.get_logger().error(
                 f"{why}, but not with the whole fleet: {', '.join(missing)} not answering "
@@ -385,10 +431,14 @@ class SimulatorNode(Node):
             return
         decision = barrier.poll(wallclock.monotonic(), self._connected())
         for name in decision.lost:
+            consequence = (
+                "the fleet goes on without new commits until it answers"
+                if name == BASE_STATION
+                else "marking its controller not live (its robot brakes)"
+            )
             self.get_logger().warning(
                 f"{name}: no answer for t = {barrier.time:.2f} s in time (lockstep_timeout, "
-                "or startup_timeout before its first answer); marking its controller not "
-                "live (its robot brakes)"
+                f"or startup_timeout before its first answer); {consequence}"
             )
         if not decision.advance:
             if decision.republish:

@@ -41,6 +41,10 @@ GENERATION = "coverage/generation"
 OPENINGS = "coverage/openings"
 #: "moving", "settled" or "stuck" (fleet/settling.py), latched.
 SETTLING = "coverage/settling"
+#: The base station's answer to a state (std_msgs/Header, stamp = the state time of the
+#: candidates the gate has just offered, targets of any commit already published): what the
+#: lockstep simulator waits for besides the controllers (fleet/lockstep.py).
+STATION_ANSWER = "coverage/station_answer"
 #: Fleet-wide software stop (std_msgs/Bool, latched; true = stopped) and the service that
 #: sets it (std_srvs/SetBool, served by the reference gate): see fleet_stop.py. Relative
 #: like the rest, so each fleet namespace has its own stop.
