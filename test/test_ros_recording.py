@@ -403,10 +403,11 @@ def test_relaunching_the_mission_as_run_reproduces_the_overridden_run(recorded, 
         assert a[key] == b[key], key
     # Tolerances: an opening moved by a step moves the run's end by the distance driven in
     # that step and may add or drop a generation. Measured on a loaded 2-core machine
-    # (2026-12-03, two runs, base station in the barrier): 59/59 generations both times,
-    # final cost 3e-5 and 4e-6 apart (relative), final positions at most 2 mm apart. (With
-    # the base station outside the barrier it was 53/54, 51/52 and 51/45 generations, 0.25 %
-    # and 0.04-0.15 m.) The bounds allow two generations, 0.1 % and 5 cm.
+    # (2026-12-03, three runs, base station in the barrier): 59/59, 59/59 and 60/59
+    # generations, final cost 3e-5, 4e-6 and 2e-4 apart (relative), final positions at most
+    # 2 mm, 0.4 mm and 12 mm apart. (With the base station outside the barrier it was 53/54,
+    # 51/52 and 51/45 generations, 0.25 % and 0.04-0.15 m.) The bounds allow two
+    # generations, 0.1 % and 5 cm.
     assert abs(a["generations"] - b["generations"]) <= 2
     assert b["final_cost"] == pytest.approx(a["final_cost"], rel=1e-3)
     assert max(gaps.values()) <= 0.05, gaps
