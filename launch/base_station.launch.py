@@ -28,6 +28,7 @@ def generate_launch_description():
             LaunchConfiguration("mission").perform(context), use_sim_time, density_updates,
             fleet=LaunchConfiguration("fleet_namespace").perform(context),
             tuning_file=LaunchConfiguration("node_tuning").perform(context),
+            lockstep=LaunchConfiguration("lockstep").perform(context).lower() == "true",
         )
         return launch_actions(specs)
 
@@ -43,6 +44,11 @@ def generate_launch_description():
                 "density_updates", default_value="false",
                 description="true: the partition node takes nav_msgs/OccupancyGrid densities "
                 "from coverage/density in the fleet namespace (README, Density updates)",
+            ),
+            DeclareLaunchArgument(
+                "lockstep", default_value="false",
+                description="true: partition once per step of a lockstep simulator started "
+                "elsewhere (with use_sim_time:=true; fleet/lockstep.py)",
             ),
             DeclareLaunchArgument(
                 "node_tuning", default_value=default_tuning,
