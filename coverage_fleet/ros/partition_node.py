@@ -212,9 +212,10 @@ class PartitionNode(Node):
 
     def _warm_up(self) -> None:
         """One partition of two points before listening to odometry: the compiled loops
-        (numba) take seconds to load the first time, and the lockstep simulator starts as
-        soon as this node listens, so it would otherwise run ahead of the first partition
-        (with keep-apart the robots brake until the first snapshot, which comes after it)."""
+        (numba) take seconds to load the first time, and the lockstep simulator waits for
+        the first partition (fleet/lockstep.py), so loading them before the robots' states
+        arrive shortens the start (with keep-apart the robots brake until the first
+        snapshot, which comes after it)."""
         centre = np.asarray(self.mission.region.centroid, float)
         corner = np.asarray(self.mission.region.vertices[0], float)
         candidates_at(
