@@ -19,7 +19,9 @@ version, carried in the candidates, and the gate commits a fresh generation for 
 density in force stays.
 
 Keep-apart snapshots (mission `keep_apart`, control/keep_apart.py): every
-`snapshot_period` (ROS clock; default the roster's longest sample time) the node publishes
+`snapshot_period` (ROS clock; default the roster's longest sample time; in lockstep at the
+first step of each period, with that step's positions, before its candidates, as the
+offline step takes them) the node publishes
 `coverage/snapshot` (layout in conversions.py): every robot it has heard from, with its
 newest position, the age of that position (the snapshot's stamp minus the odometry stamp),
 its footprint radius and its largest planar speed (from the roster's vehicle files, which
@@ -74,6 +76,7 @@ from coverage_fleet.fleet.density_updates import UNKNOWN_DENSITY, DensitySource,
 from coverage_fleet.fleet.liveness import FleetLiveness
 from coverage_fleet.fleet.lockstep import complete_step
 from coverage_fleet.fleet.message_checks import check_finite, check_frame
+from coverage_fleet.fleet.mission import simulation_step
 
 from . import qos, topics
 from .conversions import (
@@ -192,13 +195,20 @@ class PartitionNode(Node):
         if not self.lockstep:
             self.create_timer(1.0 / rate, self._on_timer)
         self.snapshots = 0
+        #: Lockstep snapshots taken so far, and half a simulation step (their timing rule).
+        self._snapshots_taken = 0
+        self._half_step = (
+            0.5 * simulation_step(self.mission.roster, self.mission.simulation)
+            if self.lockstep else 0.0
+        )
         layout = mission_cell_layout(self.mission) if self.mission.roster else None
         if layout is not None:
             self.snapshot_period = layout.snapshot_period
             self.snapshot_pub = self.create_publisher(
                 Float64MultiArray, topics.SNAPSHOT, qos.REPORTS
             )
-            self.create_timer(self.snapshot_period, self._publish_snapshot)
+            if not self.lockstep:
+                self.create_timer(self.snapshot_period, self._publish_snapshot)
         else:
             self.snapshot_period = None
         self.create_timer(diagnostics_period, self._publish_diagnostics)
@@ -326,7 +336,21 @@ class PartitionNode(Node):
             return
         # On simulated time odometry may be stamped ahead of this node's clock (it reads
         # /clock later): the snapshot is never older than its newest position.
-        time = max(self._now(), max(self.position_stamps.values()))
+        self._send_snapshot(max(self._now(), max(self.position_stamps.values())))
+
+    def _snapshot_when_due(self, step: float) -> None:
+        """Lockstep: a snapshot at the step's time when a period has come, as the offline
+        step takes them (at k * period, counted so that float sums do not drift), published
+        before the step's candidates and so before the gate's answer lets time move on: the
+        controllers hold it before the next step's states."""
+        period = self.snapshot_period
+        if period is None or step < self._snapshots_taken * period - self._half_step:
+            return
+        self._send_snapshot(step)
+        while self._snapshots_taken * period - self._half_step <= step:
+            self._snapshots_taken += 1
+
+    def _send_snapshot(self, time: float) -> None:
         ages = {name: time - stamp for name, stamp in self.position_stamps.items()}
         snapshot = fleet_snapshot(self.mission, time, self.positions, ages)
         self.snapshot_pub.publish(snapshot_to_msg(snapshot, self.names))
@@ -383,6 +407,8 @@ class PartitionNode(Node):
             masses={index[n]: m for n, m in candidates.masses.items()},
             density_version=candidates.density_version,
         )
+        if self.lockstep:
+            self._snapshot_when_due(latest_state)
         self.last_candidates = candidates_to_msg(values)
         self.candidates_pub.publish(self.last_candidates)
         self.partitions += 1
