@@ -405,10 +405,11 @@ def test_relaunching_the_mission_as_run_reproduces_the_overridden_run(recorded, 
     # that step and may add or drop a generation. Measured on a loaded 2-core machine
     # (2026-12-03, three runs, base station in the barrier): 59/59, 59/59 and 60/59
     # generations, final cost 3e-5, 4e-6 and 2e-4 apart (relative), final positions at most
-    # 2 mm, 0.4 mm and 12 mm apart; with keep-apart snapshots in the graph (one run):
-    # 58/59, 2.5e-4 and 16 mm. (With the base station outside the barrier it was 53/54,
-    # 51/52 and 51/45 generations, 0.25 % and 0.04-0.15 m.) The bounds allow two
-    # generations, 0.5 % and 10 cm.
-    assert abs(a["generations"] - b["generations"]) <= 2
-    assert b["final_cost"] == pytest.approx(a["final_cost"], rel=5e-3)
-    assert max(gaps.values()) <= 0.1, gaps
+    # 2 mm, 0.4 mm and 12 mm apart; with keep-apart snapshots in the graph (two runs):
+    # 58/59 and 58/59, 2.5e-4 and 2.7e-3, 16 mm and 0.15 m (a controller may answer a step
+    # before or after that step's snapshot arrives). (With the base station outside the
+    # barrier it was 53/54, 51/52 and 51/45 generations, 0.25 % and 0.04-0.15 m.) The bounds
+    # allow three generations, 1 % and 0.3 m.
+    assert abs(a["generations"] - b["generations"]) <= 3
+    assert b["final_cost"] == pytest.approx(a["final_cost"], rel=0.01)
+    assert max(gaps.values()) <= 0.3, gaps
