@@ -81,6 +81,15 @@ def test_packed_starts_are_seeded_and_differ_from_spread_starts() -> None:
     assert start_poses(mission, 7, 0.1) != start_poses(mission, 7)
 
 
+def test_batch_refuses_a_negative_packing_gap(capsys: pytest.CaptureFixture[str]) -> None:
+    from coverage_fleet.cli.main import main
+
+    status = main(["batch", str(MISSIONS / "solar_row_quick_check.yaml"), "--seeds", "1",
+                   "--packed-starts", "-1", "--keep-apart", "off"])
+    err = capsys.readouterr().err
+    assert status == 2 and "command line: --packed-starts: must be at least 0, got -1" in err
+
+
 def test_batch_keep_apart_override_reaches_settings_settle_rule_and_mission_as_run() -> None:
     mission = load_mission(MISSIONS / "solar_row_quick_check.yaml")
     assert mission.keep_apart.enabled and mission.settle.cells is not None
