@@ -392,3 +392,50 @@ def test_ctrl_c_during_solves_reaches_the_caller(plugin, tmp_path):
     process.send_signal(signal.SIGINT)
     out, _ = process.communicate(timeout=120)
     assert out.strip() == "interrupted"
+
+
+# --- a car beside its target ------------------------------------------------------------------
+
+
+def test_car_beside_its_target_shunts_closer():
+    """A car at rest with its target 0.25 m to its side (ahead by 0.05 m): its cheapest plan
+    from a straight start is to stay put (at rest the steering has no first-order effect),
+    yet the kinematic bicycle (Rajamani, Vehicle Dynamics and Control, 2nd ed., 2012,
+    sec. 2.2) can shift sideways by two arcs on opposite locks, one forward and one back
+    (a shunt, common practice). The stalled solve's shunt second starts must find that and
+    the closed loop must end far closer than it started, within the limits."""
+    model, settings = _vehicle(REPO / "config" / "vehicles" / "car_like.yaml")
+    heading = 0.3
+    along = np.array([np.cos(heading), np.sin(heading)])
+    beside = np.array([-np.sin(heading), np.cos(heading)])
+    start = np.array([6.0, 5.0])
+    target = start + 0.05 * along + 0.25 * beside
+    assert model.manoeuvre_inputs(settings.horizon, settings.sample_time)
+    x0 = _start_state(model, start, heading)
+    x, failures, _ = _closed_loop(model, settings, x0, target, steps=150)
+    assert failures == 0
+    before = float(np.linalg.norm(start - target))
+    after = float(np.linalg.norm(model.position(x) - target))
+    assert after < 0.5 * before, (before, after)
+    assert abs(x[3]) < 0.05, "the car must come to rest"
+
+
+def test_manoeuvre_inputs_start_and_end_at_rest_within_limits():
+    """Every shunt of the car-like model stays inside the input box and its speed inside
+    the speed limits, and it ends at rest (so it is a fair second start for an MPC whose
+    terminal state is a steady state)."""
+    model, settings = _vehicle(REPO / "config" / "vehicles" / "car_like.yaml")
+    sequences = model.manoeuvre_inputs(settings.horizon, settings.sample_time)
+    assert len(sequences) == 4
+    F = model.discrete_dynamics(settings.sample_time, settings.substeps)
+    lower, upper = model.input_bounds()
+    x_lower, x_upper = model.state_bounds()
+    for inputs in sequences:
+        assert inputs.shape == (settings.horizon, model.nu)
+        assert np.all(inputs >= lower - 1e-12) and np.all(inputs <= upper + 1e-12)
+        x = _start_state(model, (6.0, 5.0))
+        for u in inputs:
+            x = np.array(F(x, u)).reshape(-1)
+            assert x_lower[3] - 1e-9 <= x[3] <= x_upper[3] + 1e-9
+        assert abs(x[3]) < 1e-9
+        assert np.linalg.norm(model.position(x) - (6.0, 5.0)) > 0.05

@@ -191,6 +191,9 @@ class TrackingMpc:
         self._guess: np.ndarray | None = None
         self._lam_g: np.ndarray | None = None
         self._lam_x: np.ndarray | None = None
+        #: (measured state, target) of the last stalled solve no second start improved:
+        #: a robot resting there tries them again only once it or its target has moved.
+        self._no_escape_at: tuple[np.ndarray, np.ndarray] | None = None
 
     # --- construction ------------------------------------------------------------------
 
@@ -201,6 +204,7 @@ class TrackingMpc:
         model, settings, N = self.model, self.settings, self.horizon
         nx, nu = model.nx, model.nu
         F = model.discrete_dynamics(settings.sample_time, settings.substeps)
+        self._dynamics = F
         n_theta = self._Mx.shape[1]
         n_cell = self.cell_rows
         n_slack = 1 if n_cell else 0
@@ -363,6 +367,7 @@ class TrackingMpc:
     def reset(self) -> None:
         """Forget the warm start (next solve starts cold)."""
         self._guess = self._lam_g = self._lam_x = None
+        self._no_escape_at = None
 
     def _carried(self, theta: np.ndarray) -> np.ndarray:
         """The stage-constant part of z: theta, then the keep-apart slack (0) if any."""
@@ -411,6 +416,39 @@ class TrackingMpc:
             if len(column) == 1:
                 theta[column[0]] += 2 * np.pi * turns / self._Mx[index, column[0]]
         return self._pack(states, inputs, theta) if changed else w
+
+    def _tried_here(self, x0: np.ndarray, target: np.ndarray) -> bool:
+        """The second starts already failed from this state towards this target."""
+        if self._no_escape_at is None:
+            return False
+        state, tried_target = self._no_escape_at
+        return (
+            np.abs(x0 - state).max() < STALL_DISTANCE
+            and np.abs(target - tried_target).max() < STALL_DISTANCE
+        )
+
+    def _escape_guesses(self, x0: np.ndarray, target: np.ndarray) -> list[np.ndarray]:
+        """Second starts for a stalled solve: the straight drive towards the target, then the
+        vehicle's manoeuvres (VehicleModel.manoeuvre_inputs) rolled out from x0, each
+        ending at rest on the steady state where it stops. A car whose target lies beside
+        it needs a shunt: no straight guess leads the solver there (measured: a car-like
+        robot resting 0.26 m beside its target stayed there from the straight guess; a
+        shunt guess brought its steady state 0.13 m closer in one solve)."""
+        guesses = []
+        straight = self._escape_guess(x0, target)
+        if straight is not None:
+            guesses.append(straight)
+        for inputs in self.model.manoeuvre_inputs(self.horizon, self.settings.sample_time):
+            states = [x0]
+            for u in inputs:
+                states.append(np.asarray(self._dynamics(states[-1], u), float).reshape(-1))
+            states_array = np.array(states)
+            theta, *_ = np.linalg.lstsq(self._Mx, states_array[-1] - self._x0s, rcond=None)
+            states_array[-1] = self._Mx @ theta + self._x0s
+            guesses.append(
+                self._pack(states_array, np.asarray(inputs, float), self._carried(theta))
+            )
+        return guesses
 
     def _escape_guess(self, x0: np.ndarray, target: np.ndarray) -> np.ndarray | None:
         """A guess that drives ESCAPE_DISTANCE towards the target (heading along the way),
@@ -521,14 +559,15 @@ class TrackingMpc:
         run = self._run(guess, parameters, warm_duals=True)
         final, status = run.final, run.status
         solve_time, iterations, success = run.elapsed, run.iterations, run.success
-        if success and self._stalled(final.x, x0, target):
-            escape = self._escape_guess(x0, target)
-            if escape is not None:
+        if success and self._stalled(final.x, x0, target) and not self._tried_here(x0, target):
+            improved = False
+            for escape in self._escape_guesses(x0, target):
                 retry = self._run(escape, parameters, warm_duals=False)
                 solve_time += retry.elapsed
                 iterations += retry.iterations
                 if retry.success and retry.final.cost < final.cost - 1e-9:
-                    final, status = retry.final, retry.status
+                    final, status, improved = retry.final, retry.status, True
+            self._no_escape_at = None if improved else (x0.copy(), target.copy())
         if success:
             self._guess = self._shifted(final.x)
             self._lam_g, self._lam_x = final.lam_g, final.lam_x

@@ -140,6 +140,13 @@ class VehicleModel(ABC):
     def steady_states(self) -> SteadyStateFamily:
         """The family of steady states the tracking MPC may choose from."""
 
+    def manoeuvre_inputs(self, horizon: int, sample_time: float) -> list[np.ndarray]:
+        """Input sequences (each (horizon, nu), inside the limits, starting and ending at
+        rest) that move the vehicle where no straight drive can: the MPC's second starts
+        when its solve stalls short of the target (control/mpc.py). None by default: a
+        vehicle that can move towards any point from rest needs none."""
+        return []
+
     @abstractmethod
     def braking_input(self, x: np.ndarray) -> np.ndarray:
         """An input inside the limits that brings the vehicle towards rest (used when the

@@ -97,6 +97,29 @@ class CarLikeModel(VehicleModel):
         Mx[0, 0] = Mx[1, 1] = Mx[2, 2] = 1.0
         return SteadyStateFamily(("x", "y", "yaw"), Mx, np.zeros(4), np.zeros((2, 3)), np.zeros(2))
 
+    def manoeuvre_inputs(self, horizon: int, sample_time: float) -> list[np.ndarray]:
+        """Shunts: half the horizon one way on full lock, the other half back on the
+        opposite lock (a parallel shift sideways, common practice), for either lock and
+        either direction first. Each leg speeds up and slows down again at the same rate,
+        slow enough to stay within the reverse speed limit; none without reversing."""
+        leg = horizon // 2
+        if self.max_reverse_speed <= 0.0 or leg < 2:
+            return []
+        ramp = leg // 2
+        peak = 0.8 * min(self.max_reverse_speed, self.max_speed)
+        rate = min(peak / (ramp * sample_time), self.max_acceleration, self.max_deceleration)
+        profile = np.r_[np.full(ramp, rate), np.full(leg - ramp, -rate * ramp / (leg - ramp))]
+        sequences = []
+        for lock in (self.max_steering_angle, -self.max_steering_angle):
+            for first in (1.0, -1.0):
+                inputs = np.zeros((horizon, 2))
+                inputs[:leg, 0] = first * profile
+                inputs[:leg, 1] = lock
+                inputs[leg : 2 * leg, 0] = -first * profile
+                inputs[leg : 2 * leg, 1] = -lock
+                sequences.append(inputs)
+        return sequences
+
     def braking_input(self, x: np.ndarray) -> np.ndarray:
         # Stop within one command period if the limits allow (v' = a exactly), wheels straight.
         lower, upper = self.input_bounds()
