@@ -20,7 +20,10 @@ solve time). For every vehicle file and two solver paths (the shipped default `f
 neighbours x 2 snapshots = 12 rows) is given the same states of one closed loop (the loop
 with rows drives the plant) past eight invented neighbours standing in the block; the
 rows come from control/keep_apart.CellWindow with a snapshot every sample. Printed: median /
-95th percentile without and with rows, their ratio, and the largest row slack used.
+95th percentile without and with rows, their ratio, the largest row slack used, and the
+median / largest number of real rows per solve (CellRows.used: rows within the robot's reach;
+the rest of the 12 are padding rows, which the MPC leaves out by solving the problem built
+for the smallest row budget that holds the real ones, control/mpc.CELL_ROW_BUDGETS).
 
 Timing: CPU time of this process around each solver call (time.process_time). The machine
 is shared (2 cores, load often far above 2), and wall-clock time then measures the other
@@ -245,6 +248,7 @@ def run_cells(path: Path, steps: int, solver: dict) -> dict[str, object]:
     x = np.zeros(model.nx)
     x[[i, j]] = START
     times: dict[str, list[float]] = {"plain": [], "rows": []}
+    used: list[int] = []
     largest_slack = 0.0
     for k in range(steps):
         target = np.array(TARGETS[min(k * len(TARGETS) // steps, len(TARGETS) - 1)])
@@ -263,17 +267,23 @@ def run_cells(path: Path, steps: int, solver: dict) -> dict[str, object]:
         if k > 0:
             times["plain"].append(elapsed_plain)
             times["rows"].append(elapsed_rows)
+            used.append(rows.used)
         x = np.array(F(x, answer.first_input)).reshape(-1)
     stats = {name: np.percentile(v, [50, 95]) * 1e3 for name, v in times.items()}
     return {"model": model.kind, "stats": stats,
-            "ratio": stats["rows"][0] / stats["plain"][0], "slack": largest_slack}
+            "ratio": stats["rows"][0] / stats["plain"][0], "slack": largest_slack,
+            "used": (float(np.median(used)), max(used))}
 
 
 def main_cells(files: list[Path], steps: int) -> int:
     print(f"keep-apart rows: {CELL_ROWS} rows, {steps} closed-loop samples; CPU ms per solve as")
     print("median/95th percentile without and with rows on the same states; ratio = medians")
-    print("(issue 12: at most 1.30); slack = largest keep-apart slack used (m)")
-    header = f"{'model':<20}{'path':<11}{'no rows':>15}{'12 rows':>15}{'ratio':>8}{'slack':>10}"
+    print("(issue 12: at most 1.30); slack = largest keep-apart slack used (m); rows used =")
+    print("real rows per solve (within reach; the rest are padding), median/largest")
+    header = (
+        f"{'model':<20}{'path':<11}{'no rows':>15}{'12 rows':>15}{'ratio':>8}{'slack':>10}"
+        f"{'rows used':>11}"
+    )
     print(header)
     print("-" * len(header))
     for solver in ({"path": "full"}, {"path": "real_time", "compile": True}):
@@ -284,7 +294,7 @@ def main_cells(files: list[Path], steps: int) -> int:
                 f"{r['model']:<20}{solver['path']:<11}"
                 f"{st['plain'][0]:>8.2f}/{st['plain'][1]:<6.2f}"
                 f"{st['rows'][0]:>8.2f}/{st['rows'][1]:<6.2f}{r['ratio']:>7.2f}x"
-                f"{r['slack']:>10.1e}",
+                f"{r['slack']:>10.1e}{r['used'][0]:>8g}/{r['used'][1]:<2d}",
                 flush=True,
             )
     return 0

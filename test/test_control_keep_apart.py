@@ -140,3 +140,68 @@ def test_lowered_terminal_level_keeps_the_decrease_condition() -> None:
         decrease = e_next @ small.P @ e_next - e @ small.P @ e + stage
         assert decrease <= 1e-9 * max(1.0, e @ small.P @ e)
         assert np.sqrt(e[:2] @ e[:2]) <= 0.1 + 1e-9
+
+
+def test_padding_rows_left_out_give_the_same_closed_loop() -> None:
+    """The MPC leaves out padding rows (normal 0) and solves the problem built for the
+    smallest row budget that holds the rest. A constraint that cannot bind carries a zero
+    multiplier and leaves the optimality conditions unchanged (Nocedal & Wright, Numerical
+    Optimization, 2nd ed., 2006, section 12.3, the KKT conditions; a padding row reads
+    sigma >= pad - c with c >= pad, and the optimal sigma is >= 0). So the closed loop
+    with budgets matches the one of the problem built for all 12 rows alone, through
+    changes of budget (no real rows, two, five, one: the warm start's multipliers carried
+    between problems)."""
+    spec = spec_for("differential_drive")
+    terminal, _ = terminal_for_vehicle(spec)
+    rows = 12
+    budgeted = TrackingMpc(spec.model, spec.mpc, REGION.halfspaces(), terminal, cell_rows=rows)
+    single = TrackingMpc(
+        spec.model, spec.mpc, REGION.halfspaces(), terminal, cell_rows=rows, row_budgets=()
+    )
+    assert budgeted.row_budgets == (2, 4, 8, 12) and single.row_budgets == (12,)
+    ahead = [((1.0, 0.0), 2.0), ((1.0, 0.1), 2.05)]  # a neighbour ahead, two snapshots
+    far = [((0.0, 1.0), 5.0), ((0.0, -1.0), 5.0), ((-1.0, 0.0), 5.0)]
+    schedule = [[]] * 5 + [ahead] * 15 + [ahead + far] * 10 + [ahead[:1]] * 10
+
+    def rows_of(real):
+        normals, offsets = np.zeros((rows, 2)), np.ones(rows)
+        for k, (normal, offset) in enumerate(real):
+            n = np.asarray(normal, float)
+            normals[k], offsets[k] = n / np.linalg.norm(n), offset / np.linalg.norm(n)
+        return normals, offsets
+
+    x = np.zeros(spec.model.nx)
+    target = np.array([4.0, 0.5])
+    F = spec.model.discrete_dynamics(spec.mpc.sample_time, spec.mpc.substeps)
+    budgets = []
+    for real in schedule:
+        cell = rows_of(real)
+        a, b = budgeted.solve(x, target, cell), single.solve(x, target, cell)
+        assert a.success and b.success
+        budgets.append(a.row_budget)
+        assert b.row_budget == rows
+        # Two solves to fatrop's tolerance (1e-5 on the KKT residual, solver_chain.
+        # SOLVER_DEFAULTS): they agree to 1e-5 on the way and to about 2e-4 where the robot
+        # creeps along its cell's edge (many iterations, a flat optimum).
+        assert np.max(np.abs(a.first_input - b.first_input)) < 1e-3
+        assert np.max(np.abs(a.predicted_states - b.predicted_states)) < 1e-3
+        assert abs(a.cell_violation - b.cell_violation) < 1e-5
+        x = np.array(F(x, a.first_input)).ravel()
+    assert budgets == [2] * 5 + [2] * 15 + [8] * 10 + [2] * 10
+    # The neighbour's row held (soft row: the slack stays at micrometres here).
+    assert x[0] <= 2.0 - budgeted.cell_pad + 1e-3
+
+
+def test_a_zero_normal_row_that_can_bind_is_kept() -> None:
+    """A row 0 . p <= c with c below the pad cannot be met (an empty cell): it is not a
+    padding row, so it stays and the slack takes it up exactly: sigma = max(pad,
+    terminal extent) - c (the row read as sigma >= pad - c, arithmetic)."""
+    spec = spec_for("multirotor")
+    terminal, _ = terminal_for_vehicle(spec)
+    mpc = TrackingMpc(spec.model, spec.mpc, REGION.halfspaces(), terminal, cell_rows=ROWS)
+    normals, offsets = padded([])
+    offsets[0] = -0.1
+    solution = mpc.solve(np.zeros(spec.model.nx), np.array([1.0, 0.0]), (normals, offsets))
+    assert solution.success and solution.row_budget == 2
+    expected = max(mpc.cell_pad, mpc.terminal.position_extent) + 0.1
+    assert solution.cell_violation == pytest.approx(expected, abs=1e-6)

@@ -34,6 +34,11 @@ carried through the horizon like theta, relaxes every cell row at a quadratic pr
 CELL_PENALTY; the solution reports it (`cell_violation`), and a feasible cell leaves it at
 tens of micrometres (the multiplier over twice the penalty).
 
+The problem is built for `cell_rows` rows and for the smaller row budgets CELL_ROW_BUDGETS;
+a solve leaves out the padding rows it was given (normal 0: they cannot bind) and takes the
+smallest problem that holds the rest, so a robot pays for the neighbours within its reach,
+not for the fleet's worst case (`MpcSolution.row_budget` says which answered).
+
 Headings stay continuous (frames.py); the steady heading is a free parameter.
 
 Who solves it: solver_chain.py (by default a real-time SQP step, rti.py, then the full solve
@@ -44,6 +49,7 @@ layout of its rows; a row added here must keep that layout (dynamics first in ea
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from dataclasses import dataclass
 
 import casadi as ca
@@ -57,6 +63,7 @@ from coverage_fleet.control.solver_chain import (
     ChainResult,
     FastProblem,
     NlpInstance,
+    SolverChain,
     build_solver_chain,
     configured_path,
     configured_plugin,
@@ -81,6 +88,22 @@ KEEP_APART_TERMINAL_EXTENT = 0.2
 #: Price of the keep-apart slack (cost units per square metre): large against the offset
 #: and tracking costs, so a feasible cell is kept to micrometres.
 CELL_PENALTY = 1e7
+#: Keep-apart row counts the problem is also built for, besides `cell_rows` itself: a solve
+#: takes the smallest that holds the rows it was given (padding rows left out, see
+#: TrackingMpc._cell_instance). Why: every row of the problem costs solve time at every
+#: stage, padding or not (function evaluations and the dense stage blocks of fatrop and
+#: HPIPM), while most solves honour a few rows: two per neighbour within reach, one per
+#: snapshot in the window. Measured (benchmarks/mpc_benchmark.py --keep-apart, the rover,
+#: 2 real rows of 12): 12 rows cost about 1.35x the median solve time without rows, 2 rows
+#: about 1.15x. Infinite bounds on the padding rows instead do not help: casadi's HPIPM
+#: interface clips them to 1e8 (the rows stay), and fatrop, given rows free on both sides,
+#: failed 8 times in 120 samples against 2 (its rescue then answered most samples). Each
+#: budget is one more problem to build (and to compile with `mpc.solver.compile`); a budget
+#: of 0 saved little more than one of 2.
+CELL_ROW_BUDGETS = (2, 4, 8)
+#: Offset given to the padding rows a budget's problem is filled up with (metres above the
+#: pad: 0 . p - sigma <= offset - pad never binds, see TrackingMpc._cell_instance).
+PADDING_ROW_OFFSET = 1.0
 
 
 @dataclass(frozen=True)
@@ -89,6 +112,21 @@ class SteadyStatePoint:
     input: np.ndarray
     parameter: np.ndarray
     position: np.ndarray
+
+
+@dataclass(frozen=True)
+class _BuiltProblem:
+    """The problem built for one keep-apart row count (`rows`, one of the budgets)."""
+
+    rows: int
+    chain: SolverChain
+    lbg: np.ndarray
+    ubg: np.ndarray
+    #: (row groups, rows): the index in g of cell row m of each group (one group per stage
+    #: k >= 1, then the steady state).
+    cell_index: np.ndarray
+    #: Every other row of g, in order (the same rows, in the same order, in every budget).
+    other_index: np.ndarray
 
 
 @dataclass(frozen=True)
@@ -105,6 +143,9 @@ class MpcSolution:
     solve_time: float
     #: The keep-apart slack sigma (metres; 0 without cell rows).
     cell_violation: float = 0.0
+    #: Keep-apart rows of the problem that answered: the smallest row budget holding the
+    #: rows that can bind (padding fills the rest; 0 without cell rows).
+    row_budget: int = 0
 
 
 def _region_offsets(A: np.ndarray, b: np.ndarray, distance: float) -> np.ndarray:
@@ -146,13 +187,22 @@ class TrackingMpc:
         region_halfspaces: tuple[np.ndarray, np.ndarray],
         terminal: TerminalIngredients | None = None,
         cell_rows: int = 0,
+        row_budgets: Sequence[int] | None = None,
     ) -> None:
         """cell_rows: how many keep-apart rows each solve takes (0: none, the problem is
-        exactly the one without keep-apart)."""
+        exactly the one without keep-apart). row_budgets: the smaller row counts the
+        problem is also built for (None: CELL_ROW_BUDGETS; () builds only cell_rows)."""
         _require_checked(model, settings, terminal)
         if cell_rows < 0:
             raise ValueError(f"cell_rows must be >= 0, got {cell_rows}")
         self.cell_rows = int(cell_rows)
+        budgets = CELL_ROW_BUDGETS if row_budgets is None else tuple(row_budgets)
+        if any(int(b) != b or b < 0 for b in budgets):
+            raise ValueError(f"row budgets must be whole numbers >= 0, got {list(budgets)}")
+        #: Row counts built: the budgets below cell_rows, then cell_rows.
+        self.row_budgets = tuple(
+            sorted({int(b) for b in budgets if b < self.cell_rows} | {self.cell_rows})
+        )
         if terminal is None:
             terminal = (
                 compute_terminal_ingredients(model, settings)
@@ -187,27 +237,33 @@ class TrackingMpc:
             model.max_planar_speed * settings.sample_time / 2.0 if self.cell_rows else 0.0
         )
         self.plugin = configured_plugin(settings)
-        self._build(self.plugin)
+        self._problems: dict[int, _BuiltProblem] = {}
+        for rows in reversed(self.row_budgets):
+            shared = self._problems[self.cell_rows].chain.skip_left if self._problems else None
+            self._problems[rows] = self._build(self.plugin, rows, shared)
         self._guess: np.ndarray | None = None
         self._lam_g: np.ndarray | None = None
         self._lam_x: np.ndarray | None = None
         #: (measured state, target) of the last stalled solve no second start improved:
         #: a robot resting there tries them again only once it or its target has moved.
         self._no_escape_at: tuple[np.ndarray, np.ndarray] | None = None
+        #: The budget whose problem gave _lam_g (its rows differ from another budget's).
+        self._lam_rows = self.cell_rows
 
     # --- construction ------------------------------------------------------------------
 
-    def _build(self, plugin: str) -> None:
+    def _build(self, plugin: str, n_cell: int, skip_left: list[int] | None) -> _BuiltProblem:
         """Stage-wise NLP: stage k holds z_k = (x_k, theta_k) and u_k; theta is carried as a
         constant state (theta_{k+1} = theta_k) so that every constraint touches one stage
-        or two neighbouring ones, the block structure structure-exploiting solvers need."""
+        or two neighbouring ones, the block structure structure-exploiting solvers need.
+        n_cell: the keep-apart rows of this build (a budget); the variables are the same
+        in every budget (the slack is there whenever cell_rows > 0)."""
         model, settings, N = self.model, self.settings, self.horizon
         nx, nu = model.nx, model.nu
         F = model.discrete_dynamics(settings.sample_time, settings.substeps)
         self._dynamics = F
         n_theta = self._Mx.shape[1]
-        n_cell = self.cell_rows
-        n_slack = 1 if n_cell else 0
+        n_slack = 1 if self.cell_rows else 0
         nz = nx + n_theta + n_slack
         Z = [ca.SX.sym(f"z{k}", nz) for k in range(N + 1)]
         U = [ca.SX.sym(f"u{k}", nu) for k in range(N)]
@@ -248,8 +304,12 @@ class TrackingMpc:
             lbg.append(np.broadcast_to(np.asarray(lower, float), (n,)).copy())
             ubg.append(np.broadcast_to(np.asarray(upper, float), (n,)).copy())
 
+        #: Where each group of cell rows starts in g.
+        cell_starts: list[int] = []
+
         def cell(position: ca.SX, sigma: ca.SX, pad: float) -> None:
             if n_cell:
+                cell_starts.append(sum(e.shape[0] for e in g))
                 add(ca.mtimes(cell_normals, position) - sigma - cell_offsets + pad, -np.inf, 0.0)
 
         def path(x: ca.SX, sigma: ca.SX) -> None:
@@ -309,7 +369,7 @@ class TrackingMpc:
             add(ca.mtimes(ca.DM(u_steady.G_dep), u_s), -np.inf, u_steady.g_dep)
         add(ca.mtimes(A_r, p_s), -np.inf, self.steady_region_b)
         cell(p_s, sigma, self.terminal.position_extent)
-        if n_cell:
+        if n_slack:
             cost += CELL_PENALTY * ca.sumsqr(sigma)
             terms.append(LeastSquaresTerm(sigma, CELL_PENALTY * np.eye(1)))
         if self.terminal.kind == "equality":
@@ -352,14 +412,23 @@ class TrackingMpc:
             "g": ca.vertcat(*g),
         }
         self._lbw, self._ubw = np.concatenate(lbw), np.concatenate(ubw)
-        self._lbg, self._ubg = np.concatenate(lbg), np.concatenate(ubg)
         self._nz = nz
         self._n_theta = n_theta
-        self._chain = build_solver_chain(
+        lbg_all, ubg_all = np.concatenate(lbg), np.concatenate(ubg)
+        cell_index = np.array(
+            [np.arange(start, start + n_cell) for start in cell_starts], dtype=int
+        ).reshape(len(cell_starts), n_cell)
+        other = np.ones(len(lbg_all), dtype=bool)
+        other[cell_index.reshape(-1)] = False
+        chain = build_solver_chain(
             nlp,
             settings,
-            [bool(v) for v in self._lbg == self._ubg],
+            [bool(v) for v in lbg_all == ubg_all],
             FastProblem(terms, quadratic_rows, StageLayout(N, nz, nu, path_rows)),
+            skip_left,
+        )
+        return _BuiltProblem(
+            n_cell, chain, lbg_all, ubg_all, cell_index, np.nonzero(other)[0]
         )
 
     # --- solving -----------------------------------------------------------------------
@@ -480,13 +549,13 @@ class TrackingMpc:
         x0: np.ndarray,
         target: np.ndarray,
         cell: tuple[np.ndarray, np.ndarray] | None,
-    ) -> np.ndarray:
-        """The parameter vector: measured state, target, then the cell rows (normals column
-        by column, as casadi's vec stacks them, then offsets)."""
+    ) -> tuple[np.ndarray, _BuiltProblem]:
+        """The parameter vector (measured state, target, then the cell rows: normals column
+        by column, as casadi's vec stacks them, then offsets) and the problem it is for."""
         if not self.cell_rows:
             if cell is not None:
                 raise ValueError("this MPC was built without keep-apart rows (cell_rows=0)")
-            return np.concatenate([x0, target])
+            return np.concatenate([x0, target]), self._problems[0]
         if cell is None:
             raise ValueError(
                 f"this MPC takes {self.cell_rows} keep-apart rows at every solve; a robot "
@@ -501,22 +570,69 @@ class TrackingMpc:
             )
         if not (np.all(np.isfinite(normals)) and np.all(np.isfinite(offsets))):
             raise ValueError("keep-apart rows must be finite")
-        return np.concatenate([x0, target, normals.reshape(-1, order="F"), offsets])
+        normals, offsets = self._cell_instance(normals, offsets)
+        problem = self._problems[len(offsets)]
+        return (
+            np.concatenate([x0, target, normals.reshape(-1, order="F"), offsets]),
+            problem,
+        )
+
+    def _cell_instance(
+        self, normals: np.ndarray, offsets: np.ndarray
+    ) -> tuple[np.ndarray, np.ndarray]:
+        """The rows that can bind, in the order given, filled up with padding rows to the
+        smallest budget that holds them. A row with normal (0, 0) and offset c reads
+        sigma >= pad - c (pad: the cell pad on the path, the terminal extent at the steady
+        state); for c >= both pads it never binds, because the optimal sigma is >= 0 (a
+        negative sigma only tightens rows and adds cost), so leaving it out changes no
+        solution. Every other row is kept (a zero normal with a smaller offset would force
+        sigma > 0: an empty cell, honoured as given)."""
+        vacuous = np.all(normals == 0.0, axis=1) & (offsets >= self._vacuous_offset)
+        kept = ~vacuous
+        count = int(np.count_nonzero(kept))
+        budget = next(b for b in self.row_budgets if b >= count)
+        out_normals = np.zeros((budget, 2))
+        out_offsets = np.full(budget, self._vacuous_offset + PADDING_ROW_OFFSET)
+        out_normals[:count] = normals[kept]
+        out_offsets[:count] = offsets[kept]
+        return out_normals, out_offsets
+
+    @property
+    def _vacuous_offset(self) -> float:
+        return max(self.cell_pad, self.terminal.position_extent)
+
+    def _multipliers_for(self, problem: _BuiltProblem) -> np.ndarray | None:
+        """The last solve's constraint multipliers in `problem`'s row layout: the rows
+        outside the cell as they were, cell row m of each group from the same slot (slots
+        the last problem did not have start at 0)."""
+        if self._lam_g is None or self._lam_rows == problem.rows:
+            return self._lam_g
+        last = self._problems[self._lam_rows]
+        lam = np.zeros(len(problem.lbg))
+        lam[problem.other_index] = self._lam_g[last.other_index]
+        shared = min(last.rows, problem.rows)
+        if shared:
+            lam[problem.cell_index[:, :shared]] = self._lam_g[last.cell_index[:, :shared]]
+        return lam
 
     def _run(
-        self, guess: np.ndarray, parameters: np.ndarray, warm_duals: bool
+        self,
+        guess: np.ndarray,
+        parameters: np.ndarray,
+        problem: _BuiltProblem,
+        warm_duals: bool,
     ) -> ChainResult:
         warm = warm_duals and self._lam_g is not None
-        return self._chain.solve(
+        return problem.chain.solve(
             NlpInstance(
                 guess=guess,
                 parameters=parameters,
                 lbx=self._lbw,
                 ubx=self._ubw,
-                lbg=self._lbg,
-                ubg=self._ubg,
+                lbg=problem.lbg,
+                ubg=problem.ubg,
                 lam_x0=self._lam_x if warm else None,
-                lam_g0=self._lam_g if warm else None,
+                lam_g0=self._multipliers_for(problem) if warm else None,
             )
         )
 
@@ -550,19 +666,19 @@ class TrackingMpc:
         if not (np.all(np.isfinite(x0)) and np.all(np.isfinite(target))):
             # A NaN reaching fatrop from a cold start can keep it iterating for minutes.
             raise ValueError(f"state {x0.tolist()} and target {target.tolist()} must be finite")
-        parameters = self._parameters(x0, target, cell)
+        parameters, problem = self._parameters(x0, target, cell)
         guess = self._cold_guess(x0) if self._guess is None else self._guess
         guess = self._align_angles(guess, x0)
         states, inputs, theta = self._unpack(guess)
         states[0] = x0
         guess = self._pack(states, inputs, theta)
-        run = self._run(guess, parameters, warm_duals=True)
+        run = self._run(guess, parameters, problem, warm_duals=True)
         final, status = run.final, run.status
         solve_time, iterations, success = run.elapsed, run.iterations, run.success
         if success and self._stalled(final.x, x0, target) and not self._tried_here(x0, target):
             improved = False
             for escape in self._escape_guesses(x0, target):
-                retry = self._run(escape, parameters, warm_duals=False)
+                retry = self._run(escape, parameters, problem, warm_duals=False)
                 solve_time += retry.elapsed
                 iterations += retry.iterations
                 if retry.success and retry.final.cost < final.cost - 1e-9:
@@ -571,6 +687,7 @@ class TrackingMpc:
         if success:
             self._guess = self._shifted(final.x)
             self._lam_g, self._lam_x = final.lam_g, final.lam_x
+            self._lam_rows = problem.rows
         else:
             self._guess = self._shifted(guess)
             self._lam_g = self._lam_x = None
@@ -589,4 +706,5 @@ class TrackingMpc:
             iterations=iterations,
             solve_time=solve_time,
             cell_violation=float(carried[self._n_theta :].max(initial=0.0)),
+            row_budget=problem.rows,
         )

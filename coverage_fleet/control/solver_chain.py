@@ -175,12 +175,30 @@ class NlpsolStrategy:
 class SolverChain:
     """Strategies tried in order; see the module docstring for the policy."""
 
-    def __init__(self, strategies: Sequence[SolveStrategy], hold_samples: int) -> None:
+    def __init__(
+        self,
+        strategies: Sequence[SolveStrategy],
+        hold_samples: int,
+        skip_left: list[int] | None = None,
+    ) -> None:
+        """skip_left: the calls each strategy is still skipped for, shared with chains
+        that stand in for this one (the same problem built for fewer keep-apart rows,
+        mpc.py): a failure says the sample is hard, whichever size solved it."""
         if not strategies:
             raise ValueError("a solver chain needs at least one strategy")
         self.strategies = list(strategies)
         self.hold_samples = hold_samples
-        self._skip_left = [0] * len(self.strategies)
+        if skip_left is None:
+            skip_left = [0] * len(self.strategies)
+        if len(skip_left) != len(self.strategies):
+            raise ValueError("skip_left needs one count per strategy")
+        self._skip_left = skip_left
+
+    @property
+    def skip_left(self) -> list[int]:
+        """The skip counts themselves (not a copy): what a chain standing in for this one
+        is built with."""
+        return self._skip_left
 
     def solve(self, instance: NlpInstance) -> ChainResult:
         attempts: list[Attempt] = []
@@ -258,10 +276,11 @@ def build_solver_chain(
     settings: MpcSettings,
     equality: Sequence[bool],
     fast: FastProblem | None = None,
+    skip_left: list[int] | None = None,
 ) -> SolverChain:
     """The chain for an NLP in casadi's {x, p, f, g} form; `equality` flags the rows of g
     that are equalities (fatrop's structure detection needs them); `fast` enables the
-    real-time path when the settings ask for it."""
+    real-time path when the settings ask for it; `skip_left`: see SolverChain."""
     plugin = configured_plugin(settings)
     budget = int(settings.solver.get("max_iter", DEFAULT_MAX_ITER))
     rescued = plugin != RESCUE_PLUGIN
@@ -292,4 +311,4 @@ def build_solver_chain(
         )
         rescue = ca.nlpsol(f"tracking_mpc_{RESCUE_PLUGIN}", RESCUE_PLUGIN, nlp, rescue_options)
         strategies.append(NlpsolStrategy(RESCUE_PLUGIN, rescue))
-    return SolverChain(strategies, RESCUE_HOLD_SAMPLES)
+    return SolverChain(strategies, RESCUE_HOLD_SAMPLES, skip_left)
