@@ -150,11 +150,13 @@ def test_padding_rows_left_out_give_the_same_closed_loop() -> None:
     sigma >= pad - c with c >= pad, and the optimal sigma is >= 0). So the closed loop
     with budgets matches the one of the problem built for all 12 rows alone, through
     changes of budget (no real rows, two, five, one: the warm start's multipliers carried
-    between problems)."""
+    between problems), with the budgets' problems built on first use (as offline)."""
     spec = spec_for("differential_drive")
     terminal, _ = terminal_for_vehicle(spec)
     rows = 12
-    budgeted = TrackingMpc(spec.model, spec.mpc, REGION.halfspaces(), terminal, cell_rows=rows)
+    budgeted = TrackingMpc(
+        spec.model, spec.mpc, REGION.halfspaces(), terminal, cell_rows=rows, prebuild=False
+    )
     single = TrackingMpc(
         spec.model, spec.mpc, REGION.halfspaces(), terminal, cell_rows=rows, row_budgets=()
     )

@@ -60,9 +60,13 @@ class RobotController:
         region_halfspaces: tuple[np.ndarray, np.ndarray],
         terminal: TerminalIngredients | None = None,
         cell_rows: int = 0,
+        prebuild: bool = True,
     ) -> None:
+        """prebuild: see TrackingMpc (False: offline runs)."""
         self.model = model
-        self.mpc = TrackingMpc(model, settings, region_halfspaces, terminal, cell_rows)
+        self.mpc = TrackingMpc(
+            model, settings, region_halfspaces, terminal, cell_rows, prebuild=prebuild
+        )
         self._u_lower, self._u_upper = (np.asarray(v, float) for v in model.input_bounds())
         E, e = model.input_polytope()
         self._E, self._e = np.asarray(E, float).reshape(-1, model.nu), np.asarray(e, float)

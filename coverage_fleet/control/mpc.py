@@ -188,10 +188,15 @@ class TrackingMpc:
         terminal: TerminalIngredients | None = None,
         cell_rows: int = 0,
         row_budgets: Sequence[int] | None = None,
+        prebuild: bool = True,
     ) -> None:
         """cell_rows: how many keep-apart rows each solve takes (0: none, the problem is
         exactly the one without keep-apart). row_budgets: the smaller row counts the
-        problem is also built for (None: CELL_ROW_BUDGETS; () builds only cell_rows)."""
+        problem is also built for (None: CELL_ROW_BUDGETS; () builds only cell_rows).
+        prebuild: build every budget's problem now (a robot's solves then never wait for
+        a build); False builds each on its first use (offline runs, where start-up time
+        counts and a solve's wall time does not: a build takes 0.1-1 s, a first compile
+        with `mpc.solver.compile` tens of seconds)."""
         _require_checked(model, settings, terminal)
         if cell_rows < 0:
             raise ValueError(f"cell_rows must be >= 0, got {cell_rows}")
@@ -237,10 +242,10 @@ class TrackingMpc:
             model.max_planar_speed * settings.sample_time / 2.0 if self.cell_rows else 0.0
         )
         self.plugin = configured_plugin(settings)
-        self._problems: dict[int, _BuiltProblem] = {}
-        for rows in reversed(self.row_budgets):
-            shared = self._problems[self.cell_rows].chain.skip_left if self._problems else None
-            self._problems[rows] = self._build(self.plugin, rows, shared)
+        self._problems = {self.cell_rows: self._build(self.plugin, self.cell_rows, None)}
+        if prebuild:
+            for rows in self.row_budgets:
+                self._problem(rows)
         self._guess: np.ndarray | None = None
         self._lam_g: np.ndarray | None = None
         self._lam_x: np.ndarray | None = None
@@ -431,6 +436,14 @@ class TrackingMpc:
             n_cell, chain, lbg_all, ubg_all, cell_index, np.nonzero(other)[0]
         )
 
+    def _problem(self, rows: int) -> _BuiltProblem:
+        """The problem built for `rows` keep-apart rows (a budget), built now if not yet;
+        every budget's chain shares the full problem's failure holds."""
+        if rows not in self._problems:
+            shared = self._problems[self.cell_rows].chain.skip_left
+            self._problems[rows] = self._build(self.plugin, rows, shared)
+        return self._problems[rows]
+
     # --- solving -----------------------------------------------------------------------
 
     def reset(self) -> None:
@@ -571,7 +584,7 @@ class TrackingMpc:
         if not (np.all(np.isfinite(normals)) and np.all(np.isfinite(offsets))):
             raise ValueError("keep-apart rows must be finite")
         normals, offsets = self._cell_instance(normals, offsets)
-        problem = self._problems[len(offsets)]
+        problem = self._problem(len(offsets))
         return (
             np.concatenate([x0, target, normals.reshape(-1, order="F"), offsets]),
             problem,

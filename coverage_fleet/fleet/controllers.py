@@ -40,9 +40,11 @@ def sampled_controller(
     spec = entry.vehicle
     terminal, _ = terminal_for_vehicle(spec)
     layout = mission_cell_layout(mission)
+    # Offline, a keep-apart row budget's problem is built when first needed (start-up of
+    # large fleets; no solve waits in real time here).
     controller = RobotController(
         spec.model, spec.mpc, mission.region.halfspaces(), terminal,
-        cell_rows=0 if layout is None else layout.rows,
+        cell_rows=0 if layout is None else layout.rows, prebuild=False,
     )
     sampled = SampledController(
         controller,
