@@ -32,7 +32,10 @@ The cell rows are soft: a robot already outside its cell (measurement noise, lat
 neighbour that came close) would make hard rows infeasible, so one slack sigma,
 carried through the horizon like theta, relaxes every cell row at a quadratic price
 CELL_PENALTY; the solution reports it (`cell_violation`), and a feasible cell leaves it at
-tens of micrometres (the multiplier over twice the penalty).
+the multiplier over twice the penalty: tens of micrometres, up to about 0.5 mm while the
+target lies far beyond the cell (the offset cost pulls with 2 offset_weight times the
+distance; benchmarks/mpc_benchmark.py --keep-apart prints the largest), far inside the
+margin and pad the rows already keep.
 
 The problem is built for `cell_rows` rows and for the smaller row budgets CELL_ROW_BUDGETS;
 a solve leaves out the padding rows it was given (normal 0: they cannot bind) and takes the
