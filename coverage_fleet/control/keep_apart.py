@@ -15,8 +15,9 @@ v * sample_time / 2 from the nearer sample point, which the MPC keeps as a pad.
 
 Rows that the robot cannot reach over its horizon are inactive and dropped; the rest, the
 least slack first, fill a fixed number of rows (`rows`, padding rows 0 . p <= 1), so the
-MPC's problem is built once. A robot whose newest snapshot is older than `max_age` gets no
-rows: it brakes (`CellRows.reason` says why).
+MPC's problems are built once (it leaves the padding out and solves the smallest of its row
+budgets that holds the rest, control/mpc.CELL_ROW_BUDGETS). A robot whose newest snapshot
+is older than `max_age` gets no rows: it brakes (`CellRows.reason` says why).
 """
 
 from __future__ import annotations
