@@ -13,12 +13,14 @@ IEEE TAC 63(11), 2018), direct multiple shooting:
           A position(x_k) <= b - r |A_i|           (region shrunk by the footprint radius r)
           steady state: limits scaled by 1 - steady_state_margin towards rest (limits.py),
                         A position(x_s) <= b - (r + e_f) |A_i|  (e_f: terminal-set extent)
-          keep-apart (cell_rows > 0): n_m . position(x_k) - sigma <= c_m - pad  (k >= 1),
-                        n_m . position(x_s) - sigma <= c_m - e_f,
-                        cost + CELL_PENALTY * sigma^2
+          keep-apart (cell_rows > 0): n_m . position(x_k) - sigma_p <= c'_m - pad  (k >= 1),
+                        n_m . position(x_s) - sigma_s <= c_m - e_f,
+                        A position(x_s) - sigma_s <= b - (r + e_f) |A_i|  (instead of above),
+                        cost + CELL_PENALTY sigma_p^2 + STEADY_CELL_PENALTY sigma_s^2
                         (rows n_m . p <= c_m: the robot's buffered cell, parameters of the
                         problem, control/keep_apart.py; pad = v_max * sample_time / 2, how
-                        far the centre strays between two samples from the nearer one)
+                        far the centre strays between two samples from the nearer one;
+                        c'_m = max(c_m, n_m . p_0 + pad), see below)
           terminal:     ellipsoid  e_N' P e_N <= alpha   (e_N = steady_frame_error(x_N, x_s)),
                         (real-time path: as e'Pe/alpha <= 1, plus its implied bounding box
                         along the principal axes of P)
@@ -29,13 +31,22 @@ admissible steady state closest to it (the tracking property of the references a
 the projection of the target onto the doubly shrunk region (and the buffered cell).
 
 The cell rows are soft: a robot already outside its cell (measurement noise, latency, a
-neighbour that came close) would make hard rows infeasible, so one slack sigma,
-carried through the horizon like theta, relaxes every cell row at a quadratic price
-CELL_PENALTY; the solution reports it (`cell_violation`), and a feasible cell leaves it at
-the multiplier over twice the penalty: tens of micrometres, up to about 0.5 mm while the
-target lies far beyond the cell (the offset cost pulls with 2 offset_weight times the
-distance; benchmarks/mpc_benchmark.py --keep-apart prints the largest), far inside the
-margin and pad the rows already keep.
+neighbour that came close, packed starts) would make hard rows infeasible. For the
+predicted positions every row the robot stands beyond, or within the pad of, is moved out
+to its measured position plus the pad (c'_m, a function of the parameters): staying put
+is feasible and going farther out is not, so their slack sigma_p, carried through the
+horizon like theta at the price CELL_PENALTY, pays only for what the robot's speed
+carries it past before it can turn. The steady state keeps the rows where they are (so
+the plan comes back into the cell) with a slack of its own, sigma_s (cheaper), shared
+with its region rows: a packed robot's cell may be empty, or conflict with the region's
+steady-state margin, and one slack for both would free every row of the plan by as much
+(measured: a multirotor packed against the region's edge and a rover's footprint, its
+steady state held 0.2 m off the edge, drove 0.009 m into the rover; a rover in a pack
+paid 0.095 m of slack at every sample and crept on). The solution reports sigma_p
+(`cell_violation`, tens of micrometres in a feasible cell: the multiplier over twice the
+penalty) and sigma_s (`steady_cell_violation`: up to a few millimetres while the target
+lies far beyond the cell, where the offset cost pulls with 2 offset_weight times the
+distance against 2 STEADY_CELL_PENALTY sigma_s).
 
 The problem is built for `cell_rows` rows and for the smaller row budgets CELL_ROW_BUDGETS;
 a solve leaves out the padding rows it was given (normal 0: they cannot bind) and takes the
@@ -88,8 +99,8 @@ ESCAPE_DISTANCE = 1.0
 #: to it (TerminalIngredients.within_extent), so the steady state may come this close to
 #: its cell's edge; our choice, about the pad of the faster vehicles.
 KEEP_APART_TERMINAL_EXTENT = 0.2
-#: Price of the keep-apart slack (cost units per square metre): large against the offset
-#: and tracking costs, so a feasible cell is kept to micrometres.
+#: Price of the keep-apart slack of the predicted positions (cost units per square metre):
+#: large against the offset and tracking costs, so a feasible cell is kept to micrometres.
 CELL_PENALTY = 1e7
 #: Keep-apart row counts the problem is also built for, besides `cell_rows` itself: a solve
 #: takes the smallest that holds the rows it was given (padding rows left out, see
@@ -107,6 +118,11 @@ CELL_ROW_BUDGETS = (2, 4, 8)
 #: Offset given to the padding rows a budget's problem is filled up with (metres above the
 #: pad: 0 . p - sigma <= offset - pad never binds, see TrackingMpc._cell_instance).
 PADDING_ROW_OFFSET = 1.0
+#: Price of the steady state's keep-apart slack: a hundredth of the path's, so a plan never
+#: buys a smaller steady-state violation with a path violation (at equal prices a packed
+#: rover split them and drove 0.02 m into its neighbour); large against the offset cost,
+#: so a target far beyond the cell moves the steady state out by millimetres at most.
+STEADY_CELL_PENALTY = 1e5
 
 
 @dataclass(frozen=True)
@@ -144,8 +160,10 @@ class MpcSolution:
     success: bool
     iterations: int
     solve_time: float
-    #: The keep-apart slack sigma (metres; 0 without cell rows).
+    #: The keep-apart slack of the predicted positions (metres; 0 without cell rows).
     cell_violation: float = 0.0
+    #: The steady state's keep-apart slack (metres; its cell and region rows).
+    steady_cell_violation: float = 0.0
     #: Keep-apart rows of the problem that answered: the smallest row budget holding the
     #: rows that can bind (padding fills the rest; 0 without cell rows).
     row_budget: int = 0
@@ -271,7 +289,8 @@ class TrackingMpc:
         F = model.discrete_dynamics(settings.sample_time, settings.substeps)
         self._dynamics = F
         n_theta = self._Mx.shape[1]
-        n_slack = 1 if self.cell_rows else 0
+        # Two slacks: the predicted positions' (sigma_p) and the steady state's (sigma_s).
+        n_slack = 2 if self.cell_rows else 0
         nz = nx + n_theta + n_slack
         Z = [ca.SX.sym(f"z{k}", nz) for k in range(N + 1)]
         U = [ca.SX.sym(f"u{k}", nu) for k in range(N)]
@@ -315,16 +334,25 @@ class TrackingMpc:
         #: Where each group of cell rows starts in g.
         cell_starts: list[int] = []
 
-        def cell(position: ca.SX, sigma: ca.SX, pad: float) -> None:
+        def cell(position: ca.SX, sigma: ca.SX, offsets: ca.SX, pad: float) -> None:
             if n_cell:
                 cell_starts.append(sum(e.shape[0] for e in g))
-                add(ca.mtimes(cell_normals, position) - sigma - cell_offsets + pad, -np.inf, 0.0)
+                add(ca.mtimes(cell_normals, position) - sigma - offsets + pad, -np.inf, 0.0)
+
+        # Rows the robot stands beyond, or within the pad of, move out to where it stands
+        # plus the pad for the predicted positions (held_offsets): staying put is feasible
+        # and going farther out is not, so the path slack pays only for what the robot's
+        # speed carries it past. The steady state keeps every row where it is. (Padding
+        # rows, normal 0, keep their offset: it exceeds the pad.)
+        along = ca.mtimes(cell_normals, ca.vertcat(measured[i], measured[j]))
+        held_offsets = ca.fmax(cell_offsets, along + self.cell_pad)
 
         def path(x: ca.SX, sigma: ca.SX) -> None:
             if len(g_x):
                 add(ca.mtimes(ca.DM(G_x), x), -np.inf, g_x)
             add(ca.mtimes(A_r, ca.vertcat(x[i], x[j])), -np.inf, self.path_region_b)
-            cell(ca.vertcat(x[i], x[j]), sigma, self.cell_pad)
+            if n_cell:
+                cell(ca.vertcat(x[i], x[j]), sigma[0], held_offsets, self.cell_pad)
 
         w: list[ca.SX] = []
         lbw: list[np.ndarray] = []
@@ -375,11 +403,17 @@ class TrackingMpc:
             add(ca.mtimes(ca.DM(x_steady.G_dep), x_s), -np.inf, x_steady.g_dep)
         if len(u_steady.g_dep):
             add(ca.mtimes(ca.DM(u_steady.G_dep), u_s), -np.inf, u_steady.g_dep)
-        add(ca.mtimes(A_r, p_s), -np.inf, self.steady_region_b)
-        cell(p_s, sigma, self.terminal.position_extent)
         if n_slack:
-            cost += CELL_PENALTY * ca.sumsqr(sigma)
-            terms.append(LeastSquaresTerm(sigma, CELL_PENALTY * np.eye(1)))
+            # A packed robot's cell may be empty, or lie beyond the region's steady-state
+            # margin: the steady state's rows (cell and region) share their own slack, so
+            # such a conflict never frees the predicted positions' rows.
+            add(ca.mtimes(A_r, p_s) - sigma[1], -np.inf, self.steady_region_b)
+            cell(p_s, sigma[1], cell_offsets, self.terminal.position_extent)
+            weights = np.diag([CELL_PENALTY, STEADY_CELL_PENALTY])
+            cost += ca.bilin(ca.DM(weights), sigma, sigma)
+            terms.append(LeastSquaresTerm(sigma, weights))
+        else:
+            add(ca.mtimes(A_r, p_s), -np.inf, self.steady_region_b)
         if self.terminal.kind == "equality":
             width = terminal_equality_width(plugin)
             add(x_N - x_s, -width, width)
@@ -721,6 +755,7 @@ class TrackingMpc:
             success=success,
             iterations=iterations,
             solve_time=solve_time,
-            cell_violation=float(carried[self._n_theta :].max(initial=0.0)),
+            cell_violation=float(carried[self._n_theta :][:1].max(initial=0.0)),
+            steady_cell_violation=float(carried[self._n_theta + 1 :].max(initial=0.0)),
             row_budget=problem.rows,
         )
