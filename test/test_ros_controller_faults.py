@@ -7,7 +7,8 @@ Issue 9's rows for a controller:
   dropped and counted, and the controller keeps solving on the good states after it;
 - odometry with NaN, in another frame or at (1000, -1000): dropped, counted, never solved on;
 - a flood of odometry (1000 per second for 2 s): the states beyond max_state_rate (40 per
-  second here) are dropped and counted as a flood, and the controller goes on answering;
+  second here) are dropped and counted as a flood, no more good states than the rate
+  allows are solved on, and the controller goes on answering;
 - the robot outside the region (geofence): braking input first and an ERROR diagnostic;
   once at rest a return plan drives it towards the region; back inside it tracks again.
 
@@ -66,18 +67,25 @@ import sys, time, rclpy
 from nav_msgs.msg import Odometry
 from coverage_fleet.ros import conversions as cv, qos, topics
 from coverage_fleet.vehicles.base import OdometryValues
+from rclpy.duration import Duration
+ahead = Duration(seconds=float(sys.argv[1]))
 rclpy.init()
 node = rclpy.create_node("odom_flood")
 pub = node.create_publisher(Odometry, topics.robot_topic("rover_a", topics.ODOM), qos.STATE)
-time.sleep(1.0)  # discovery
+waited = time.monotonic() + 60.0
+while pub.get_subscription_count() == 0 and time.monotonic() < waited:
+    time.sleep(0.05)  # discovery: a flood sent before the controller matched is lost
+time.sleep(0.5)
+first = node.get_clock().now().nanoseconds * 1e-9
 start = time.monotonic()
 for k in range(2000):
-    pub.publish(cv.odometry_to_msg(OdometryValues(2.0, 1.0, 0.0), node.get_clock().now().to_msg(),
-                                   "rover_a/base_link"))
+    stamp = (node.get_clock().now() + ahead).to_msg()
+    pub.publish(cv.odometry_to_msg(OdometryValues(2.0, 1.0, 0.0), stamp, "rover_a/base_link"))
     pause = start + (k + 1) / 1000.0 - time.monotonic()
     if pause > 0:
         time.sleep(pause)
-print("sent 2000", flush=True)
+last = node.get_clock().now().nanoseconds * 1e-9
+print("sent 2000", pub.get_subscription_count(), first, last, flush=True)
 """
 
 
@@ -87,6 +95,8 @@ class Robot:
         self.node = rclpy.create_node("controller_fault_probe")
         self.commands: list[np.ndarray] = []
         self.solved_at: list[float] = []
+        #: (state time, solve time in s) per solve report
+        self.solve_times: list[tuple[float, float]] = []
         self.diagnostics: dict[str, str] = {}
         self.level = None
         self.message = ""
@@ -95,7 +105,7 @@ class Robot:
         )
         self.node.create_subscription(
             DiagnosticStatus, topics.robot_topic(ROBOT, topics.SOLVE),
-            lambda msg: self.solved_at.append(solve_from_msg(msg).state_time), qos.REPORTS,
+            self._on_solve, qos.REPORTS,
         )
         self.node.create_subscription(
             DiagnosticArray, topics.DIAGNOSTICS, self._on_diagnostics, qos.DISPLAY
@@ -109,6 +119,11 @@ class Robot:
         # Keep-apart: the fleet is this robot alone (a snapshot with each state sent).
         self.snapshots = SnapshotSender(self.node, MISSION, ROBOT)
         self.sending_snapshots = True
+
+    def _on_solve(self, msg: DiagnosticStatus) -> None:
+        solve = solve_from_msg(msg)
+        self.solved_at.append(solve.state_time)
+        self.solve_times.append((solve.state_time, solve.solve_time))
 
     def _on_command(self, msg: Twist) -> None:
         values = command_from_msg(msg, "twist")
@@ -204,18 +219,43 @@ def test_nan_wrong_frame_and_far_states_are_dropped_and_never_solved_on(robot: R
         assert marked not in robot.solved_at, reason
 
 
-def test_an_odometry_flood_is_cut_and_counted(robot: Robot) -> None:
-    flood = subprocess.Popen([sys.executable, "-c", FLOOD], stdout=subprocess.PIPE, text=True)
+def flood_and_wait(robot: Robot, ahead: float) -> tuple[float, float]:
+    """2000 states in 2 s from another process, stamped `ahead` seconds after now; returns
+    the span of their stamps."""
+    flood = subprocess.Popen([sys.executable, "-c", FLOOD, str(ahead)], stdout=subprocess.PIPE,
+                             text=True)
     deadline = time.monotonic() + PATIENCE
     while flood.poll() is None:
         assert time.monotonic() < deadline, "the flood never ended"
         rclpy.spin_once(robot.node, timeout_sec=0.05)
-    assert "sent 2000" in flood.stdout.read()
-    robot.drive_until(OdometryValues(2.0, 1.0, 0.0), lambda: robot.count("flood") > 0,
-                      "the flood counted")
+    words = flood.stdout.read().split()
+    assert words[:2] == ["sent", "2000"] and int(words[2]) >= 1, words  # matched the controller
+    return float(words[3]), float(words[4])
+
+
+def test_an_odometry_flood_is_cut_and_counted(robot: Robot) -> None:
+    """States beyond max_state_rate are dropped and counted; good states are taken at most
+    at that rate (plus the bucket's burst); the controller answers again afterwards.
+
+    The count is shown with a flood stamped an hour ahead: the controller drops each such
+    state cheaply after the rate check, so it receives the flood at full speed. A flood of
+    good states makes it solve inside its odometry callback, and its reader keeps only the
+    newest state (qos.STATE_IN); on a loaded machine, with solves longer than
+    1 / max_state_rate, the reader drops the excess before the rate check sees it, so the
+    count from that flood depends on the machine; the bound on the states taken does not."""
+    flooded_before = robot.count("flood")
+    flood_and_wait(robot, ahead=3600.0)
+    robot.drive_until(OdometryValues(2.0, 1.0, 0.0),
+                      lambda: robot.count("flood") > flooded_before, "the flood counted")
+    solved_before = len(robot.solve_times)
+    first, last = flood_and_wait(robot, ahead=0.0)
     solves = len(robot.solved_at)
     robot.drive_until(OdometryValues(2.0, 1.0, 0.0), lambda: len(robot.solved_at) > solves,
                       "solves after the flood")
+    during = [t for t, _ in robot.solve_times[solved_before:] if first <= t <= last]
+    burst = max(1.0, MAX_STATE_RATE / 10.0)  # controller_node.py's bucket
+    assert during, "no state of the good flood was taken"
+    assert len(during) <= MAX_STATE_RATE * (last - first) + burst + 1, (len(during), last - first)
 
 
 def test_outside_the_geofence_it_brakes_then_returns_then_tracks(robot: Robot) -> None:
