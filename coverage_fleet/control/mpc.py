@@ -16,7 +16,8 @@ IEEE TAC 63(11), 2018), direct multiple shooting:
           keep-apart (cell_rows > 0): n_m . position(x_k) - sigma_p <= c'_m - pad  (k >= 1),
                         n_m . position(x_s) - sigma_s <= c_m - e_f,
                         A position(x_s) - sigma_s <= b - (r + e_f) |A_i|  (instead of above),
-                        cost + CELL_PENALTY sigma_p^2 + STEADY_CELL_PENALTY sigma_s^2
+                        sigma_p >= 0, cost + CELL_PRICE sigma_p + CELL_PENALTY sigma_p^2
+                        + STEADY_CELL_PENALTY sigma_s^2
                         (rows n_m . p <= c_m: the robot's buffered cell, parameters of the
                         problem, control/keep_apart.py; pad = v_max * sample_time / 2, how
                         far the centre strays between two samples from the nearer one;
@@ -32,21 +33,26 @@ the projection of the target onto the doubly shrunk region (and the buffered cel
 
 The cell rows are soft: a robot already outside its cell (measurement noise, latency, a
 neighbour that came close, packed starts) would make hard rows infeasible. For the
-predicted positions every row the robot stands beyond, or within the pad of, is moved out
-to its measured position plus the pad (c'_m, a function of the parameters): staying put
-is feasible and going farther out is not, so their slack sigma_p, carried through the
-horizon like theta at the price CELL_PENALTY, pays only for what the robot's speed
-carries it past before it can turn. The steady state keeps the rows where they are (so
-the plan comes back into the cell) with a slack of its own, sigma_s (cheaper), shared
-with its region rows: a packed robot's cell may be empty, or conflict with the region's
-steady-state margin, and one slack for both would free every row of the plan by as much
-(measured: a multirotor packed against the region's edge and a rover's footprint, its
-steady state held 0.2 m off the edge, drove 0.009 m into the rover; a rover in a pack
-paid 0.095 m of slack at every sample and crept on). The solution reports sigma_p
-(`cell_violation`, tens of micrometres in a feasible cell: the multiplier over twice the
-penalty) and sigma_s (`steady_cell_violation`: up to a few millimetres while the target
-lies far beyond the cell, where the offset cost pulls with 2 offset_weight times the
-distance against 2 STEADY_CELL_PENALTY sigma_s).
+predicted positions every row the robot stands beyond, or within the pad of, is moved
+out to its measured position plus the pad (c'_m, a function of the parameters): staying
+put is feasible and going farther out is not, so their slack sigma_p, carried through
+the horizon like theta, pays only for what the robot's speed carries it past before it
+can turn. Its price is an exact penalty: linear, CELL_PRICE per metre, larger than the
+rows' multipliers, so whenever the rows can be held the slack is exactly 0 (Kerrigan &
+Maciejowski, "Soft constraints and exact penalty functions in model predictive control",
+UKACC Control 2000). A quadratic price alone always buys some violation (the multiplier
+over twice the price): measured, a car-like robot packed 9 mm from a rover drove 8 mm of
+slack, 7 mm into the rover, at a price of 1e7 per square metre. The steady state keeps
+the rows where they are (so the plan comes back into the cell) with a slack of its own,
+sigma_s (cheaper), shared with its region rows: a packed robot's cell may be empty, or
+conflict with the region's steady-state margin, and one slack for both would free every
+row of the plan by as much (measured: a multirotor packed against the region's edge and
+a rover's footprint, its steady state held 0.2 m off the edge, drove 0.009 m into the
+rover; a rover in a pack paid 0.095 m of slack at every sample and crept on). The
+solution reports sigma_p (`cell_violation`, 0 whenever the rows can be held) and sigma_s
+(`steady_cell_violation`: up to a few millimetres while the target lies far beyond the
+cell, where the offset cost pulls with 2 offset_weight times the distance against 2
+STEADY_CELL_PENALTY sigma_s).
 
 The problem is built for `cell_rows` rows and for the smaller row budgets CELL_ROW_BUDGETS;
 a solve leaves out the padding rows it was given (normal 0: they cannot bind) and takes the
@@ -99,9 +105,20 @@ ESCAPE_DISTANCE = 1.0
 #: to it (TerminalIngredients.within_extent), so the steady state may come this close to
 #: its cell's edge; our choice, about the pad of the faster vehicles.
 KEEP_APART_TERMINAL_EXTENT = 0.2
-#: Price of the keep-apart slack of the predicted positions (cost units per square metre):
-#: large against the offset and tracking costs, so a feasible cell is kept to micrometres.
+#: Quadratic price of the keep-apart slack of the predicted positions (cost units per
+#: square metre): what a violation that cannot be avoided costs beyond CELL_PRICE.
 CELL_PENALTY = 1e7
+#: Linear price of that slack (cost units per metre; the exact penalty, module docstring):
+#: above the rows' multipliers, largest measured 1.7e5 (a packed car-like robot, the
+#: orchard mission), so a plan that can hold its rows holds them exactly. Written as
+#: CELL_PENALTY (sigma_p + CELL_PRICE / (2 CELL_PENALTY))^2 with sigma_p >= 0, the same
+#: up to a constant, so that the cost stays a sum of squares (the real-time path).
+CELL_PRICE = 1e6
+#: The path slack's unit in the decision vector (metres per unit): in millimetres its price
+#: is 1e3 per unit, not 1e6, and the bound's multiplier stays near the others. Interior-
+#: point solvers scale their stopping test by the largest multipliers, so in metres the
+#: solves came out loose (two solves of one problem 6e-3 apart, in millimetres 1e-8).
+PATH_SLACK_UNIT = 1e-3
 #: Keep-apart row counts the problem is also built for, besides `cell_rows` itself: a solve
 #: takes the smallest that holds the rows it was given (padding rows left out, see
 #: TrackingMpc._cell_instance). Why: every row of the problem costs solve time at every
@@ -352,7 +369,8 @@ class TrackingMpc:
                 add(ca.mtimes(ca.DM(G_x), x), -np.inf, g_x)
             add(ca.mtimes(A_r, ca.vertcat(x[i], x[j])), -np.inf, self.path_region_b)
             if n_cell:
-                cell(ca.vertcat(x[i], x[j]), sigma[0], held_offsets, self.cell_pad)
+                slack = sigma[0] * PATH_SLACK_UNIT
+                cell(ca.vertcat(x[i], x[j]), slack, held_offsets, self.cell_pad)
 
         w: list[ca.SX] = []
         lbw: list[np.ndarray] = []
@@ -366,9 +384,11 @@ class TrackingMpc:
             x_s = ca.mtimes(Mx, theta) + x0s
             stage_starts.append(sum(e.shape[0] for e in g))
             w.append(Z[k])
-            # No bound sigma >= 0: a negative sigma only tightens the rows and costs, so the
-            # optimum never takes one, and a bound would add a barrier term (iterations).
+            # sigma_p >= 0 (once, at the last stage: it is carried) for the linear price;
+            # sigma_s needs no bound: a negative one only tightens its rows and costs.
             slack_lower, slack_upper = np.full(n_slack, -np.inf), np.full(n_slack, np.inf)
+            if n_slack and k == N:
+                slack_lower[0] = 0.0
             if k == 0:
                 lbw.append(np.concatenate([np.full(nx, -np.inf), -free_theta, slack_lower]))
                 ubw.append(np.concatenate([np.full(nx, np.inf), free_theta, slack_upper]))
@@ -410,8 +430,11 @@ class TrackingMpc:
             add(ca.mtimes(A_r, p_s) - sigma[1], -np.inf, self.steady_region_b)
             cell(p_s, sigma[1], cell_offsets, self.terminal.position_extent)
             weights = np.diag([CELL_PENALTY, STEADY_CELL_PENALTY])
-            cost += ca.bilin(ca.DM(weights), sigma, sigma)
-            terms.append(LeastSquaresTerm(sigma, weights))
+            shifted = ca.vertcat(
+                sigma[0] * PATH_SLACK_UNIT + CELL_PRICE / (2.0 * CELL_PENALTY), sigma[1]
+            )
+            cost += ca.bilin(ca.DM(weights), shifted, shifted)
+            terms.append(LeastSquaresTerm(shifted, weights))
         else:
             add(ca.mtimes(A_r, p_s), -np.inf, self.steady_region_b)
         if self.terminal.kind == "equality":
@@ -755,7 +778,7 @@ class TrackingMpc:
             success=success,
             iterations=iterations,
             solve_time=solve_time,
-            cell_violation=float(carried[self._n_theta :][:1].max(initial=0.0)),
+            cell_violation=float(carried[self._n_theta :][:1].max(initial=0.0)) * PATH_SLACK_UNIT,
             steady_cell_violation=float(carried[self._n_theta + 1 :].max(initial=0.0)),
             row_budget=problem.rows,
         )
