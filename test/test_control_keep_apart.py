@@ -258,6 +258,32 @@ def test_a_car_pinned_between_two_held_rows_waits_instead_of_buying_slack() -> N
     assert solution.steady_cell_violation >= 0.05
 
 
+@pytest.mark.parametrize(
+    "normal, heading, target",
+    [((-0.957, 0.289), 1.3276, (9.0, 6.1)), ((0.0, 1.0), 0.2, (9.0, 0.0))],
+)
+def test_a_rover_beyond_its_row_never_arcs_out_between_samples(normal, heading, target) -> None:
+    """A rover at rest 0.05 m beyond its row, facing slightly out across it, with its
+    target inside and ahead: driving off while turning inwards ends each sample inside the
+    held row, but the arc between samples starts tangent to the heading and bulges out
+    (measured before: 0.8 mm and 1.25 mm at the plant's fine substeps; the first case is
+    the orchard mission's packed start, seed 35, that overlapped by 0.3 mm). The first
+    move may not head out across a held row, so every fine position stays inside it
+    (arithmetic: along the row's normal a circular arc of less than half a turn is a
+    sinusoid with at most one extremum, so it stays within its end values when it does
+    not start outwards)."""
+    spec = spec_for("differential_drive")
+    terminal, _ = terminal_for_vehicle(spec)
+    mpc = TrackingMpc(spec.model, spec.mpc, REGION.halfspaces(), terminal, cell_rows=ROWS)
+    cell = padded([(normal, -0.05 * np.hypot(*normal))])
+    x = np.array([0.0, 0.0, heading])
+    x, positions, _, solution = closed_loop(mpc, x, np.array(target), cell, 10)
+    along = cell[0][0]
+    assert solution.success and solution.cell_violation == 0.0
+    assert np.max(positions @ along) <= 1e-6
+    assert np.linalg.norm(spec.model.position(x)) > 0.5  # it did drive off
+
+
 def test_a_zero_normal_row_that_can_bind_is_kept() -> None:
     """A row 0 . p <= c with c < 0 cannot be met (an empty cell): it is not a padding row,
     so it stays. The robot stands beyond it, so its plan may only go no farther out, which

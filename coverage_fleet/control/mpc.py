@@ -135,6 +135,9 @@ CELL_ROW_BUDGETS = (2, 4, 8)
 #: Offset given to the padding rows a budget's problem is filled up with (metres above the
 #: pad: 0 . p - sigma <= offset - pad never binds, see TrackingMpc._cell_instance).
 PADDING_ROW_OFFSET = 1.0
+#: Bound on a row's outward speed for the first move when the row is not held (m/s): any
+#: vehicle's speed is below it, so the row does not bind.
+OPEN_HEADING_BOUND = 1e3
 #: Price of the steady state's keep-apart slack: a hundredth of the path's, so a plan never
 #: buys a smaller steady-state violation with a path violation (at equal prices a packed
 #: rover split them and drove 0.02 m into its neighbour); large against the offset cost,
@@ -363,6 +366,18 @@ class TrackingMpc:
         # rows, normal 0, keep their offset: it exceeds the pad.)
         along = ca.mtimes(cell_normals, ca.vertcat(measured[i], measured[j]))
         held_offsets = ca.fmax(cell_offsets, along + self.cell_pad)
+        # Where the input sets the velocity (a kinematic model), the first move must not
+        # head out across a held row: the path between two samples is an arc tangent to
+        # the velocity, so samples inside the row do not keep it inside (a rover turning
+        # away while driving off drove 0.3 mm into a neighbour between two samples). An
+        # arc of less than half a turn that starts along or inside the row and ends inside
+        # it stays inside (the row's component is a sinusoid with one extremum there).
+        first_velocity = model.continuous_dynamics(measured, U[0])
+        first_velocity = ca.vertcat(first_velocity[i], first_velocity[j])
+        heads_out = n_cell and ca.depends_on(first_velocity, U[0])
+        if heads_out:
+            held = ca.ge(along + self.cell_pad, cell_offsets)
+            heading_bound = (1 - held) * OPEN_HEADING_BOUND
 
         def path(x: ca.SX, sigma: ca.SX) -> None:
             if len(g_x):
@@ -408,6 +423,9 @@ class TrackingMpc:
             add(Z[k + 1] - ca.vertcat(F(x, U[k]), carried), 0.0, 0.0)
             if k == 0:
                 add(x - measured, 0.0, 0.0)
+                if heads_out:
+                    cell_starts.append(sum(e.shape[0] for e in g))  # a group of cell rows
+                    add(ca.mtimes(cell_normals, first_velocity) - heading_bound, -np.inf, 0.0)
             else:
                 path(x, sigma)
             if len(e_u):
