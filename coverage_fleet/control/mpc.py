@@ -21,7 +21,9 @@ IEEE TAC 63(11), 2018), direct multiple shooting:
                         (rows n_m . p <= c_m: the robot's buffered cell, parameters of the
                         problem, control/keep_apart.py; pad = v_max * sample_time / 2, how
                         far the centre strays between two samples from the nearer one;
-                        c'_m = max(c_m, n_m . p_0 + pad), see below)
+                        c'_m = max(c_m, n_m . p_0 + pad), see below);
+                        n_m . dp/dt(x_0, u_0) <= 0 for held rows (n_m . p_0 + pad >= c_m) when
+                        the input sets the velocity (the first move does not head out)
           terminal:     ellipsoid  e_N' P e_N <= alpha   (e_N = steady_frame_error(x_N, x_s)),
                         (real-time path: as e'Pe/alpha <= 1, plus its implied bounding box
                         along the principal axes of P)
