@@ -21,7 +21,7 @@ from coverage_fleet.control.controller import RobotController
 from coverage_fleet.control.keep_apart import CellRows, CellWindow, KeepApartSettings
 from coverage_fleet.control.mpc import (
     KEEP_APART_TERMINAL_EXTENT,
-    STEADY_CELL_PENALTY,
+    STEADY_SET_MIN_RADIUS,
     TrackingMpc,
 )
 from coverage_fleet.control.stage_cost import stage_weights
@@ -92,13 +92,14 @@ def test_robot_stops_at_the_nearest_admissible_point_of_its_cell(kind) -> None:
     final = spec.model.position(x)
     assert np.linalg.norm(final - expected) < 0.02, (final, expected)
     steady = solution.steady_state.position
-    # The steady state's slack is priced at STEADY_CELL_PENALTY k: where the offset cost
-    # w |p_s - target|^2 pulls it out, stationarity (2 k sigma = 2 w d along the row at
-    # most) bounds its violation by w d / k.
-    pulled = spec.mpc.offset_weight * np.linalg.norm(target - steady) / STEADY_CELL_PENALTY
+    # The steady state's slack is priced at k (STEADY_CELL_PENALTIES): where the offset
+    # cost w |p_s - target|^2 pulls it out, stationarity (2 k sigma = 2 w d along the row
+    # at most) bounds its violation by w d / k.
+    pulled = spec.mpc.offset_weight * np.linalg.norm(target - steady) / mpc.steady_cell_penalty
     assert pulled < 0.01
     limit = -mpc.terminal.position_extent + pulled + 1e-3
     assert np.max(normals[:2] @ steady - offsets[:2]) <= limit
+    assert solution.steady_cell_violation <= pulled + 1e-6
     assert solution.cell_violation < 1e-3
 
 
@@ -287,9 +288,10 @@ def test_a_rover_beyond_its_row_never_arcs_out_between_samples(normal, heading, 
 def test_a_zero_normal_row_that_can_bind_is_kept() -> None:
     """A row 0 . p <= c with c < 0 cannot be met (an empty cell): it is not a padding row,
     so it stays. The robot stands beyond it, so its plan may only go no farther out, which
-    a zero normal does not restrict (the path slack stays 0); the steady state honours the
-    row as given and its slack takes it up exactly: sigma_s = terminal extent - c (the
-    row read as sigma_s >= extent - c, arithmetic)."""
+    a zero normal does not restrict (the path slack stays 0); the steady state's rows move
+    out just enough for that row (read as 0 <= c - extent + s, arithmetic: s = extent - c,
+    plus the room STEADY_SET_MIN_RADIUS), so its steady position lies exactly extent - c
+    beyond the row as given."""
     spec = spec_for("multirotor")
     terminal, _ = terminal_for_vehicle(spec)
     mpc = TrackingMpc(spec.model, spec.mpc, REGION.halfspaces(), terminal, cell_rows=ROWS)
@@ -300,3 +302,67 @@ def test_a_zero_normal_row_that_can_bind_is_kept() -> None:
     assert solution.cell_violation == pytest.approx(0.0, abs=1e-5)
     expected = mpc.terminal.position_extent + 0.1
     assert solution.steady_cell_violation == pytest.approx(expected, abs=1e-6)
+
+
+def _half_plane(normal, offset, reach: float = 1e3) -> shapely.Polygon:
+    """{p : normal . p <= offset} within reach of its edge (normal a unit vector)."""
+    n = np.asarray(normal, float)
+    on_edge, along = n * offset, np.array([-n[1], n[0]])
+    return shapely.Polygon([on_edge + reach * along, on_edge - reach * along,
+                            on_edge - reach * (along + 2 * n), on_edge + reach * (along - 2 * n)])
+
+
+def _steady_set(mpc: TrackingMpc, normals, offsets, relaxation) -> shapely.Geometry:
+    """The steady position's admissible set moved out by (cell s, region s), with shapely."""
+    extent = mpc.terminal.position_extent
+    admissible = shapely.box(-1e3, -1e3, 1e3, 1e3)
+    for n, c in zip(normals, offsets, strict=True):
+        if np.any(n):
+            admissible = admissible.intersection(_half_plane(n, c - extent + relaxation[0]))
+        elif c - extent + relaxation[0] < 0:
+            return shapely.Polygon()
+    A, b = REGION.halfspaces()
+    margin = mpc.footprint_radius + extent - relaxation[1]
+    for n, c in zip(A, b, strict=True):
+        admissible = admissible.intersection(_half_plane(n, c - margin))
+    return admissible
+
+
+def _room(geometry: shapely.Geometry) -> float:
+    """Radius of the largest disc inside (shapely's maximum inscribed circle; 0 if empty)."""
+    if geometry.is_empty or geometry.area == 0.0:
+        return 0.0
+    return float(shapely.maximum_inscribed_circle(geometry, tolerance=1e-7).length)
+
+
+@pytest.mark.parametrize(
+    "rows",
+    [
+        [((0.0, 1.0), -9.55)],  # beyond a row, pinned against the region's edge
+        [((1.0, 0.0), -1.0), ((-1.0, 0.0), -1.0)],  # an empty cell: x <= -1 and x >= 1
+        [((1.0, 1.0), -19.0), ((1.0, -1.0), 0.1)],  # a sliver in the region's corner
+        [((1.0, 0.0), 2.0), ((1.0, 1.0), 3.0)],  # room to rest: no relaxation
+    ],
+)
+def test_steady_rows_move_out_just_enough_for_the_room(rows) -> None:
+    """The steady state's rows move out by the least s that leaves a disc of radius
+    STEADY_SET_MIN_RADIUS (none where one fits already), the region's by at most the
+    terminal extent: checked against shapely's maximum inscribed circle of the moved-out
+    set (Chebyshev centre, Boyd & Vandenberghe, "Convex Optimization", 2004, 8.5.1) and of
+    the set moved out by 0.1 mm less."""
+    spec = spec_for("multirotor")
+    terminal, _ = terminal_for_vehicle(spec)
+    mpc = TrackingMpc(spec.model, spec.mpc, REGION.halfspaces(), terminal, cell_rows=ROWS)
+    normals, offsets = padded(rows)
+    relaxation = mpc.steady_relaxation(normals, offsets, np.zeros(2))
+    extent = mpc.terminal.position_extent
+    assert relaxation[1] == pytest.approx(min(relaxation[0], extent))
+    room = _room(_steady_set(mpc, normals, offsets, relaxation))
+    if relaxation[0] == 0.0:
+        assert room >= STEADY_SET_MIN_RADIUS
+        return
+    assert room == pytest.approx(STEADY_SET_MIN_RADIUS, abs=1e-6)
+    less = relaxation[0] - 1e-4
+    assert _room(_steady_set(mpc, normals, offsets, (less, min(less, extent)))) < (
+        STEADY_SET_MIN_RADIUS - 1e-5
+    )

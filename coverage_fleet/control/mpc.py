@@ -14,14 +14,15 @@ IEEE TAC 63(11), 2018), direct multiple shooting:
           steady state: limits scaled by 1 - steady_state_margin towards rest (limits.py),
                         A position(x_s) <= b - (r + e_f) |A_i|  (e_f: terminal-set extent)
           keep-apart (cell_rows > 0): n_m . position(x_k) - sigma_p <= c'_m - pad  (k >= 1),
-                        n_m . position(x_s) - sigma_s <= c_m - e_f,
-                        A position(x_s) - sigma_s <= b - (r + e_f) |A_i|  (instead of above),
+                        n_m . position(x_s) - sigma_s <= c_m - e_f + s,
+                        A position(x_s) <= b - (r + e_f - min(s, e_f)) |A_i|  (for above),
                         sigma_p >= 0, cost + CELL_PRICE sigma_p + CELL_PENALTY sigma_p^2
-                        + STEADY_CELL_PENALTY sigma_s^2
+                        + STEADY_CELL_PENALTIES[kind] sigma_s^2
                         (rows n_m . p <= c_m: the robot's buffered cell, parameters of the
                         problem, control/keep_apart.py; pad = v_max * sample_time / 2, how
                         far the centre strays between two samples from the nearer one;
-                        c'_m = max(c_m, n_m . p_0 + pad), see below);
+                        c'_m = max(c_m, n_m . p_0 + pad), see below; s >= 0: the steady
+                        rows' relaxation, a parameter, see below);
                         n_m . dp/dt(x_0, u_0) <= 0 for held rows (n_m . p_0 + pad >= c_m) when
                         the input sets the velocity (the first move does not head out)
           terminal:     ellipsoid  e_N' P e_N <= alpha   (e_N = steady_frame_error(x_N, x_s)),
@@ -44,17 +45,29 @@ rows' multipliers, so whenever the rows can be held the slack is exactly 0 (Kerr
 Maciejowski, "Soft constraints and exact penalty functions in model predictive control",
 UKACC Control 2000). A quadratic price alone always buys some violation (the multiplier
 over twice the price): measured, a car-like robot packed 9 mm from a rover drove 8 mm of
-slack, 7 mm into the rover, at a price of 1e7 per square metre. The steady state keeps
-the rows where they are (so the plan comes back into the cell) with a slack of its own,
-sigma_s (cheaper), shared with its region rows: a packed robot's cell may be empty, or
-conflict with the region's steady-state margin, and one slack for both would free every
-row of the plan by as much (measured: a multirotor packed against the region's edge and
-a rover's footprint, its steady state held 0.2 m off the edge, drove 0.009 m into the
-rover; a rover in a pack paid 0.095 m of slack at every sample and crept on). The
-solution reports sigma_p (`cell_violation`, 0 whenever the rows can be held) and sigma_s
-(`steady_cell_violation`: up to a few millimetres while the target lies far beyond the
-cell, where the offset cost pulls with 2 offset_weight times the distance against 2
-STEADY_CELL_PENALTY sigma_s).
+slack, 7 mm into the rover, at a price of 1e7 per square metre. The solution reports
+sigma_p (`cell_violation`, 0 whenever the rows can be held).
+
+The steady state keeps the rows where they are (so the plan comes back into the cell). A
+packed robot's cell may be empty, or conflict with the region's steady-state margin, and
+the plan's slack must never pay for that (one slack for both frees every row of the plan
+by as much; measured: a multirotor packed against the region's edge and a rover's
+footprint, its steady state held 0.2 m off the edge, drove 0.009 m into the rover; a
+rover in a pack paid 0.095 m of slack at every sample and crept on). So before each solve
+TrackingMpc.steady_relaxation finds, by a three-variable linear program, the least s by
+which the steady state's cell rows must move out (and its region rows with them, by at
+most e_f: no farther than the plan's own region rows) to leave room for a disc of
+STEADY_SET_MIN_RADIUS; s = 0 in any cell a robot can rest in, and the problem gets it as a
+parameter. Whatever s leaves (the offset cost pulling a steady state held at its rows,
+a steady set out of the plan's reach) is the steady state's own slack sigma_s's (priced
+by terminal kind, STEADY_CELL_PENALTIES). The solution reports how far its steady position
+lies beyond its cell rows as given (`steady_cell_violation`). Measured before s existed
+(4a949f5: sigma_s alone, shared with the region rows, at a hundredth of the path's
+quadratic price): the offset cost pulled the multirotor's steady state millimetres to
+centimetres out of its cell, and fatrop, with the steady state held at a cell corner,
+then stalled at its iteration cap on two thirds of the samples of
+benchmarks/mpc_benchmark.py --keep-apart (IPOPT answered: 2.2x the median solve time
+without rows, 1.05x now).
 
 The problem is built for `cell_rows` rows and for the smaller row budgets CELL_ROW_BUDGETS;
 a solve leaves out the padding rows it was given (normal 0: they cannot bind) and takes the
@@ -76,6 +89,7 @@ from dataclasses import dataclass
 
 import casadi as ca
 import numpy as np
+import scipy.optimize
 
 from coverage_fleet.control.frames import heading_index, steady_frame_error
 from coverage_fleet.control.ingredients import TerminalIngredients
@@ -140,11 +154,26 @@ PADDING_ROW_OFFSET = 1.0
 #: Bound on a row's outward speed for the first move when the row is not held (m/s): any
 #: vehicle's speed is below it, so the row does not bind.
 OPEN_HEADING_BOUND = 1e3
-#: Price of the steady state's keep-apart slack: a hundredth of the path's, so a plan never
-#: buys a smaller steady-state violation with a path violation (at equal prices a packed
-#: rover split them and drove 0.02 m into its neighbour); large against the offset cost,
-#: so a target far beyond the cell moves the steady state out by millimetres at most.
-STEADY_CELL_PENALTY = 1e5
+#: Price of the steady state's keep-apart slack (cost units per square metre), by terminal
+#: kind. It pays only for what the steady rows' relaxation leaves
+#: (TrackingMpc.steady_relaxation): the offset cost pulling a steady state held at its rows
+#: (offset_weight times the distance over this price) or a steady set the plan cannot
+#: reach. With the terminal equality the plan ends on the steady state (x_N = x_s), so a
+#: steady set out of reach is paid for by one slack or the other: a hundredth of the path's
+#: quadratic price keeps it the steady state's (at the path's price a car-like robot pinned
+#: between two held rows bought 8.5 mm of path slack instead: test_control_keep_apart).
+#: With an ellipsoid the plan may end anywhere in the terminal set around it, and the
+#: path's quadratic price keeps the pull at tens of micrometres: at a hundredth it reached
+#: centimetres and fatrop, the steady state held at a cell corner, stalled (module
+#: docstring). Measured with the multirotor's benchmark loop, every sample tried by fatrop
+#: first (4a949f5's path slack): 79 of 119 failures at 1e5, 44 at 1e6, 32 at 1e7, 30 at
+#: 1e8, and 32 before the second slack existed (4c83b80).
+STEADY_CELL_PENALTIES = {"equality": CELL_PENALTY / 100, "ellipsoid": CELL_PENALTY}
+#: Room the steady state's cell rows always leave inside the region's steady-state rows
+#: (metres): where they leave less, or none, they move out until a disc of this radius fits
+#: (TrackingMpc.steady_relaxation). A steady set of one point or one line, e.g. a row
+#: against the region's margin, would leave the solver rows active in opposite directions.
+STEADY_SET_MIN_RADIUS = 1e-3
 
 
 @dataclass(frozen=True)
@@ -184,7 +213,8 @@ class MpcSolution:
     solve_time: float
     #: The keep-apart slack of the predicted positions (metres; 0 without cell rows).
     cell_violation: float = 0.0
-    #: The steady state's keep-apart slack (metres; its cell and region rows).
+    #: How far the steady position lies beyond its cell rows as given (metres; 0 where the
+    #: robot can rest in its cell, see the module docstring).
     steady_cell_violation: float = 0.0
     #: Keep-apart rows of the problem that answered: the smallest row budget holding the
     #: rows that can bind (padding fills the rest; 0 without cell rows).
@@ -264,6 +294,8 @@ class TrackingMpc:
         self.model = model
         self.settings = settings
         self.terminal = terminal
+        #: Price of the steady state's keep-apart slack (STEADY_CELL_PENALTIES).
+        self.steady_cell_penalty = STEADY_CELL_PENALTIES[terminal.kind]
         self.horizon = settings.horizon
         A, b = (np.asarray(v, dtype=float) for v in region_halfspaces)
         self.region_A = A.reshape(-1, 2)
@@ -279,6 +311,11 @@ class TrackingMpc:
         #: Offsets for the steady position (also shrunk by the terminal set's extent).
         self.steady_region_b = _region_offsets(
             self.region_A, self.region_b, self.footprint_radius + terminal.position_extent
+        )
+        region_norms = np.linalg.norm(self.region_A, axis=1)
+        #: The same rows with unit normals (metres), for steady_relaxation.
+        self._steady_region_rows = (
+            self.region_A / region_norms[:, None], self.steady_region_b / region_norms
         )
         #: How far the centre may stray between samples from the nearer sample point.
         self.cell_pad = (
@@ -297,6 +334,8 @@ class TrackingMpc:
         self._no_escape_at: tuple[np.ndarray, np.ndarray] | None = None
         #: The budget whose problem gave _lam_g (its rows differ from another budget's).
         self._lam_rows = self.cell_rows
+        #: The centre of the steady rows found by the last steady_relaxation program.
+        self._steady_centre: np.ndarray | None = None
 
     # --- construction ------------------------------------------------------------------
 
@@ -320,6 +359,9 @@ class TrackingMpc:
         measured = ca.SX.sym("measured", nx)
         cell_normals = ca.SX.sym("cell_normals", n_cell, 2)
         cell_offsets = ca.SX.sym("cell_offsets", n_cell)
+        # How far the steady state's cell rows and region rows move out (metres,
+        # steady_relaxation; only with keep-apart).
+        steady_relax = ca.SX.sym("steady_relax", 2 if self.cell_rows else 0)
         Mx, x0s, Mu, u0s = (ca.DM(v) for v in (self._Mx, self._x0s, self._Mu, self._u0s))
         i, j = model.position_indices
         Q, R = ca.DM(self.Q), ca.DM(self.R)
@@ -445,11 +487,17 @@ class TrackingMpc:
             add(ca.mtimes(ca.DM(u_steady.G_dep), u_s), -np.inf, u_steady.g_dep)
         if n_slack:
             # A packed robot's cell may be empty, or lie beyond the region's steady-state
-            # margin: the steady state's rows (cell and region) share their own slack, so
-            # such a conflict never frees the predicted positions' rows.
-            add(ca.mtimes(A_r, p_s) - sigma[1], -np.inf, self.steady_region_b)
-            cell(p_s, sigma[1], cell_offsets, self.terminal.position_extent)
-            weights = np.diag([CELL_PENALTY, STEADY_CELL_PENALTY])
+            # margin: the steady state's rows move out by the parameters steady_relax (0
+            # where the robot can rest), and any rest is its own slack's, so such a
+            # conflict never frees the predicted positions' rows (module docstring).
+            region_norms = ca.DM(np.linalg.norm(self.region_A, axis=1))
+            add(
+                ca.mtimes(A_r, p_s) - steady_relax[1] * region_norms,
+                -np.inf,
+                self.steady_region_b,
+            )
+            cell(p_s, sigma[1], cell_offsets + steady_relax[0], self.terminal.position_extent)
+            weights = np.diag([CELL_PENALTY, self.steady_cell_penalty])
             shifted = ca.vertcat(
                 sigma[0] * PATH_SLACK_UNIT + CELL_PRICE / (2.0 * CELL_PENALTY), sigma[1]
             )
@@ -492,7 +540,7 @@ class TrackingMpc:
 
         nlp = {
             "x": ca.vertcat(*w),
-            "p": ca.vertcat(measured, target, ca.vec(cell_normals), cell_offsets),
+            "p": ca.vertcat(measured, target, ca.vec(cell_normals), cell_offsets, steady_relax),
             "f": cost,
             "g": ca.vertcat(*g),
         }
@@ -642,13 +690,15 @@ class TrackingMpc:
         x0: np.ndarray,
         target: np.ndarray,
         cell: tuple[np.ndarray, np.ndarray] | None,
-    ) -> tuple[np.ndarray, _BuiltProblem]:
+    ) -> tuple[np.ndarray, _BuiltProblem, tuple[np.ndarray, np.ndarray] | None]:
         """The parameter vector (measured state, target, then the cell rows: normals column
-        by column, as casadi's vec stacks them, then offsets) and the problem it is for."""
+        by column, as casadi's vec stacks them, then offsets, then the steady rows'
+        relaxation), the problem it is for, and the steady position's cell rows as given,
+        (normals, offsets - terminal extent) (None without keep-apart)."""
         if not self.cell_rows:
             if cell is not None:
                 raise ValueError("this MPC was built without keep-apart rows (cell_rows=0)")
-            return np.concatenate([x0, target]), self._problems[0]
+            return np.concatenate([x0, target]), self._problems[0], None
         if cell is None:
             raise ValueError(
                 f"this MPC takes {self.cell_rows} keep-apart rows at every solve; a robot "
@@ -665,10 +715,60 @@ class TrackingMpc:
             raise ValueError("keep-apart rows must be finite")
         normals, offsets = self._cell_instance(normals, offsets)
         problem = self._problem(len(offsets))
+        steady_rows = (normals, offsets - self.terminal.position_extent)
+        relax = self.steady_relaxation(normals, offsets, self.model.position(x0))
         return (
-            np.concatenate([x0, target, normals.reshape(-1, order="F"), offsets]),
+            np.concatenate([x0, target, normals.reshape(-1, order="F"), offsets, relax]),
             problem,
+            steady_rows,
         )
+
+    def steady_relaxation(
+        self, normals: np.ndarray, offsets: np.ndarray, position: np.ndarray
+    ) -> np.ndarray:
+        """How far the steady state's rows move out (metres): (s, min(s, e_f)) for its
+        cell rows normals @ p_s <= offsets - e_f and its region rows (cell rows as given:
+        normals (m, 2) unit or zero, offsets (m,); e_f: the terminal extent; the region
+        rows go no farther out than the plan's, beyond which no plan could end near the
+        steady state), with s the least relaxation that leaves room for a disc of radius
+        STEADY_SET_MIN_RADIUS, 0 when the rows as given do. The linear program: min s over
+        (p, s) s.t. normals @ p - s <= offsets - e_f - radius, region rows at p - s <= their
+        offsets - radius, and <= the plan's region offsets - radius (a Chebyshev centre
+        with every row moved out by the same s: Boyd & Vandenberghe, "Convex
+        Optimization", 2004, section 8.5.1). A point that keeps every row with the radius
+        to spare (the last program's centre, or `position`, the robot's) shows s = 0
+        without solving it."""
+        radius = STEADY_SET_MIN_RADIUS
+        extent = self.terminal.position_extent
+        bounds = np.asarray(offsets, dtype=float) - extent
+        region_rows, region_bounds = self._steady_region_rows
+        for point in (self._steady_centre, position):
+            if (
+                point is not None
+                and np.all(normals @ point <= bounds - radius)
+                and np.all(region_rows @ point <= region_bounds - radius)
+            ):
+                return np.zeros(2)
+        n_cell, n_region = len(bounds), len(region_bounds)
+        result = scipy.optimize.linprog(
+            c=[0.0, 0.0, 1.0],
+            A_ub=np.block([
+                [normals, -np.ones((n_cell, 1))],
+                [region_rows, -np.ones((n_region, 1))],
+                [region_rows, np.zeros((n_region, 1))],
+            ]),
+            b_ub=np.concatenate([bounds, region_bounds, region_bounds + extent]) - radius,
+            bounds=[(None, None)] * 3,
+            method="highs",
+        )
+        if result.status == 0:
+            self._steady_centre = np.asarray(result.x[:2], dtype=float)
+            relax = max(0.0, float(result.x[2]))
+        else:
+            # Only a region too small for the footprint has no such point; the steady
+            # state's slack then takes what the robot's own position leaves.
+            relax = max(0.0, float(np.max(normals @ position - bounds, initial=0.0)) + radius)
+        return np.array([relax, min(relax, extent)])
 
     def _cell_instance(
         self, normals: np.ndarray, offsets: np.ndarray
@@ -759,7 +859,7 @@ class TrackingMpc:
         if not (np.all(np.isfinite(x0)) and np.all(np.isfinite(target))):
             # A NaN reaching fatrop from a cold start can keep it iterating for minutes.
             raise ValueError(f"state {x0.tolist()} and target {target.tolist()} must be finite")
-        parameters, problem = self._parameters(x0, target, cell)
+        parameters, problem, steady_rows = self._parameters(x0, target, cell)
         guess = self._cold_guess(x0) if self._guess is None else self._guess
         guess = self._align_angles(guess, x0)
         states, inputs, theta = self._unpack(guess)
@@ -789,6 +889,10 @@ class TrackingMpc:
         x_s = self._Mx @ theta + self._x0s
         u_s = self._Mu @ theta + self._u0s
         steady = SteadyStatePoint(x_s, u_s, theta, self.model.position(x_s))
+        steady_violation = 0.0
+        if steady_rows is not None:
+            rows, bounds = steady_rows
+            steady_violation = max(0.0, float(np.max(rows @ steady.position - bounds)))
         return MpcSolution(
             first_input=inputs[0].copy(),
             predicted_states=states,
@@ -799,6 +903,6 @@ class TrackingMpc:
             iterations=iterations,
             solve_time=solve_time,
             cell_violation=float(carried[self._n_theta :][:1].max(initial=0.0)) * PATH_SLACK_UNIT,
-            steady_cell_violation=float(carried[self._n_theta + 1 :].max(initial=0.0)),
+            steady_cell_violation=steady_violation,
             row_budget=problem.rows,
         )
