@@ -312,10 +312,12 @@ class TrackingMpc:
         self.steady_region_b = _region_offsets(
             self.region_A, self.region_b, self.footprint_radius + terminal.position_extent
         )
-        region_norms = np.linalg.norm(self.region_A, axis=1)
+        #: The region rows' normal lengths (their offsets over these are metres).
+        self._region_norms = np.linalg.norm(self.region_A, axis=1)
         #: The same rows with unit normals (metres), for steady_relaxation.
         self._steady_region_rows = (
-            self.region_A / region_norms[:, None], self.steady_region_b / region_norms
+            self.region_A / self._region_norms[:, None],
+            self.steady_region_b / self._region_norms,
         )
         #: How far the centre may stray between samples from the nearer sample point.
         self.cell_pad = (
@@ -490,9 +492,8 @@ class TrackingMpc:
             # margin: the steady state's rows move out by the parameters steady_relax (0
             # where the robot can rest), and any rest is its own slack's, so such a
             # conflict never frees the predicted positions' rows (module docstring).
-            region_norms = ca.DM(np.linalg.norm(self.region_A, axis=1))
             add(
-                ca.mtimes(A_r, p_s) - steady_relax[1] * region_norms,
+                ca.mtimes(A_r, p_s) - steady_relax[1] * ca.DM(self._region_norms),
                 -np.inf,
                 self.steady_region_b,
             )
