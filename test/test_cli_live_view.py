@@ -19,6 +19,7 @@ from rich.console import Console
 
 from coverage_fleet.cli.live_render import plain_lines, render
 from coverage_fleet.cli.live_state import FleetWatch
+from coverage_fleet.control.fallbacks import FALLBACK_KEEP_APART_BRAKE
 
 NOISE, PROGRESS = 0.02, 0.05
 STAMP = 7_000_000_000
@@ -123,6 +124,17 @@ def test_plain_lines_carry_the_same_figures() -> None:
     assert "distance commit 3.20 now 3.10 progress closer" in by_robot["rover_a"]
     assert "solve 200.0 ms FAILED" in by_robot["drone_b"]
     assert "diagnostics WARN" in by_robot["drone_b"]
+
+
+def test_a_keep_apart_brake_reads_as_no_solve_not_as_a_failure() -> None:
+    watch = fleet_at_ten_seconds()
+    watch.saw_solve("rover_a", 0.0, "keep-apart: no snapshot of the fleet's positions yet; "
+                    "braking", False, FALLBACK_KEEP_APART_BRAKE)
+    by_robot = {line.split()[1]: line for line in plain_lines(watch.snapshot(100.5))[1:]}
+    assert "ms no solve keep-a" in by_robot["rover_a"], by_robot["rover_a"]
+    assert "fallback keep-apart brake" in by_robot["rover_a"]
+    assert "FAILED" not in by_robot["rover_a"]
+    assert "FAILED" in by_robot["drone_b"]  # a real failure still reads as one
 
 
 def test_odd_values_are_counted_and_never_stop_the_view() -> None:

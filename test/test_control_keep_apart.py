@@ -18,6 +18,7 @@ import shapely
 from shapely.ops import nearest_points
 
 from coverage_fleet.control.controller import RobotController
+from coverage_fleet.control.fallbacks import FALLBACK_KEEP_APART_BRAKE
 from coverage_fleet.control.keep_apart import CellRows, CellWindow, KeepApartSettings
 from coverage_fleet.control.mpc import (
     KEEP_APART_TERMINAL_EXTENT,
@@ -149,10 +150,12 @@ def test_controller_brakes_when_its_snapshots_are_too_old() -> None:
     window = CellWindow("me", KeepApartSettings(max_age=0.5), window=1.0, rows=ROWS, reach=5.0)
     x = np.array([0.0, 0.0, 1.0, 0.0])
     step = controller.step(x, np.array([3.0, 0.0]), window.rows_at(0.0, x[:2]))
-    assert step.fallback == "braking" and "no snapshot" in step.status
+    assert step.fallback == FALLBACK_KEEP_APART_BRAKE and "no snapshot" in step.status
     assert np.dot(step.input, x[2:]) < 0  # opposes the motion
+    # No solve was attempted: a brake, not a solver failure.
+    assert not step.success and not step.solver_failed and step.iterations == 0
     step = controller.step(x, np.array([3.0, 0.0]), None)
-    assert step.fallback == "braking" and "keep-apart" in step.status
+    assert step.fallback == FALLBACK_KEEP_APART_BRAKE and "keep-apart" in step.status
     assert not controller.step(x, np.array([3.0, 0.0]), CellRows(*padded([]))).used_fallback
 
 

@@ -13,6 +13,8 @@ from rich.console import Group
 from rich.table import Table
 from rich.text import Text
 
+from coverage_fleet.control.fallbacks import FALLBACK_KEEP_APART_BRAKE
+
 from .live_state import RobotRow, WatchSnapshot
 
 #: Longest solver status shown (statuses such as "Maximum_Iterations_Exceeded" are long).
@@ -36,10 +38,17 @@ def _age(seconds: float | None) -> str:
 
 
 def _solve(row: RobotRow) -> tuple[str, str]:
-    """(time, outcome) of the newest solve: "ok" or "FAILED", then the solver's status."""
+    """(time, outcome) of the newest solve: "ok", "FAILED" or "no solve" (a keep-apart
+    brake: the neighbours' positions are not known), then the solver's status."""
     if row.solve_time is None:
         return "-", ""
-    status = ("ok" if row.solve_success else "FAILED") + (
+    if row.solve_success:
+        outcome = "ok"
+    elif row.fallback == FALLBACK_KEEP_APART_BRAKE:
+        outcome = "no solve"
+    else:
+        outcome = "FAILED"
+    status = outcome + (
         f" {row.solve_status}" if row.solve_status else ""
     )
     if len(status) > STATUS_WIDTH:

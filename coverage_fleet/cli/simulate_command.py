@@ -135,9 +135,20 @@ def summary_lines(metrics: dict[str, Any]) -> list[str]:
         f"CVT gap {100 * metrics['cvt_gap']:.3g} % (cost decrease Lloyd's iteration still "
         "finds from the final positions; 0 at a centroidal Voronoi configuration)",
         f"limit violations {metrics['limit_violations']}; solver failures "
-        f"{metrics['solver_failures']}",
+        f"{metrics['solver_failures']}"
+        + _keep_apart_brakes(metrics),
         *_clearance_line(metrics),
     ]
+
+
+def _keep_apart_brakes(metrics: dict[str, Any]) -> str:
+    brakes = metrics.get("keep_apart_brakes", 0)
+    if not brakes:
+        return ""
+    return (
+        f"; keep-apart brakes {brakes} (ticks without the neighbours' positions: at start "
+        "until the first snapshot, or snapshots too old)"
+    )
 
 
 def _clearance_line(metrics: dict[str, Any]) -> list[str]:

@@ -21,6 +21,12 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from coverage_fleet.control.fallbacks import (
+    FALLBACK_BRAKING,
+    FALLBACK_KEEP_APART_BRAKE,
+    FALLBACK_NONE,
+    FALLBACK_PREVIOUS_PLAN,
+)
 from coverage_fleet.control.ingredients import TerminalIngredients
 from coverage_fleet.control.keep_apart import CellRows
 from coverage_fleet.control.limits import COMMAND_LIMIT_TOLERANCE, input_limits
@@ -30,9 +36,6 @@ from coverage_fleet.vehicles.settings import MpcSettings
 
 logger = logging.getLogger(__name__)
 
-FALLBACK_NONE = ""
-FALLBACK_PREVIOUS_PLAN = "previous plan"
-FALLBACK_BRAKING = "braking"
 
 
 @dataclass(frozen=True)
@@ -46,10 +49,15 @@ class ControlStep:
     used_fallback: bool
     iterations: int
     solve_time: float
-    #: "", "previous plan" or "braking".
+    #: "", "previous plan", "braking" or "keep-apart brake" (FALLBACK_*).
     fallback: str = FALLBACK_NONE
     #: The keep-apart slack of this solve (metres; 0 without keep-apart rows).
     cell_violation: float = 0.0
+
+    @property
+    def solver_failed(self) -> bool:
+        """A solve was attempted and failed (a keep-apart brake attempts none)."""
+        return not self.success and self.fallback != FALLBACK_KEEP_APART_BRAKE
 
 
 class RobotController:
@@ -140,7 +148,7 @@ class RobotController:
             used_fallback=True,
             iterations=0,
             solve_time=0.0,
-            fallback=FALLBACK_BRAKING,
+            fallback=FALLBACK_KEEP_APART_BRAKE,
         )
 
     def _fallback(

@@ -95,7 +95,7 @@ class SampledController:
             self.last_solve_time = float(state_time)
             held = self.held_input = np.asarray(step.input, float)
             self.solves += 1
-            if not step.success:
+            if step.solver_failed:
                 self.failures += 1
         return Answer(
             state_time=float(state_time),

@@ -43,6 +43,7 @@ from typing import Any
 import numpy as np
 import yaml
 
+from coverage_fleet.control.fallbacks import FALLBACK_KEEP_APART_BRAKE
 from coverage_fleet.control.gate import GateOpening
 
 
@@ -67,7 +68,7 @@ class RobotLog:
     solve_time: list[float] = field(default_factory=list)
     status: list[str] = field(default_factory=list)
     solver_ok: list[bool] = field(default_factory=list)
-    #: What the controller applied instead of a solution: "", "previous plan" or "braking".
+    #: What the controller applied instead of a solution (control/fallbacks.py).
     fallback: list[str] = field(default_factory=list)
 
     def positions(self) -> np.ndarray:
@@ -82,8 +83,21 @@ class RobotLog:
         return np.asarray(self.solve_time, float)[ran]
 
     def solver_failures(self) -> int:
-        ran = np.asarray(self.controller_ran, bool)
+        """Ticks whose solve failed (a keep-apart brake attempts no solve: not counted)."""
+        ran = np.asarray(self.controller_ran, bool) & ~self._keep_apart_braked()
         return int(np.sum(~np.asarray(self.solver_ok, bool)[ran]))
+
+    def keep_apart_brakes(self) -> int:
+        """Ticks the controller braked because it did not know its neighbours' positions
+        (at start-up until the first snapshot arrives; later, when snapshots stop)."""
+        return int(np.sum(self._keep_apart_braked()))
+
+    def _keep_apart_braked(self) -> np.ndarray:
+        ran = np.asarray(self.controller_ran, bool)
+        braked = np.zeros(len(ran), dtype=bool)
+        for k, kind in enumerate(self.fallback[: len(ran)]):
+            braked[k] = ran[k] and kind == FALLBACK_KEEP_APART_BRAKE
+        return braked
 
 
 @dataclass(frozen=True)

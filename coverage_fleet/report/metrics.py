@@ -197,7 +197,8 @@ def trial_metrics(
     """outcome (settled / stuck / duration reached) and its time, final_cost, the CVT gap
     (and, with `held`, the buffered cells of a keep-apart run, the held CVT gap),
     final_largest_distance_to_centroid, generations, the reason of each opening and the
-    times of density updates, limit_violations, solver_failures,
+    times of density updates, limit_violations, solver_failures, keep_apart_brakes (ticks
+    braked for want of the neighbours' positions, not solver failures),
     solve-time statistics and the opening costs."""
     names = list(log.robots)
     final = np.array([log.robots[n].positions()[-1] for n in names])
@@ -235,6 +236,7 @@ def trial_metrics(
         "density_update_times_s": [o.time for o in log.openings if o.reason == "density"],
         "limit_violations": len(log.violations),
         "solver_failures": sum(log.robots[n].solver_failures() for n in names),
+        "keep_apart_brakes": sum(log.robots[n].keep_apart_brakes() for n in names),
         **closest_approach(log, footprints),
         "solve_time": solve,
         "wall_time_s": log.wall_time,
