@@ -248,6 +248,9 @@ def run_cells(path: Path, steps: int, solver: dict) -> dict[str, object]:
     x = np.zeros(model.nx)
     x[[i, j]] = START
     times: dict[str, list[float]] = {"plain": [], "rows": []}
+    iterations: dict[str, list[int]] = {"plain": [], "rows": []}
+    #: Samples the configured solver did not answer alone (a rescue or a held-off plugin).
+    handed_over = {"plain": 0, "rows": 0}
     used: list[int] = []
     largest_slack = 0.0
     for k in range(steps):
@@ -261,28 +264,35 @@ def run_cells(path: Path, steps: int, solver: dict) -> dict[str, object]:
             speed_limits=np.zeros(n),
         ))
         rows = window.rows_at(t, model.position(x))
-        _, elapsed_plain = _timed(plain.solve, x, target)
+        plain_answer, elapsed_plain = _timed(plain.solve, x, target)
         answer, elapsed_rows = _timed(with_rows.solve, x, target, (rows.normals, rows.offsets))
         largest_slack = max(largest_slack, answer.cell_violation)
         if k > 0:
             times["plain"].append(elapsed_plain)
             times["rows"].append(elapsed_rows)
             used.append(rows.used)
+            for name, solution in (("plain", plain_answer), ("rows", answer)):
+                iterations[name].append(solution.iterations)
+                handed_over[name] += ";" in solution.status or ":" in solution.status
         x = np.array(F(x, answer.first_input)).reshape(-1)
     stats = {name: np.percentile(v, [50, 95]) * 1e3 for name, v in times.items()}
     return {"model": model.kind, "stats": stats,
             "ratio": stats["rows"][0] / stats["plain"][0], "slack": largest_slack,
-            "used": (float(np.median(used)), max(used))}
+            "used": (float(np.median(used)), max(used)),
+            "iterations": {n: float(np.median(v)) for n, v in iterations.items()},
+            "handed_over": handed_over}
 
 
 def main_cells(files: list[Path], steps: int) -> int:
     print(f"keep-apart rows: {CELL_ROWS} rows, {steps} closed-loop samples; CPU ms per solve as")
     print("median/95th percentile without and with rows on the same states; ratio = medians")
     print("(issue 12: at most 1.30); slack = largest keep-apart slack used (m); rows used =")
-    print("real rows per solve (within reach; the rest are padding), median/largest")
+    print("real rows per solve (within reach; the rest are padding), median/largest;")
+    print("iters = median solver iterations without/with rows; handed = samples the first")
+    print("strategy did not answer alone (a rescue answered), without/with rows")
     header = (
         f"{'model':<20}{'path':<11}{'no rows':>15}{'12 rows':>15}{'ratio':>8}{'slack':>10}"
-        f"{'rows used':>11}"
+        f"{'rows used':>11}{'iters':>9}{'handed':>9}"
     )
     print(header)
     print("-" * len(header))
@@ -294,7 +304,9 @@ def main_cells(files: list[Path], steps: int) -> int:
                 f"{r['model']:<20}{solver['path']:<11}"
                 f"{st['plain'][0]:>8.2f}/{st['plain'][1]:<6.2f}"
                 f"{st['rows'][0]:>8.2f}/{st['rows'][1]:<6.2f}{r['ratio']:>7.2f}x"
-                f"{r['slack']:>10.1e}{r['used'][0]:>8g}/{r['used'][1]:<2d}",
+                f"{r['slack']:>10.1e}{r['used'][0]:>8g}/{r['used'][1]:<2d}"
+                f"{r['iterations']['plain']:>5g}/{r['iterations']['rows']:<3g}"
+                f"{r['handed_over']['plain']:>5d}/{r['handed_over']['rows']:<3d}",
                 flush=True,
             )
     return 0
