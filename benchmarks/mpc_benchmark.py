@@ -23,7 +23,9 @@ rows come from control/keep_apart.CellWindow with a snapshot every sample. Print
 95th percentile without and with rows, their ratio, the largest row slack used, and the
 median / largest number of real rows per solve (CellRows.used: rows within the robot's reach;
 the rest of the 12 are padding rows, which the MPC leaves out by solving the problem built
-for the smallest row budget that holds the real ones, control/mpc.CELL_ROW_BUDGETS).
+for the smallest row budget that holds the real ones, control/mpc.CELL_ROW_BUDGETS), the
+median solver iterations without / with rows, and the samples the first strategy did not
+answer alone (a rescue, or a plugin held off after a failure, answered them).
 
 Timing: CPU time of this process around each solver call (time.process_time). The machine
 is shared (2 cores, load often far above 2), and wall-clock time then measures the other
