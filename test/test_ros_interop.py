@@ -154,10 +154,13 @@ def test_two_fleets_in_one_domain_do_not_hear_each_other() -> None:
     node.create_timer(0.1, robots_of_fleet_a)
     try:
         spin_until(node, lambda: heard["fleet_a"] >= 5, "fleet_a's partition", stations)
-        # fleet_b's station may still be starting on a loaded machine: wait until it is
-        # discovered, then give it as long again to (wrongly) hear fleet_a's robots.
-        spin_until(node, lambda: node.count_subscribers("/fleet_b/rover_a/odom") == 2,
-                   "fleet_b's station subscribing to its own robots", stations)
+        # Each station's two subscribers (partition and gate) are discovered one by one, and
+        # fleet_b's station may still be starting on a loaded machine: hearing fleet_a's
+        # partition says nothing about either, so wait until both stations' subscriptions
+        # are seen, then give fleet_b as long again to (wrongly) hear fleet_a's robots.
+        for fleet in ("fleet_a", "fleet_b"):
+            spin_until(node, lambda f=fleet: node.count_subscribers(f"/{f}/rover_a/odom") == 2,
+                       f"{fleet}'s station subscribing to its own robots", stations)
         heard_a_when_b_was_up = heard["fleet_a"]
         spin_until(node, lambda: heard["fleet_a"] >= heard_a_when_b_was_up + 5,
                    "fleet_a's partition after fleet_b was up", stations)
