@@ -156,6 +156,12 @@ def test_watch_shows_a_running_graph_and_a_robot_that_falls_silent(graph) -> Non
         and robot_line(b, "rover_b").startswith("robot rover_b live"),
         "both robots live, a cost and generation 0",
     )
+    # What the watch shows reached the watch's process; this probe hears the generation and
+    # the cost on its own subscriptions, which may lag on a loaded machine.
+    watch.wait_until(
+        lambda: robots.spin(0.2) or (robots.generation is not None and robots.cost is not None),
+        "the generation and the cost at this probe",
+    )
     assert robots.generation == 0
     assert "stop: off" in block[0]  # the gate's fleet stop, released
     # The cost shown is the one on the wire (5 significant digits): the robots stand still.
