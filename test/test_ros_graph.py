@@ -189,3 +189,40 @@ def test_the_base_station_runs_the_vehicles_the_controllers_run(
             node.destroy_node()
     finally:
         rclpy.shutdown()
+
+
+def test_the_lockstep_simulator_waits_for_every_reader_of_the_odometry(
+    mission: Path, tmp_path: Path
+) -> None:
+    """The lockstep simulator's first step waits until each robot's odom has
+    `odom_subscribers` subscribers (fleet/lockstep.py), so that no node misses the first
+    states; the recorder, started first, is waited for by nothing else. The count must be
+    every reader the graph has, counted here on the nodes themselves: one low (the gate's
+    subscription was left out) and the first steps could go before the recorder listened."""
+    rclpy = pytest.importorskip("rclpy")
+    from coverage_fleet.ros.gate_node import GateNode
+    from coverage_fleet.ros.partition_node import PartitionNode
+    from coverage_fleet.ros.recorder_node import RecorderNode
+
+    def readers(spec: graph.NodeSpec, *factories) -> int:
+        rclpy.init(args=["odom_readers", *graph.ros_arguments(spec)])
+        try:
+            nodes = [factory() for factory in factories]
+            try:
+                return sum(s.topic_name == "/rover_a/odom" for n in nodes for s in n.subscriptions)
+            finally:
+                for node in nodes:
+                    node.destroy_node()
+        finally:
+            rclpy.shutdown()
+
+    for recorded in (False, True):
+        nodes = {n.role: n for n in graph.fleet_nodes(mission, "lockstep", recorded=recorded)}
+        station = readers(nodes["base_station"], PartitionNode, GateNode)
+        recorder = readers(
+            graph.recorder_node_spec(mission, tmp_path / f"{recorded}.mcap"), RecorderNode
+        ) if recorded else 0
+        controller = 1  # its robot's odom (controller_node.py; a simulated robot has no pose)
+        assert station == 2 and recorder == int(recorded), (station, recorder)
+        expected = station + controller + recorder
+        assert nodes["simulator"].parameters["odom_subscribers"] == expected, recorded

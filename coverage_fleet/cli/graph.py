@@ -143,21 +143,31 @@ def controller_node_spec(
     return replace(spec, robot=robot)
 
 
+def odom_readers(recorded: bool) -> int:
+    """Subscribers of each simulated robot's odom in a whole graph: its controller, the
+    base station's partition node and gate (each reads every robot's state), and the
+    recorder when the run is recorded. Counted low (the gate was once left out), the
+    lockstep simulator could take its first steps before the recorder listened, and the
+    recording would miss the first states."""
+    return 3 + int(recorded)
+
+
 def simulator_node_spec(
     mission_file: str | Path, mode: SimulationMode, stop_when_settled: bool = True,
     duration: float = 0.0, recorded: bool = False, fleet: str = "",
     tuning_file: str | Path | None = None,
 ) -> NodeSpec:
     """The headless simulator (the clock source: it never uses sim time itself). In
-    lockstep it starts once each robot's odom has its controller and the partition node
-    (and the recorder, when `recorded`) as subscribers, so nobody misses the first steps."""
+    lockstep it starts once each robot's odom has its controller, the partition node and
+    the gate (and the recorder, when `recorded`) as subscribers, so nobody misses the first
+    steps (`odom_readers`)."""
     spec = _spec(
         "simulator", "coverage_fleet_simulator", "coverage_simulator", fleet_namespace(fleet),
         mission_file=str(Path(mission_file).resolve()),
         mode=mode,
         stop_when_settled=stop_when_settled,
         duration=float(duration),
-        odom_subscribers=3 if recorded else 2,
+        odom_subscribers=odom_readers(recorded),
         use_sim_time=False,
     )
     return replace(_tuned(spec, tuning_file), ends_run=True)

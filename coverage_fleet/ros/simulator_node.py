@@ -136,9 +136,10 @@ class SimulatorNode(Node):
             "(coverage/station_answer), under the same timeouts as a controller.",
         )
         self.odom_subscribers = declare(
-            self, "odom_subscribers", 2,
+            self, "odom_subscribers", 3,
             "Lockstep: the first step waits until every robot's odom has this many "
-            "subscribers (its controller, the partition node, a recorder...).", (0, 100),
+            "subscribers (its controller, the partition node, the gate, a recorder: "
+            "cli/graph.odom_readers).", (0, 100),
         )
         diagnostics_period = declare(
             self, "diagnostics_period", 1.0, "Wall seconds between /diagnostics messages.",
