@@ -151,10 +151,13 @@ def test_watch_shows_a_running_graph_and_a_robot_that_falls_silent(graph) -> Non
     robots, watch = graph
     block = wait_for_block(
         robots, watch,
+        # The generation and each robot's target are latched topics of their own that may
+        # reach the watch in any order: wait for the target too, then look at that block.
         lambda b: "generation 0" in b[0] and "cost -" not in b[0]
         and robot_line(b, "rover_a").startswith("robot rover_a live")
-        and robot_line(b, "rover_b").startswith("robot rover_b live"),
-        "both robots live, a cost and generation 0",
+        and robot_line(b, "rover_b").startswith("robot rover_b live")
+        and "target -" not in robot_line(b, "rover_a"),
+        "both robots live, a cost, generation 0 and rover_a's target",
     )
     # What the watch shows reached the watch's process; this probe hears the generation and
     # the cost on its own subscriptions, which may lag on a loaded machine.
