@@ -75,6 +75,7 @@ pub = node.create_publisher(Odometry, topics.robot_topic("rover_d", topics.ODOM)
 waited = time.monotonic() + 60.0
 while pub.get_subscription_count() < 2 and time.monotonic() < waited:
     time.sleep(0.05)
+first = node.get_clock().now().nanoseconds * 1e-9
 start = time.monotonic()
 for k in range(int(rate * seconds)):
     pub.publish(cv.odometry_to_msg(OdometryValues(x, y, 0.0), node.get_clock().now().to_msg(),
@@ -82,7 +83,8 @@ for k in range(int(rate * seconds)):
     pause = start + (k + 1) / rate - time.monotonic()
     if pause > 0:
         time.sleep(pause)
-print("sent", int(rate * seconds), pub.get_subscription_count(), flush=True)
+last = node.get_clock().now().nanoseconds * 1e-9
+print("sent", int(rate * seconds), pub.get_subscription_count(), first, last, flush=True)
 node.destroy_node()
 rclpy.shutdown()
 """
@@ -105,6 +107,8 @@ class Fleet:
         self.diagnostics: dict[str, dict[str, str]] = {}
         #: diagnostics messages heard per status name
         self.reports: dict[str, int] = {}
+        #: (stamp in s, values) of every partition node report heard
+        self.partition_reports: list[tuple[float, dict[str, str]]] = []
         self.odom = {
             n: self.node.create_publisher(Odometry, topics.robot_topic(n, topics.ODOM), qos.STATE)
             for n in NAMES
@@ -150,6 +154,10 @@ class Fleet:
         for status in msg.status:
             self.reports[status.name] = self.reports.get(status.name, 0) + 1
             self.diagnostics[status.name] = {kv.key: kv.value for kv in status.values}
+            if status.name == "coverage_fleet/partition":
+                self.partition_reports.append(
+                    (cv.stamp_to_seconds(msg.header.stamp), self.diagnostics[status.name])
+                )
 
     def count(self, node: str, key: str) -> int:
         return int(self.diagnostics.get(f"coverage_fleet/{node}", {}).get(key, "0") or 0)
@@ -316,28 +324,38 @@ def test_an_odometry_flood_on_one_robot_leaves_the_others_going(fleet: Fleet) ->
         [sys.executable, "-c", FLOOD, "1000", "5", str(x), str(y)],
         stdout=subprocess.PIPE, stderr=subprocess.STDOUT, text=True,
     )
-    received = {n: fleet.count("partition", f"{n}.received") for n in ("rover_a", "rover_d")}
     generation = fleet.generation
     fleet.spin_until(lambda: flood.poll() is not None, "the end of the flood")
     sent = flood.stdout.read()
-    matched = re.search(r"^sent 5000 (\d+)$", sent, re.MULTILINE)
+    matched = re.search(r"^sent 5000 (\d+) (\S+) (\S+)$", sent, re.MULTILINE)
     # sent to both of its subscribers (partition and gate), not into an unmatched topic
     assert flood.returncode == 0 and matched and int(matched.group(1)) >= 2, sent
+    first, last = float(matched.group(2)), float(matched.group(3))
     during = fleet.generation
-    # Counts as of the partition node's next report after the flood.
-    reports = fleet.reports.get("coverage_fleet/partition", 0)
+    # Every partition report stamped within the flood's span has arrived once one stamped
+    # after it has (one publisher, in order).
     fleet.spin_until(
-        lambda: fleet.reports.get("coverage_fleet/partition", 0) > reports,
+        lambda: any(stamp > last for stamp, _ in fleet.partition_reports),
         "the partition node's diagnostics after the flood",
     )
-    flood_count = fleet.count("partition", "rover_d.received") - received["rover_d"]
-    calm_count = fleet.count("partition", "rover_a.received") - received["rover_a"]
+    inside = [values for stamp, values in fleet.partition_reports if first <= stamp <= last]
+    assert len(inside) >= 2, (first, last, [t for t, _ in fleet.partition_reports])
+
+    def received(name: str) -> int:
+        return int(inside[-1][f"{name}.received"]) - int(inside[0][f"{name}.received"])
+
+    flood_count, calm_count = received("rover_d"), received("rover_a")
     fleet.silent.discard("rover_d")
     fleet.spin_for_generations(2, "generations after the flood")
     assert during > generation, "no generation was committed during the flood"
     # The flood shows in the counts: more of rover_d's states than of a calm robot's (10
-    # per second) over the same span. (How many more depends on the machine: states are
-    # keep-last 1 and a busy node takes only the newest.)
+    # per second) between two reports of the partition node stamped within the flood. A
+    # busy node takes only the newest state of each robot (keep-last 1), so how many more
+    # depends on the machine; but while the flood lasts rover_d's queue is never empty, so
+    # every wait that takes a state of rover_a takes one of rover_d too, and the waits for
+    # the other robots' states and reports and for timers take more of rover_d alone. (The
+    # span from the flood process's start to its end did not do: rover_d is silent while
+    # that process starts, which on a loaded machine took seconds: 59 against 91.)
     assert flood_count > calm_count > 0, (flood_count, calm_count)
 
 
