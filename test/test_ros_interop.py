@@ -131,6 +131,15 @@ def test_two_fleets_in_one_domain_do_not_hear_each_other() -> None:
     rclpy.init()
     node = rclpy.create_node("two_fleets_probe")
     heard = {"fleet_a": 0, "fleet_b": 0}
+    other_stations: list[str] = []
+
+    def on_diagnostics(msg: DiagnosticArray) -> None:
+        other_stations.extend(
+            kv.value for status in msg.status if status.name == "coverage_fleet/partition"
+            for kv in status.values if kv.key == "other_stations"
+        )
+
+    node.create_subscription(DiagnosticArray, topics.DIAGNOSTICS, on_diagnostics, qos.DISPLAY)
     for fleet in heard:
         node.create_subscription(
             Float64MultiArray, f"/{fleet}/{topics.CANDIDATES}",
@@ -169,11 +178,52 @@ def test_two_fleets_in_one_domain_do_not_hear_each_other() -> None:
         assert node.count_subscribers("/fleet_b/rover_a/odom") == 2
         assert node.count_subscribers("/rover_a/odom") == 0
         assert heard["fleet_b"] == 0, "fleet_b partitioned fleet_a's robots"
+        spin_until(node, lambda: len(other_stations) >= 2, "the partitions' diagnostics",
+                   stations)
+        # Different namespaces: neither station counts the other as a second one.
+        assert set(other_stations) == {"0"}, other_stations
     finally:
         node.destroy_node()
         rclpy.shutdown()
         for station in stations:
             stop(station)
+
+
+def test_a_second_base_station_for_the_same_fleet_is_reported() -> None:
+    """Two stations in one namespace and domain would both send the robots targets: each
+    partition node says so on /diagnostics (ERROR, the topic and the count) and in its
+    log. Stations in different namespaces do not (test above: other_stations 0)."""
+    stations = [
+        start("coverage_fleet.ros.base_station", "-r", "__ns:=/fleet_x",
+              "-p", "startup_grace:=0.5")
+        for _ in range(2)
+    ]
+    rclpy.init()
+    node = rclpy.create_node("second_station_probe")
+    reports: list[tuple[int, str, dict[str, str]]] = []
+
+    def on_diagnostics(msg: DiagnosticArray) -> None:
+        for status in msg.status:
+            if status.name == "coverage_fleet/partition":
+                values = {kv.key: kv.value for kv in status.values}
+                reports.append((status.level[0], status.message, values))
+
+    node.create_subscription(DiagnosticArray, topics.DIAGNOSTICS, on_diagnostics, qos.DISPLAY)
+    try:
+        spin_until(
+            node, lambda: any(v.get("other_stations") == "1" for _, _, v in reports),
+            "a partition report naming the other station", stations,
+        )
+        level, message, _ = next(r for r in reports if r[2].get("other_stations") == "1")
+        assert level == 2, message  # 2 = ERROR
+        assert message.startswith("1 other node(s) publish /fleet_x/coverage/candidates")
+        assert "a second base station for this fleet?" in message
+    finally:
+        node.destroy_node()
+        rclpy.shutdown()
+        outputs = [stop(station) for station in stations]
+    assert any("a second base station for this fleet?" in o for o in outputs), outputs[0][-2000:]
+    assert all("Traceback" not in o for o in outputs)
 
 
 def test_a_second_simulator_in_the_domain_is_refused() -> None:

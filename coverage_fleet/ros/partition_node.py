@@ -192,6 +192,8 @@ class PartitionNode(Node):
         self.cells_pub = self.create_publisher(MarkerArray, topics.CELLS, qos.LATCHED)
         self.diag_pub = self.create_publisher(DiagnosticArray, topics.DIAGNOSTICS, qos.DISPLAY)
         self.partitions = 0
+        #: Other publishers of our candidates topic seen at the last diagnostics.
+        self._other_stations = 0
         if not self.lockstep:
             self.create_timer(1.0 / rate, self._on_timer)
         self.snapshots = 0
@@ -308,7 +310,19 @@ class PartitionNode(Node):
         live = self.liveness.live
         missing = [n for n in self.names if n not in live]
         new_drops = self.inbox.new_drops()
-        if not live:
+        # A second base station for the same fleet (same namespace, same domain): both
+        # gates would send the robots targets and the candidates of both would mix. It is
+        # not refused (a crashed station's publisher lingers in discovery for a lease
+        # period, so a restart would be refused for that long), but said loudly.
+        topic = self.candidates_pub.topic_name
+        others = max(0, self.count_publishers(topic) - 1)
+        if others != self._other_stations:
+            self._other_stations = others
+            if others:
+                self.get_logger().error(self._second_station_message(topic, others))
+        if others:
+            level, message = DiagnosticStatus.ERROR, self._second_station_message(topic, others)
+        elif not live:
             level, message = DiagnosticStatus.ERROR, "no live robot"
         elif missing or new_drops:
             level = DiagnosticStatus.WARN
@@ -318,6 +332,7 @@ class PartitionNode(Node):
         else:
             level, message = DiagnosticStatus.OK, "partitioning"
         values = {
+            "other_stations": others,
             "live_robots": ",".join(live),
             "live_count": len(live),
             "left_out": ",".join(missing),
@@ -327,6 +342,14 @@ class PartitionNode(Node):
         }
         self.inbox.publish(
             self.diag_pub, "coverage_fleet/partition", level, message, values
+        )
+
+    @staticmethod
+    def _second_station_message(topic: str, others: int) -> str:
+        return (
+            f"{others} other node(s) publish {topic}: a second base station for this "
+            "fleet? Its targets and candidates mix with ours; give each fleet a namespace "
+            "or a ROS_DOMAIN_ID of its own"
         )
 
     def _publish_snapshot(self) -> None:
