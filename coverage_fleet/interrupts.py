@@ -20,10 +20,13 @@ from __future__ import annotations
 
 import signal
 import threading
-from collections.abc import Iterator
+from collections.abc import Callable, Iterable, Iterator
 from contextlib import contextmanager
 
 _requested = threading.Event()
+
+#: Signals that stop a launcher's run: Ctrl-C, a service manager's stop, a closed terminal.
+RUN_STOP_SIGNALS = (signal.SIGINT, signal.SIGTERM, signal.SIGHUP)
 
 
 def _record(_signum: int, _frame: object) -> None:
@@ -61,18 +64,31 @@ def sigint_held() -> Iterator[None]:
     """Hold a SIGINT that arrives inside the block and hand it to the previous handler when
     the block ends. Inside `interrupts_at_safe_points()` the handler already only records,
     so nothing is swapped; SIG_IGN / SIG_DFL set from outside Python are left alone."""
+    with signals_held((signal.SIGINT,)):
+        yield
+
+
+@contextmanager
+def signals_held(numbers: Iterable[int]) -> Iterator[None]:
+    """sigint_held for any signals whose Python handlers raise (the launcher's SIGINT,
+    SIGTERM and SIGHUP): each that arrives inside the block goes to its previous handler,
+    in the order received, when the block ends."""
     if not _in_main_thread():
         yield
         return
-    previous = signal.getsignal(signal.SIGINT)
-    if previous is _record or not callable(previous):
-        yield
-        return
+    held: dict[int, Callable[[int, object], object]] = {}
+    for number in numbers:
+        previous = signal.getsignal(number)
+        if previous is _record or not callable(previous):
+            continue
+        held[number] = previous
     received: list[int] = []
-    signal.signal(signal.SIGINT, lambda number, _frame: received.append(number))
+    for number in held:
+        signal.signal(number, lambda caught, _frame: received.append(caught))
     try:
         yield
     finally:
-        signal.signal(signal.SIGINT, previous)
-        if received:
-            previous(signal.SIGINT, None)
+        for number, previous in held.items():
+            signal.signal(number, previous)
+        for number in received:
+            held[number](number, None)

@@ -26,12 +26,10 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import TextIO
 
+from coverage_fleet.interrupts import RUN_STOP_SIGNALS as STOP_SIGNALS
 from coverage_fleet.ros.launcher_contract import PARENT_PID_VARIABLE
 
 from .graph import NodeSpec, ros_arguments
-
-#: Signals that stop a run: Ctrl-C, a service manager's stop, a closed terminal.
-STOP_SIGNALS = (signal.SIGINT, signal.SIGTERM, signal.SIGHUP)
 
 SAFETY_CAUTION = (
     "Safety: robots can hurt people and damage property. Run trials only under supervision, "

@@ -45,6 +45,7 @@ from std_msgs.msg import Float64MultiArray, String
 
 from coverage_fleet.cli.live_state import FleetWatch
 from coverage_fleet.fleet.message_checks import BadMessageError
+from coverage_fleet.interrupts import RUN_STOP_SIGNALS, signals_held
 
 from . import qos, topics
 from .conversions import (
@@ -236,11 +237,15 @@ class LiveListener:
             self._next_discovery = self.clock() + DISCOVERY_PERIOD
             self.discover()
         # Each pass handles one ready message; stop at the first pass that handled none.
-        for _ in range(4 * sum(1 for _ in self.node.subscriptions) + 4):
-            before = self._handled
-            self.executor.spin_once(timeout_sec=0.0)
-            if self._handled == before:
-                break
+        # A Ctrl-C (or the launcher's SIGTERM / SIGHUP) landing inside rclpy's take surfaced
+        # as a RuntimeError from pybind11 ("Unable to convert call argument"), a traceback
+        # instead of the launcher's stop: held until the passes are done (milliseconds).
+        with signals_held(RUN_STOP_SIGNALS):
+            for _ in range(4 * sum(1 for _ in self.node.subscriptions) + 4):
+                before = self._handled
+                self.executor.spin_once(timeout_sec=0.0)
+                if self._handled == before:
+                    break
         remaining = deadline - self.clock()
         if remaining > 0:
             time.sleep(remaining)
