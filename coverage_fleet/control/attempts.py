@@ -13,8 +13,11 @@ import numpy as np
 
 @dataclass(frozen=True)
 class NlpInstance:
-    """One sample's problem: decision-variable guess, parameters, bounds, and the previous
-    multipliers (None for a cold start)."""
+    """One sample's problem: decision-variable guess, parameters, bounds, the previous
+    multipliers (None for a cold start), and whether the guess is the last plan shifted
+    by one sample (False: a cold start, a stall restart's constructed guess, or an answer
+    that must be converged; strategies that rely on a shifted plan,
+    `SolveStrategy.needs_shifted_plan`, are then left out: solver_chain.py)."""
 
     guess: np.ndarray
     parameters: np.ndarray
@@ -24,6 +27,7 @@ class NlpInstance:
     ubg: np.ndarray
     lam_x0: np.ndarray | None = None
     lam_g0: np.ndarray | None = None
+    shifted_plan: bool = True
 
 
 @dataclass(frozen=True)
@@ -40,3 +44,6 @@ class Attempt:
     cost: float
     lam_x: np.ndarray
     lam_g: np.ndarray
+    #: x is a solution to the solver's tolerance (False: a real-time iterate, a few
+    #: Newton-type steps from the guess; its cost is no optimum to compare against).
+    converged: bool = True

@@ -153,6 +153,8 @@ class RealTimeIterationStrategy:
     #: A rejected step is followed by a full solve, whose shifted plan is again a good
     #: start: try the next sample in real time again.
     hold_samples: int | None = 0
+    #: Steps from a guess near the optimum only (solver_chain.py's module docstring).
+    needs_shifted_plan = True
 
     def __init__(
         self,
@@ -270,4 +272,5 @@ class RealTimeIterationStrategy:
             cost=cost,
             lam_x=np.zeros_like(w) if lam_x is None else lam_x,
             lam_g=lam_g,
+            converged=False,
         )

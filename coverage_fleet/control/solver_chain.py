@@ -16,6 +16,19 @@ behind it); then IPOPT from the same warm start with RESCUE_ITERATION_FACTOR tim
 budget (slower but more forgiving far from the previous solution). `path: full` drops the
 first strategy.
 
+The real-time iteration is left out (`needs_shifted_plan`) when the instance's guess is not
+the last plan shifted (`NlpInstance.shifted_plan` False): its premise is a guess already
+near the optimum, so that one to MAX_STEPS Newton-type steps leave an error second order in
+a small step (Diehl, Bock & Schloeder, SIAM J. Control Optim. 43(5), 2005, sec. 4), and its
+iterate is neither converged nor exactly feasible (rti.VIOLATION_TOLERANCE per row;
+`Attempt.converged` False). mpc.py passes False for the cold start, for the stall restarts
+(guesses built from a straight drive or a shunt) and for converging a stalled real-time
+answer before the restarts are compared with it by cost. Measured before: a car-like robot
+resting 0.17 m beside its target took a restart's iterate, two steps from a shunt guess,
+at cost 1.74 against 2.95 for the converged plan to stay (its dynamics defects bought the
+sideways move), reversed at -0.6 m/s^2 and crept back, every 15 samples, never still; the
+orchard demo's two car-like robots never settled (test_control_real_time_rest.py).
+
 Every casadi call runs inside `interrupts.sigint_held()`: casadi turns a Ctrl-C that lands
 inside a solver callback into a failed solve, which the controller would treat as a solver
 fault and carry on, losing the operator's Ctrl-C.
@@ -129,6 +142,8 @@ class SolveStrategy(Protocol):
     name: str
     #: Calls to skip after a failure (None: the chain's hold_samples).
     hold_samples: int | None
+    #: Only for a guess that is the last plan shifted (module docstring).
+    needs_shifted_plan: bool
 
     def attempt(self, instance: NlpInstance) -> Attempt: ...
 
@@ -137,6 +152,7 @@ class NlpsolStrategy:
     """A full solve by one casadi nlpsol plugin."""
 
     hold_samples: int | None = None
+    needs_shifted_plan = False
 
     def __init__(self, name: str, solver: ca.Function) -> None:
         self.name = name
@@ -204,6 +220,8 @@ class SolverChain:
         attempts: list[Attempt] = []
         last = len(self.strategies) - 1
         for index, strategy in enumerate(self.strategies):
+            if index < last and strategy.needs_shifted_plan and not instance.shifted_plan:
+                continue
             if index < last and self._skip_left[index] > 0:
                 self._skip_left[index] -= 1
                 continue
