@@ -53,6 +53,7 @@ from coverage_fleet.control.limits import input_limits, state_limits, steady_lim
 from coverage_fleet.control.mpc import TrackingMpc
 from coverage_fleet.control.stage_cost import stage_weights
 from coverage_fleet.control.terminal import compute_terminal_ingredients
+from coverage_fleet.fleet.mission import Mission
 from coverage_fleet.geometry.region import ConvexRegion
 from coverage_fleet.vehicles.loader import VehicleSpec, load_vehicle_file
 
@@ -285,6 +286,112 @@ def run_cells(path: Path, steps: int, solver: dict) -> dict[str, object]:
             "handed_over": handed_over}
 
 
+def record_fleet_solves(
+    mission_path: Path, packed_gap: float | None, seed: int, duration: float | None
+) -> tuple[Mission, dict[int, tuple[TrackingMpc, list[tuple]]]]:
+    """Every solve of the fleet's MPCs in one offline run of the mission (keep-apart on, as
+    shipped; one process): (state, target, cell rows) in order, by MPC. Start poses: the
+    roster's own, or packed with `packed_gap` metres (fleet.batch.start_poses, `seed`).
+    The run ends when the fleet is settled (or at `duration`, default the mission's)."""
+    from coverage_fleet.fleet.batch import start_poses
+    from coverage_fleet.fleet.mission import load_mission
+    from coverage_fleet.fleet.simulation import simulate_mission
+
+    mission = load_mission(mission_path)
+    if not mission.keep_apart.enabled:
+        raise SystemExit(f"{mission_path}: keep_apart is off in this mission; nothing to time")
+    poses = None if packed_gap is None else start_poses(mission, seed, packed_gap)
+    recorded: dict[int, tuple[TrackingMpc, list[tuple]]] = {}
+    solve = TrackingMpc.solve
+
+    def recording(mpc: TrackingMpc, x0, target_xy, cell=None):
+        copies = (np.array(x0, float), np.array(target_xy, float),
+                  None if cell is None else (np.array(cell[0]), np.array(cell[1])))
+        recorded.setdefault(id(mpc), (mpc, []))[1].append(copies)
+        return solve(mpc, x0, target_xy, cell)
+
+    # Instrumentation of this run only: the solves themselves are the shipped ones.
+    TrackingMpc.solve = recording
+    try:
+        simulate_mission(mission, seed=seed, duration=duration, initial_poses=poses)
+    finally:
+        TrackingMpc.solve = solve
+    return mission, recorded
+
+
+def run_fleet_cells(
+    mission: Mission, recorded: dict[int, tuple[TrackingMpc, list[tuple]]], solver: dict
+) -> dict[str, dict[str, object]]:
+    """Per vehicle model: median / p95 CPU ms of fresh MPCs without and with the fleet's
+    rows, given the recorded sequence of each robot's solves (states, targets, rows)."""
+    from coverage_fleet.control.terminal import terminal_for_vehicle
+
+    by_model = {id(e.vehicle.model): e for e in mission.roster}
+    results: dict[str, dict[str, list]] = {}
+    for fleet_mpc, solves in recorded.values():
+        entry = by_model[id(fleet_mpc.model)]
+        spec = _with_solver(entry.vehicle, **solver)
+        terminal, _ = terminal_for_vehicle(spec)
+        region = (fleet_mpc.region_A, fleet_mpc.region_b)
+        plain = TrackingMpc(spec.model, spec.mpc, region, terminal)
+        with_rows = TrackingMpc(spec.model, spec.mpc, region, terminal,
+                                cell_rows=fleet_mpc.cell_rows)
+        bucket = results.setdefault(spec.model.kind, {
+            "plain": [], "rows": [], "iters_plain": [], "iters_rows": [], "used": [],
+            "handed_plain": [], "handed_rows": [], "slack": [], "robots": [],
+        })
+        bucket["robots"].append(1)
+        for k, (x, target, cell) in enumerate(solves):
+            if cell is None:
+                continue  # a robot without its cell brakes: no solve in either
+            plain_answer, elapsed_plain = _timed(plain.solve, x, target)
+            answer, elapsed_rows = _timed(with_rows.solve, x, target, cell)
+            if k == 0:
+                continue  # the cold first solve is not a warm-started sample
+            bucket["plain"].append(elapsed_plain)
+            bucket["rows"].append(elapsed_rows)
+            bucket["used"].append(int(np.count_nonzero(np.any(cell[0] != 0.0, axis=1))))
+            bucket["slack"].append(answer.cell_violation)
+            for name, solution in (("plain", plain_answer), ("rows", answer)):
+                bucket[f"iters_{name}"].append(solution.iterations)
+                bucket[f"handed_{name}"].append(";" in solution.status or ":" in solution.status)
+    return results
+
+
+def main_fleet_cells(mission_path: Path, packed_gap: float | None, seed: int,
+                     duration: float | None) -> int:
+    started = time.perf_counter()
+    mission, recorded = record_fleet_solves(mission_path, packed_gap, seed, duration)
+    solves = sum(len(v) for _, v in recorded.values())
+    start = "the roster's poses" if packed_gap is None else f"packed, gap {packed_gap:g} m"
+    print(f"keep-apart rows in the fleet's own loop: {mission_path.name} ({start}, seed "
+          f"{seed}), {solves} solves of {len(recorded)} robots recorded in "
+          f"{time.perf_counter() - started:.0f} s; each robot's solves given again, in order, "
+          "to fresh MPCs without and with rows; CPU ms median/95th percentile; ratio = "
+          "medians (issue 12: at most 1.30); rows used = real rows per solve, median/largest;"
+          " iters = median iterations without/with rows; handed = samples a rescue answered")
+    header = (
+        f"{'model':<20}{'path':<11}{'robots':>7}{'samples':>8}{'no rows':>15}{'rows':>15}"
+        f"{'ratio':>8}{'slack':>10}{'rows used':>11}{'iters':>9}{'handed':>10}"
+    )
+    print(header)
+    print("-" * len(header))
+    for solver in ({"path": "full"}, {"path": "real_time", "compile": True}):
+        for model, r in sorted(run_fleet_cells(mission, recorded, solver).items()):
+            plain = np.percentile(r["plain"], [50, 95]) * 1e3
+            rows = np.percentile(r["rows"], [50, 95]) * 1e3
+            print(
+                f"{model:<20}{solver['path']:<11}{len(r['robots']):>7}{len(r['plain']):>8}"
+                f"{plain[0]:>8.2f}/{plain[1]:<6.2f}{rows[0]:>8.2f}/{rows[1]:<6.2f}"
+                f"{rows[0] / plain[0]:>7.2f}x{max(r['slack']):>10.1e}"
+                f"{np.median(r['used']):>8g}/{max(r['used']):<2d}"
+                f"{np.median(r['iters_plain']):>5g}/{np.median(r['iters_rows']):<3g}"
+                f"{sum(r['handed_plain']):>5d}/{sum(r['handed_rows']):<4d}",
+                flush=True,
+            )
+    return 0
+
+
 def main_cells(files: list[Path], steps: int) -> int:
     print(f"keep-apart rows: {CELL_ROWS} rows, {steps} closed-loop samples; CPU ms per solve as")
     print("median/95th percentile without and with rows on the same states; ratio = medians")
@@ -328,8 +435,19 @@ def main(argv: list[str] | None = None) -> int:
         "--keep-apart", action="store_true",
         help="time the MPC without and with keep-apart rows instead",
     )
+    parser.add_argument(
+        "--fleet", type=Path, default=None, metavar="MISSION",
+        help="with --keep-apart: time the rows on the solves of this mission's own fleet run",
+    )
+    parser.add_argument("--packed-gap", type=float, default=None,
+                        help="with --fleet: start packed with this gap (metres)")
+    parser.add_argument("--seed", type=int, default=1, help="with --fleet: the run's seed")
+    parser.add_argument("--duration", type=float, default=None,
+                        help="with --fleet: simulated seconds at most (default: the mission's)")
     args = parser.parse_args(argv)
     files = args.files or sorted((REPO / "config" / "vehicles").glob("*.yaml"))
+    if args.keep_apart and args.fleet is not None:
+        return main_fleet_cells(args.fleet, args.packed_gap, args.seed, args.duration)
     if args.keep_apart:
         return main_cells(files, args.steps)
     header = (
