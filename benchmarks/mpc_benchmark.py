@@ -231,8 +231,10 @@ NEIGHBOUR_RADIUS = 0.4
 CELL_ROWS = 12
 
 
-def run_cells(path: Path, steps: int, solver: dict) -> dict[str, object]:
-    """Median / p95 CPU ms without and with keep-apart rows on the same states."""
+def run_cells(path: Path, steps: int, solver: dict, repeat: int = 1) -> dict[str, object]:
+    """Median / p95 CPU ms without and with keep-apart rows on the same states; with
+    repeat > 1 the same loop runs that many times with fresh MPCs (it is deterministic:
+    same states, same warm starts) and each sample keeps its least time."""
     from coverage_fleet.control.keep_apart import CellWindow, KeepApartSettings, horizon_reach
     from coverage_fleet.geometry.buffered_cells import FleetSnapshot
 
@@ -240,45 +242,52 @@ def run_cells(path: Path, steps: int, solver: dict) -> dict[str, object]:
     terminal = compute_terminal_ingredients(spec.model, spec.mpc, spec.cache_key)
     region = ConvexRegion.from_vertices(REGION, source="benchmark").halfspaces()
     model, settings = spec.model, spec.mpc
-    plain = TrackingMpc(model, settings, region, terminal)
-    with_rows = TrackingMpc(model, settings, region, terminal, cell_rows=CELL_ROWS)
-    window = CellWindow(
-        "robot", KeepApartSettings(), window=2 * settings.sample_time, rows=CELL_ROWS,
-        reach=horizon_reach(model.max_planar_speed, settings.sample_time, settings.horizon),
-    )
     F = model.discrete_dynamics(settings.sample_time, settings.substeps)
     i, j = model.position_indices
-    x = np.zeros(model.nx)
-    x[[i, j]] = START
-    times: dict[str, list[float]] = {"plain": [], "rows": []}
-    iterations: dict[str, list[int]] = {"plain": [], "rows": []}
-    #: Samples the configured solver did not answer alone (a rescue or a held-off plugin).
-    handed_over = {"plain": 0, "rows": 0}
-    used: list[int] = []
-    largest_slack = 0.0
-    for k in range(steps):
-        target = np.array(TARGETS[min(k * len(TARGETS) // steps, len(TARGETS) - 1)])
-        t = k * settings.sample_time
-        n = len(NEIGHBOURS) + 1
-        window.add(FleetSnapshot(
-            time=t, names=("robot", *(f"n{m}" for m in range(n - 1))),
-            positions=np.vstack([model.position(x), NEIGHBOURS]), ages=np.zeros(n),
-            radii=np.r_[model.footprint_radius, np.full(n - 1, NEIGHBOUR_RADIUS)],
-            speed_limits=np.zeros(n),
-        ))
-        rows = window.rows_at(t, model.position(x))
-        plain_answer, elapsed_plain = _timed(plain.solve, x, target)
-        answer, elapsed_rows = _timed(with_rows.solve, x, target, (rows.normals, rows.offsets))
-        largest_slack = max(largest_slack, answer.cell_violation)
-        if k > 0:
-            times["plain"].append(elapsed_plain)
-            times["rows"].append(elapsed_rows)
-            used.append(rows.used)
-            for name, solution in (("plain", plain_answer), ("rows", answer)):
-                iterations[name].append(solution.iterations)
-                handed_over[name] += ";" in solution.status or ":" in solution.status
-        x = np.array(F(x, answer.first_input)).reshape(-1)
-    stats = {name: np.percentile(v, [50, 95]) * 1e3 for name, v in times.items()}
+    passes = []
+    for _ in range(repeat):
+        plain = TrackingMpc(model, settings, region, terminal)
+        with_rows = TrackingMpc(model, settings, region, terminal, cell_rows=CELL_ROWS)
+        window = CellWindow(
+            "robot", KeepApartSettings(), window=2 * settings.sample_time, rows=CELL_ROWS,
+            reach=horizon_reach(model.max_planar_speed, settings.sample_time, settings.horizon),
+        )
+        x = np.zeros(model.nx)
+        x[[i, j]] = START
+        times: dict[str, list[float]] = {"plain": [], "rows": []}
+        iterations: dict[str, list[int]] = {"plain": [], "rows": []}
+        #: Samples the configured solver did not answer alone (a rescue or a held-off
+        #: plugin).
+        handed_over = {"plain": 0, "rows": 0}
+        used: list[int] = []
+        largest_slack = 0.0
+        for k in range(steps):
+            target = np.array(TARGETS[min(k * len(TARGETS) // steps, len(TARGETS) - 1)])
+            t = k * settings.sample_time
+            n = len(NEIGHBOURS) + 1
+            window.add(FleetSnapshot(
+                time=t, names=("robot", *(f"n{m}" for m in range(n - 1))),
+                positions=np.vstack([model.position(x), NEIGHBOURS]), ages=np.zeros(n),
+                radii=np.r_[model.footprint_radius, np.full(n - 1, NEIGHBOUR_RADIUS)],
+                speed_limits=np.zeros(n),
+            ))
+            rows = window.rows_at(t, model.position(x))
+            plain_answer, elapsed_plain = _timed(plain.solve, x, target)
+            answer, elapsed_rows = _timed(
+                with_rows.solve, x, target, (rows.normals, rows.offsets)
+            )
+            largest_slack = max(largest_slack, answer.cell_violation)
+            if k > 0:
+                times["plain"].append(elapsed_plain)
+                times["rows"].append(elapsed_rows)
+                used.append(rows.used)
+                for name, solution in (("plain", plain_answer), ("rows", answer)):
+                    iterations[name].append(solution.iterations)
+                    handed_over[name] += ";" in solution.status or ":" in solution.status
+            x = np.array(F(x, answer.first_input)).reshape(-1)
+        passes.append(times)
+    least = {name: np.min([p[name] for p in passes], axis=0) for name in ("plain", "rows")}
+    stats = {name: np.percentile(v, [50, 95]) * 1e3 for name, v in least.items()}
     return {"model": model.kind, "stats": stats,
             "ratio": stats["rows"][0] / stats["plain"][0], "slack": largest_slack,
             "used": (float(np.median(used)), max(used)),
@@ -320,10 +329,12 @@ def record_fleet_solves(
 
 
 def run_fleet_cells(
-    mission: Mission, recorded: dict[int, tuple[TrackingMpc, list[tuple]]], solver: dict
-) -> dict[str, dict[str, object]]:
-    """Per vehicle model: median / p95 CPU ms of fresh MPCs without and with the fleet's
-    rows, given the recorded sequence of each robot's solves (states, targets, rows)."""
+    mission: Mission, recorded: dict[int, tuple[TrackingMpc, list[tuple]]], solver: dict,
+    repeat: int = 1,
+) -> dict[str, dict[str, list]]:
+    """Per vehicle model: CPU times of fresh MPCs without and with the fleet's rows, given
+    the recorded sequence of each robot's solves (states, targets, rows); each sample's
+    least time of `repeat` passes (each pass is deterministic, see run_cells)."""
     from coverage_fleet.control.terminal import terminal_for_vehicle
 
     by_model = {id(e.vehicle.model): e for e in mission.roster}
@@ -333,33 +344,44 @@ def run_fleet_cells(
         spec = _with_solver(entry.vehicle, **solver)
         terminal, _ = terminal_for_vehicle(spec)
         region = (fleet_mpc.region_A, fleet_mpc.region_b)
-        plain = TrackingMpc(spec.model, spec.mpc, region, terminal)
-        with_rows = TrackingMpc(spec.model, spec.mpc, region, terminal,
-                                cell_rows=fleet_mpc.cell_rows)
         bucket = results.setdefault(spec.model.kind, {
             "plain": [], "rows": [], "iters_plain": [], "iters_rows": [], "used": [],
             "handed_plain": [], "handed_rows": [], "slack": [], "robots": [],
         })
         bucket["robots"].append(1)
-        for k, (x, target, cell) in enumerate(solves):
-            if cell is None:
-                continue  # a robot without its cell brakes: no solve in either
-            plain_answer, elapsed_plain = _timed(plain.solve, x, target)
-            answer, elapsed_rows = _timed(with_rows.solve, x, target, cell)
-            if k == 0:
-                continue  # the cold first solve is not a warm-started sample
-            bucket["plain"].append(elapsed_plain)
-            bucket["rows"].append(elapsed_rows)
-            bucket["used"].append(int(np.count_nonzero(np.any(cell[0] != 0.0, axis=1))))
-            bucket["slack"].append(answer.cell_violation)
-            for name, solution in (("plain", plain_answer), ("rows", answer)):
-                bucket[f"iters_{name}"].append(solution.iterations)
-                bucket[f"handed_{name}"].append(";" in solution.status or ":" in solution.status)
+        least: dict[str, np.ndarray] = {}
+        for pass_index in range(repeat):
+            plain = TrackingMpc(spec.model, spec.mpc, region, terminal)
+            with_rows = TrackingMpc(spec.model, spec.mpc, region, terminal,
+                                    cell_rows=fleet_mpc.cell_rows)
+            elapsed: dict[str, list[float]] = {"plain": [], "rows": []}
+            for k, (x, target, cell) in enumerate(solves):
+                if cell is None:
+                    continue  # a robot without its cell brakes: no solve in either
+                plain_answer, elapsed_plain = _timed(plain.solve, x, target)
+                answer, elapsed_rows = _timed(with_rows.solve, x, target, cell)
+                if k == 0:
+                    continue  # the cold first solve is not a warm-started sample
+                elapsed["plain"].append(elapsed_plain)
+                elapsed["rows"].append(elapsed_rows)
+                if pass_index:
+                    continue
+                bucket["used"].append(int(np.count_nonzero(np.any(cell[0] != 0.0, axis=1))))
+                bucket["slack"].append(answer.cell_violation)
+                for name, solution in (("plain", plain_answer), ("rows", answer)):
+                    bucket[f"iters_{name}"].append(solution.iterations)
+                    bucket[f"handed_{name}"].append(
+                        ";" in solution.status or ":" in solution.status
+                    )
+            for name, values in elapsed.items():
+                least[name] = np.minimum(least.get(name, np.inf), np.array(values))
+        for name in ("plain", "rows"):
+            bucket[name].extend(least[name].tolist())
     return results
 
 
 def main_fleet_cells(mission_path: Path, packed_gap: float | None, seed: int,
-                     duration: float | None) -> int:
+                     duration: float | None, repeat: int) -> int:
     started = time.perf_counter()
     mission, recorded = record_fleet_solves(mission_path, packed_gap, seed, duration)
     solves = sum(len(v) for _, v in recorded.values())
@@ -367,7 +389,8 @@ def main_fleet_cells(mission_path: Path, packed_gap: float | None, seed: int,
     print(f"keep-apart rows in the fleet's own loop: {mission_path.name} ({start}, seed "
           f"{seed}), {solves} solves of {len(recorded)} robots recorded in "
           f"{time.perf_counter() - started:.0f} s; each robot's solves given again, in order, "
-          "to fresh MPCs without and with rows; CPU ms median/95th percentile; ratio = "
+          f"to fresh MPCs without and with rows (each sample's least time of {repeat} passes);"
+          " CPU ms median/95th percentile; ratio = "
           "medians (issue 12: at most 1.30); rows used = real rows per solve, median/largest;"
           " iters = median iterations without/with rows; handed = samples a rescue answered")
     header = (
@@ -377,7 +400,7 @@ def main_fleet_cells(mission_path: Path, packed_gap: float | None, seed: int,
     print(header)
     print("-" * len(header))
     for solver in ({"path": "full"}, {"path": "real_time", "compile": True}):
-        for model, r in sorted(run_fleet_cells(mission, recorded, solver).items()):
+        for model, r in sorted(run_fleet_cells(mission, recorded, solver, repeat).items()):
             plain = np.percentile(r["plain"], [50, 95]) * 1e3
             rows = np.percentile(r["rows"], [50, 95]) * 1e3
             print(
@@ -392,8 +415,9 @@ def main_fleet_cells(mission_path: Path, packed_gap: float | None, seed: int,
     return 0
 
 
-def main_cells(files: list[Path], steps: int) -> int:
-    print(f"keep-apart rows: {CELL_ROWS} rows, {steps} closed-loop samples; CPU ms per solve as")
+def main_cells(files: list[Path], steps: int, repeat: int) -> int:
+    print(f"keep-apart rows: {CELL_ROWS} rows, {steps} closed-loop samples (each sample's least"
+          f" time of {repeat} runs of the loop); CPU ms per solve as")
     print("median/95th percentile without and with rows on the same states; ratio = medians")
     print("(issue 12: at most 1.30); slack = largest keep-apart slack used (m); rows used =")
     print("real rows per solve (within reach; the rest are padding), median/largest;")
@@ -407,7 +431,7 @@ def main_cells(files: list[Path], steps: int) -> int:
     print("-" * len(header))
     for solver in ({"path": "full"}, {"path": "real_time", "compile": True}):
         for path in files:
-            r = run_cells(path, steps, solver)
+            r = run_cells(path, steps, solver, repeat)
             st = r["stats"]
             print(
                 f"{r['model']:<20}{solver['path']:<11}"
@@ -442,14 +466,20 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--packed-gap", type=float, default=None,
                         help="with --fleet: start packed with this gap (metres)")
     parser.add_argument("--seed", type=int, default=1, help="with --fleet: the run's seed")
+    parser.add_argument(
+        "--repeat", type=int, default=1,
+        help="with --keep-apart: run each (deterministic) loop this many times and keep each "
+        "sample's least time (filters out the other processes' bursts on a shared machine)",
+    )
     parser.add_argument("--duration", type=float, default=None,
                         help="with --fleet: simulated seconds at most (default: the mission's)")
     args = parser.parse_args(argv)
     files = args.files or sorted((REPO / "config" / "vehicles").glob("*.yaml"))
     if args.keep_apart and args.fleet is not None:
-        return main_fleet_cells(args.fleet, args.packed_gap, args.seed, args.duration)
+        return main_fleet_cells(args.fleet, args.packed_gap, args.seed, args.duration,
+                                args.repeat)
     if args.keep_apart:
-        return main_cells(files, args.steps)
+        return main_cells(files, args.steps, args.repeat)
     header = (
         f"{'model':<20}{'fast':>15}{'fast, no cc':>15}{'full':>15}{'Opti+IPOPT':>15}"
         f"{'ratio':>7}{'no cc':>7}{'RTI':>6}{'cost':>8}{'dt':>5}{'p95<dt/5':>9}{'fails':>10}"
