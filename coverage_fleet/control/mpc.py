@@ -13,11 +13,12 @@ IEEE TAC 63(11), 2018), direct multiple shooting:
           A position(x_k) <= b - r |A_i|           (region shrunk by the footprint radius r)
           steady state: limits scaled by 1 - steady_state_margin towards rest (limits.py),
                         A position(x_s) <= b - (r + e_f) |A_i|  (e_f: terminal-set extent)
-          keep-apart (cell_rows > 0): n_m . position(x_k) - sigma_p <= c'_m - pad  (k >= 1),
+          keep-apart (cell_rows > 0): n_m . position(x_k) - sigma_k <= c'_m - pad  (k >= 1,
+                        sigma_N = sigma_{N-1}),
                         n_m . position(x_s) - sigma_s <= c_m - e_f + s,
                         A position(x_s) <= b - (r + e_f - min(s, e_f)) |A_i|  (for above),
-                        sigma_p >= 0, cost + CELL_PRICE sigma_p + CELL_PENALTY sigma_p^2
-                        + STEADY_CELL_PENALTIES[kind] sigma_s^2
+                        sigma_k >= 0, cost + sum_{1<=k<N} (CELL_PRICE sigma_k
+                        + CELL_PENALTY sigma_k^2) + STEADY_CELL_PENALTIES[kind] sigma_s^2
                         (rows n_m . p <= c_m: the robot's buffered cell, parameters of the
                         problem, control/keep_apart.py; pad = v_max * sample_time / 2, how
                         far the centre strays between two samples from the nearer one;
@@ -38,15 +39,26 @@ The cell rows are soft: a robot already outside its cell (measurement noise, lat
 neighbour that came close, packed starts) would make hard rows infeasible. For the
 predicted positions every row the robot stands beyond, or within the pad of, is moved
 out to its measured position plus the pad (c'_m, a function of the parameters): staying
-put is feasible and going farther out is not, so their slack sigma_p, carried through
-the horizon like theta, pays only for what the robot's speed carries it past before it
-can turn. Its price is an exact penalty: linear, CELL_PRICE per metre, larger than the
-rows' multipliers, so whenever the rows can be held the slack is exactly 0 (Kerrigan &
+put is feasible and going farther out is not, so their slacks sigma_k pay only for what
+the robot's speed carries it past before it can turn. Their price is an exact penalty:
+linear, CELL_PRICE per metre, larger than the rows' multipliers, so whenever the rows can
+be held every slack is exactly 0 (Kerrigan &
 Maciejowski, "Soft constraints and exact penalty functions in model predictive control",
 UKACC Control 2000). A quadratic price alone always buys some violation (the multiplier
 over twice the price): measured, a car-like robot packed 9 mm from a rover drove 8 mm of
-slack, 7 mm into the rover, at a price of 1e7 per square metre. The solution reports
-sigma_p (`cell_violation`, 0 whenever the rows can be held).
+slack, 7 mm into the rover, at a price of 1e7 per square metre. The solution reports the
+largest sigma_k (`cell_violation`, 0 whenever the rows can be held).
+
+Every slack is an input of a stage (z_k holds x_k and theta only): sigma_s of stage 0
+(its rows sit there, on theta), sigma_k of stage k, and x_N's rows, written through the
+dynamics as rows on F(x_{N-1}, u_{N-1}), take stage N - 1's (stage N has no input; with a
+horizon of 1 stage 0 has a second slack for them). Carried from stage to stage like theta
+(one slack for all predicted positions, one for the steady state, as the problem first
+had them), they made every stage's state two longer, and fatrop's Riccati recursion and
+Jacobians cost grows with the state faster than with the inputs: measured with
+benchmarks/mpc_benchmark.py --keep-apart, the rover's median solve with rows went from
+1.40-1.47x to 1.26-1.32x of the one without (same runs, a loaded machine), and it took one
+interior-point iteration fewer (8 against 9, as without rows).
 
 The steady state keeps the rows where they are (so the plan comes back into the cell). A
 packed robot's cell may be empty, or conflict with the region's steady-state margin, and
@@ -130,7 +142,7 @@ CELL_PENALTY = 1e7
 #: Linear price of that slack (cost units per metre; the exact penalty, module docstring):
 #: above the rows' multipliers, largest measured 1.7e5 (a packed car-like robot, the
 #: orchard mission), so a plan that can hold its rows holds them exactly. Written as
-#: CELL_PENALTY (sigma_p + CELL_PRICE / (2 CELL_PENALTY))^2 with sigma_p >= 0, the same
+#: CELL_PENALTY (sigma_k + CELL_PRICE / (2 CELL_PENALTY))^2 with sigma_k >= 0, the same
 #: up to a constant, so that the cost stays a sum of squares (the real-time path).
 CELL_PRICE = 1e6
 #: The path slack's unit in the decision vector (metres per unit): in millimetres its price
@@ -345,21 +357,27 @@ class TrackingMpc:
     # --- construction ------------------------------------------------------------------
 
     def _build(self, plugin: str, n_cell: int, skip_left: list[int] | None) -> _BuiltProblem:
-        """Stage-wise NLP: stage k holds z_k = (x_k, theta_k) and u_k; theta is carried as a
-        constant state (theta_{k+1} = theta_k) so that every constraint touches one stage
-        or two neighbouring ones, the block structure structure-exploiting solvers need.
-        n_cell: the keep-apart rows of this build (a budget); the variables are the same
-        in every budget (the slack is there whenever cell_rows > 0)."""
+        """Stage-wise NLP: stage k holds z_k = (x_k, theta_k) and v_k = (u_k, its keep-apart
+        slacks); theta is carried as a constant state (theta_{k+1} = theta_k) so that every
+        constraint touches one stage or two neighbouring ones, the block structure
+        structure-exploiting solvers need. n_cell: the keep-apart rows of this build (a
+        budget); the variables are the same in every budget (the slacks are there whenever
+        cell_rows > 0)."""
         model, settings, N = self.model, self.settings, self.horizon
         nx, nu = model.nx, model.nu
         F = model.discrete_dynamics(settings.sample_time, settings.substeps)
         self._dynamics = F
         n_theta = self._Mx.shape[1]
-        # Two slacks: the predicted positions' (sigma_p) and the steady state's (sigma_s).
-        n_slack = 2 if self.cell_rows else 0
-        nz = nx + n_theta + n_slack
+        # The keep-apart slacks are stage inputs (module docstring): stage 0's is the steady
+        # state's, stage k >= 1's relaxes x_k's rows (and stage N - 1's also x_N's); with a
+        # horizon of 1, stage 0 has a second one for x_1's rows.
+        n_slack = (1 if N > 1 else 2) if self.cell_rows else 0
+        nz = nx + n_theta
+        nv = nu + n_slack
         Z = [ca.SX.sym(f"z{k}", nz) for k in range(N + 1)]
-        U = [ca.SX.sym(f"u{k}", nu) for k in range(N)]
+        V = [ca.SX.sym(f"v{k}", nv) for k in range(N)]
+        U = [v[:nu] for v in V]
+        S = [v[nu:] for v in V]
         target = ca.SX.sym("target", 2)
         measured = ca.SX.sym("measured", nx)
         cell_normals = ca.SX.sym("cell_normals", n_cell, 2)
@@ -428,13 +446,21 @@ class TrackingMpc:
             held = ca.ge(along + self.cell_pad, cell_offsets)
             heading_bound = (1 - held) * OPEN_HEADING_BOUND
 
-        def path(x: ca.SX, sigma: ca.SX) -> None:
+        def path(x: ca.SX) -> None:
             if len(g_x):
                 add(ca.mtimes(ca.DM(G_x), x), -np.inf, g_x)
             add(ca.mtimes(A_r, ca.vertcat(x[i], x[j])), -np.inf, self.path_region_b)
+
+        def path_cell(x: ca.SX, sigma: ca.SX) -> None:
             if n_cell:
-                slack = sigma[0] * PATH_SLACK_UNIT
-                cell(ca.vertcat(x[i], x[j]), slack, held_offsets, self.cell_pad)
+                position = ca.vertcat(x[i], x[j])
+                cell(position, sigma * PATH_SLACK_UNIT, held_offsets, self.cell_pad)
+
+        def path_price(sigma: ca.SX) -> ca.SX:
+            # CELL_PRICE sigma + CELL_PENALTY sigma^2 (metres), as one square (rti.py).
+            shifted = sigma * PATH_SLACK_UNIT + CELL_PRICE / (2.0 * CELL_PENALTY)
+            terms.append(LeastSquaresTerm(shifted, np.array([[CELL_PENALTY]])))
+            return CELL_PENALTY * shifted**2
 
         w: list[ca.SX] = []
         lbw: list[np.ndarray] = []
@@ -442,47 +468,69 @@ class TrackingMpc:
         for k in range(N + 1):
             # Constraint order per stage (what fatrop's structure detection reads): the
             # dynamics to the next stage first, then this stage's path constraints.
-            x, theta = Z[k][:nx], Z[k][nx : nx + n_theta]
-            carried = Z[k][nx:]
-            sigma = Z[k][nx + n_theta :]
+            x, theta = Z[k][:nx], Z[k][nx:]
             x_s = ca.mtimes(Mx, theta) + x0s
             stage_starts.append(sum(e.shape[0] for e in g))
             w.append(Z[k])
-            # sigma_p >= 0 (once, at the last stage: it is carried) for the linear price;
-            # sigma_s needs no bound: a negative one only tightens its rows and costs.
-            slack_lower, slack_upper = np.full(n_slack, -np.inf), np.full(n_slack, np.inf)
-            if n_slack and k == N:
-                slack_lower[0] = 0.0
             if k == 0:
-                lbw.append(np.concatenate([np.full(nx, -np.inf), -free_theta, slack_lower]))
-                ubw.append(np.concatenate([np.full(nx, np.inf), free_theta, slack_upper]))
+                lbw.append(np.concatenate([np.full(nx, -np.inf), -free_theta]))
+                ubw.append(np.concatenate([np.full(nx, np.inf), free_theta]))
             else:
-                lbw.append(np.concatenate([x_lower, -free_theta, slack_lower]))
-                ubw.append(np.concatenate([x_upper, free_theta, slack_upper]))
+                lbw.append(np.concatenate([x_lower, -free_theta]))
+                ubw.append(np.concatenate([x_upper, free_theta]))
             if k == N:
-                path(x, sigma)
+                path(x)  # x_N's cell rows sit at stage N - 1 (below)
                 break
             u_s = ca.mtimes(Mu, theta) + u0s
-            w.append(U[k])
-            lbw.append(u_lower)
-            ubw.append(u_upper)
+            w.append(V[k])
+            # The path slacks are >= 0 for the linear price; the steady state's needs no
+            # bound: a negative one only tightens its rows and costs.
+            lbw.append(np.concatenate([u_lower, np.zeros(n_slack)]))
+            ubw.append(np.concatenate([u_upper, np.full(n_slack, np.inf)]))
+            if k == 0 and n_slack:
+                lbw[-1][nu] = -np.inf
             dx, du = x - x_s, U[k] - u_s
             cost += ca.bilin(Q, dx, dx) + ca.bilin(R, du, du)
             terms += [LeastSquaresTerm(dx, self.Q), LeastSquaresTerm(du, self.R)]
-            add(Z[k + 1] - ca.vertcat(F(x, U[k]), carried), 0.0, 0.0)
+            x_next = F(x, U[k])
+            add(Z[k + 1] - ca.vertcat(x_next, theta), 0.0, 0.0)
             if k == 0:
                 add(x - measured, 0.0, 0.0)
                 if heads_out:
                     cell_starts.append(sum(e.shape[0] for e in g))  # a group of cell rows
                     add(ca.mtimes(cell_normals, first_velocity) - heading_bound, -np.inf, 0.0)
+                if n_slack:
+                    # The steady state's cell rows sit here, beside their slack (theta is
+                    # the same at every stage); they move out by steady_relax[0].
+                    sigma_s = S[0][0]
+                    cell(
+                        ca.vertcat(x_s[i], x_s[j]),
+                        sigma_s,
+                        cell_offsets + steady_relax[0],
+                        self.terminal.position_extent,
+                    )
+                    cost += self.steady_cell_penalty * sigma_s**2
+                    terms.append(
+                        LeastSquaresTerm(sigma_s, np.array([[self.steady_cell_penalty]]))
+                    )
             else:
-                path(x, sigma)
+                path(x)
+                if n_slack:
+                    path_cell(x, S[k][0])
+                    cost += path_price(S[k][0])
+            if n_slack and k == N - 1:
+                # x_N's rows, written through the dynamics (x_N = F(x_{N-1}, u_{N-1})) so
+                # that they have a stage input for their slack: stage N has none. (The same
+                # expression as the dynamics row's, so it is evaluated once.)
+                sigma_n = S[k][-1]
+                path_cell(x_next, sigma_n)
+                if N == 1:
+                    cost += path_price(sigma_n)
             if len(e_u):
                 add(ca.mtimes(ca.DM(E_u), U[k]), -np.inf, e_u)
 
         # Terminal stage: steady state admissible, terminal ingredients, offset cost.
-        x_N, theta = Z[N][:nx], Z[N][nx : nx + n_theta]
-        sigma = Z[N][nx + n_theta :]
+        x_N, theta = Z[N][:nx], Z[N][nx:]
         x_s = ca.mtimes(Mx, theta) + x0s
         u_s = ca.mtimes(Mu, theta) + u0s
         p_s = ca.vertcat(x_s[i], x_s[j])
@@ -500,13 +548,6 @@ class TrackingMpc:
                 -np.inf,
                 self.steady_region_b,
             )
-            cell(p_s, sigma[1], cell_offsets + steady_relax[0], self.terminal.position_extent)
-            weights = np.diag([CELL_PENALTY, self.steady_cell_penalty])
-            shifted = ca.vertcat(
-                sigma[0] * PATH_SLACK_UNIT + CELL_PRICE / (2.0 * CELL_PENALTY), sigma[1]
-            )
-            cost += ca.bilin(ca.DM(weights), shifted, shifted)
-            terms.append(LeastSquaresTerm(shifted, weights))
         else:
             add(ca.mtimes(A_r, p_s), -np.inf, self.steady_region_b)
         if self.terminal.kind == "equality":
@@ -549,7 +590,7 @@ class TrackingMpc:
             "g": ca.vertcat(*g),
         }
         self._lbw, self._ubw = np.concatenate(lbw), np.concatenate(ubw)
-        self._nz = nz
+        self._nz, self._nv = nz, nv
         self._n_theta = n_theta
         lbg_all, ubg_all = np.concatenate(lbg), np.concatenate(ubg)
         cell_index = np.array(
@@ -561,7 +602,7 @@ class TrackingMpc:
             nlp,
             settings,
             [bool(v) for v in lbg_all == ubg_all],
-            FastProblem(terms, quadratic_rows, StageLayout(N, nz, nu, path_rows)),
+            FastProblem(terms, quadratic_rows, StageLayout(N, nz, nv, path_rows)),
             skip_left,
         )
         return _BuiltProblem(
@@ -583,42 +624,51 @@ class TrackingMpc:
         self._guess = self._lam_g = self._lam_x = None
         self._no_escape_at = None
 
-    def _carried(self, theta: np.ndarray) -> np.ndarray:
-        """The stage-constant part of z: theta, then the keep-apart slack (0) if any."""
-        return np.concatenate([theta, np.zeros(self._nz - self.model.nx - self._n_theta)])
-
-    def _unpack(self, w: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-        """(states (N+1, nx), inputs (N, nu), carried: theta then the slack if any)."""
-        nx, nu, N, nz = self.model.nx, self.model.nu, self.horizon, self._nz
-        body = w[: N * (nz + nu)].reshape(N, nz + nu)
-        last = w[N * (nz + nu) :]
+    def _unpack(self, w: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+        """(states (N+1, nx), inputs (N, nu), theta, slacks (N, n_slack)): entry [0, 0] is
+        the steady state's slack (metres), every other the predicted positions' (in
+        PATH_SLACK_UNIT); no columns without keep-apart rows."""
+        nx, nu, N, nz, nv = self.model.nx, self.model.nu, self.horizon, self._nz, self._nv
+        body = w[: N * (nz + nv)].reshape(N, nz + nv)
+        last = w[N * (nz + nv) :]
         states = np.vstack([body[:, :nx], last[:nx]])
-        inputs = body[:, nz:]
-        return states, inputs, last[nx:].copy()
+        inputs = body[:, nz : nz + nu]
+        return states, inputs, last[nx:].copy(), body[:, nz + nu :].copy()
 
-    def _pack(self, states: np.ndarray, inputs: np.ndarray, carried: np.ndarray) -> np.ndarray:
+    def _pack(
+        self,
+        states: np.ndarray,
+        inputs: np.ndarray,
+        theta: np.ndarray,
+        slacks: np.ndarray | None = None,
+    ) -> np.ndarray:
+        """The decision vector; slacks None: all 0 (a guess that keeps its rows)."""
         N = self.horizon
-        carried_rows = np.tile(carried, (N, 1))
-        body = np.hstack([states[:-1], carried_rows, inputs]).reshape(-1)
-        return np.concatenate([body, states[-1], carried])
+        if slacks is None:
+            slacks = np.zeros((N, self._nv - self.model.nu))
+        body = np.hstack([states[:-1], np.tile(theta, (N, 1)), inputs, slacks]).reshape(-1)
+        return np.concatenate([body, states[-1], theta])
 
     def _cold_guess(self, x0: np.ndarray) -> np.ndarray:
         theta, *_ = np.linalg.lstsq(self._Mx, x0 - self._x0s, rcond=None)
         u_s = self._Mu @ theta + self._u0s
         states = np.tile(x0, (self.horizon + 1, 1))
         inputs = np.tile(u_s, (self.horizon, 1))
-        return self._pack(states, inputs, self._carried(theta))
+        return self._pack(states, inputs, theta)
 
     def _shifted(self, w: np.ndarray) -> np.ndarray:
-        """The previous solution one sample later: the warm start."""
-        states, inputs, theta = self._unpack(w)
+        """The previous solution one sample later: the warm start (the steady state's
+        slack stays at stage 0, the predicted positions' shift with them)."""
+        states, inputs, theta, slacks = self._unpack(w)
         states = np.vstack([states[1:], states[-1:]])
         inputs = np.vstack([inputs[1:], inputs[-1:]])
-        return self._pack(states, inputs, theta)
+        if self.horizon > 1:
+            slacks = np.vstack([slacks[:1], slacks[2:], slacks[-1:]])
+        return self._pack(states, inputs, theta, slacks)
 
     def _align_angles(self, w: np.ndarray, x0: np.ndarray) -> np.ndarray:
         """Shift the guess by whole turns so its angles match the measured ones."""
-        states, inputs, theta = self._unpack(w)
+        states, inputs, theta, slacks = self._unpack(w)
         changed = False
         for index in self.model.angle_indices:
             turns = np.round((x0[index] - states[0, index]) / (2 * np.pi))
@@ -629,7 +679,7 @@ class TrackingMpc:
             column = np.nonzero(np.abs(self._Mx[index]) > 0)[0]
             if len(column) == 1:
                 theta[column[0]] += 2 * np.pi * turns / self._Mx[index, column[0]]
-        return self._pack(states, inputs, theta) if changed else w
+        return self._pack(states, inputs, theta, slacks) if changed else w
 
     def _tried_here(self, x0: np.ndarray, target: np.ndarray) -> bool:
         """The second starts already failed from this state towards this target."""
@@ -659,9 +709,7 @@ class TrackingMpc:
             states_array = np.array(states)
             theta, *_ = np.linalg.lstsq(self._Mx, states_array[-1] - self._x0s, rcond=None)
             states_array[-1] = self._Mx @ theta + self._x0s
-            guesses.append(
-                self._pack(states_array, np.asarray(inputs, float), self._carried(theta))
-            )
+            guesses.append(self._pack(states_array, np.asarray(inputs, float), theta))
         return guesses
 
     def _escape_guess(self, x0: np.ndarray, target: np.ndarray) -> np.ndarray | None:
@@ -687,7 +735,7 @@ class TrackingMpc:
         theta, *_ = np.linalg.lstsq(self._Mx, x_goal - self._x0s, rcond=None)
         states[-1] = self._Mx @ theta + self._x0s
         inputs = np.tile(self._Mu @ theta + self._u0s, (self.horizon, 1))
-        return self._pack(states, inputs, self._carried(theta))
+        return self._pack(states, inputs, theta)
 
     def _parameters(
         self,
@@ -844,9 +892,9 @@ class TrackingMpc:
         stay where the robot is. Happens with nonholonomic models started at rest (at zero
         speed steering has no first-order effect, so "stay" satisfies the optimality
         conditions); a second start from a guess that moves breaks the symmetry."""
-        states, _, carried = self._unpack(w)
+        states, _, theta, _ = self._unpack(w)
         p0 = self.model.position(x0)
-        p_s = self.model.position(self._Mx @ carried[: self._n_theta] + self._x0s)
+        p_s = self.model.position(self._Mx @ theta + self._x0s)
         motion = np.abs(states[:, list(self.model.position_indices)] - p0).max()
         return (
             motion < STALL_DISTANCE
@@ -878,9 +926,9 @@ class TrackingMpc:
         cold = self._guess is None
         guess = self._cold_guess(x0) if cold else self._guess
         guess = self._align_angles(guess, x0)
-        states, inputs, theta = self._unpack(guess)
+        states, inputs, theta, slacks = self._unpack(guess)
         states[0] = x0
-        guess = self._pack(states, inputs, theta)
+        guess = self._pack(states, inputs, theta, slacks)
         run = self._run(guess, parameters, problem, warm_duals=True, shifted_plan=not cold)
         final, status = run.final, run.status
         solve_time, iterations, success = run.elapsed, run.iterations, run.success
@@ -916,8 +964,7 @@ class TrackingMpc:
         else:
             self._guess = self._shifted(guess)
             self._lam_g = self._lam_x = None
-        states, inputs, carried = self._unpack(final.x)
-        theta = carried[: self._n_theta]
+        states, inputs, theta, slacks = self._unpack(final.x)
         x_s = self._Mx @ theta + self._x0s
         u_s = self._Mu @ theta + self._u0s
         steady = SteadyStatePoint(x_s, u_s, theta, self.model.position(x_s))
@@ -934,7 +981,7 @@ class TrackingMpc:
             success=success,
             iterations=iterations,
             solve_time=solve_time,
-            cell_violation=float(carried[self._n_theta :][:1].max(initial=0.0)) * PATH_SLACK_UNIT,
+            cell_violation=float(slacks.reshape(-1)[1:].max(initial=0.0)) * PATH_SLACK_UNIT,
             steady_cell_violation=steady_violation,
             row_budget=problem.rows,
         )
