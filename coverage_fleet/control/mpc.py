@@ -56,9 +56,10 @@ horizon of 1 stage 0 has a second slack for them). Carried from stage to stage l
 (one slack for all predicted positions, one for the steady state, as the problem first
 had them), they made every stage's state two longer, and fatrop's Riccati recursion and
 Jacobians cost grows with the state faster than with the inputs: measured with
-benchmarks/mpc_benchmark.py --keep-apart, the rover's median solve with rows went from
-1.40-1.47x to 1.26-1.32x of the one without (same runs, a loaded machine), and it took one
-interior-point iteration fewer (8 against 9, as without rows).
+benchmarks/mpc_benchmark.py --keep-apart --repeat 2 on a quiet machine, the rover's median
+full solve with rows went from 1.28x to 1.23x of the one without and takes as many
+interior-point iterations as without rows (8, against 9 carried), the multirotor's
+real-time path from 1.37x to 1.25x (README, Performance).
 
 The steady state keeps the rows where they are (so the plan comes back into the cell). A
 packed robot's cell may be empty, or conflict with the region's steady-state margin, and
