@@ -91,3 +91,15 @@ ORCHARD_BLOCK = np.array([(0.0, 0.0), (12.0, 0.0), (14.0, 7.0), (6.0, 11.0), (-1
 def polygon_halfspaces(vertices: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """(A, b) with A p <= b inside a convex polygon, unit-norm rows (the region's own)."""
     return ConvexRegion.from_vertices(vertices, source="test").halfspaces()
+
+
+def closed_loop_cost(
+    model: VehicleModel, Q: np.ndarray, R: np.ndarray, x: np.ndarray, target: np.ndarray,
+    u: np.ndarray,
+) -> float:
+    """One sample's closed-loop cost: position error to the target and input effort, the
+    stage cost's position and input terms (common practice for comparing two
+    controllers)."""
+    i, j = model.position_indices
+    error = model.position(x) - target
+    return float(Q[i, i] * error[0] ** 2 + Q[j, j] * error[1] ** 2 + u @ R @ u)

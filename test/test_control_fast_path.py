@@ -14,7 +14,7 @@ import casadi as ca
 import numpy as np
 import pytest
 import scipy.linalg
-from support_control import ORCHARD_BLOCK, polygon_halfspaces
+from support_control import ORCHARD_BLOCK, closed_loop_cost, polygon_halfspaces
 
 from coverage_fleet.control.mpc import TrackingMpc
 from coverage_fleet.control.stage_cost import stage_weights
@@ -116,17 +116,13 @@ def _closed_loop(mpc, model, settings, x, targets, steps):
     F = model.discrete_dynamics(settings.sample_time, settings.substeps)
     Q, R = stage_weights(model, settings)
     positions, cost, statuses = [], 0.0, []
-    i, j = model.position_indices
     for k in range(steps):
         target = targets[k * len(targets) // steps]
         solution = mpc.solve(x, target)
         assert solution.success, solution.status
         statuses.append(solution.status)
         u = solution.first_input
-        # Closed-loop cost: position error to the target and input effort, the stage
-        # cost's position and input terms (common practice for comparing two controllers).
-        error = model.position(x) - target
-        cost += Q[i, i] * error[0] ** 2 + Q[j, j] * error[1] ** 2 + u @ R @ u
+        cost += closed_loop_cost(model, Q, R, x, target, u)
         positions.append(model.position(x))
         x = np.array(F(x, u)).reshape(-1)
     return np.array(positions), cost, statuses

@@ -23,7 +23,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-from support_control import ORCHARD_BLOCK, polygon_halfspaces
+from support_control import ORCHARD_BLOCK, closed_loop_cost, polygon_halfspaces
 
 from coverage_fleet.control.mpc import TrackingMpc
 from coverage_fleet.control.stage_cost import stage_weights
@@ -49,18 +49,13 @@ def _closed_loop(path: str, start: np.ndarray, target: np.ndarray):
     model = spec.model
     F = model.discrete_dynamics(settings.sample_time, settings.substeps)
     Q, R = stage_weights(model, settings)
-    i, j = model.position_indices
     x, cost, speeds, statuses = start.copy(), 0.0, [], []
     for _ in range(STEPS):
         solution = mpc.solve(x, target)
         assert solution.success, solution.status
         statuses.append(solution.status)
         u = solution.first_input
-        # Closed-loop cost: position error to the target and input effort, the stage
-        # cost's position and input terms (common practice for comparing two controllers,
-        # as in test_control_fast_path).
-        error = model.position(x) - target
-        cost += Q[i, i] * error[0] ** 2 + Q[j, j] * error[1] ** 2 + u @ R @ u
+        cost += closed_loop_cost(model, Q, R, x, target, u)
         x = np.array(F(x, u)).reshape(-1)
         speeds.append(abs(float(x[3])))
     return np.array(speeds), cost, statuses

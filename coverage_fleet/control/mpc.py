@@ -486,10 +486,11 @@ class TrackingMpc:
             w.append(V[k])
             # The path slacks are >= 0 for the linear price; the steady state's needs no
             # bound: a negative one only tightens its rows and costs.
-            lbw.append(np.concatenate([u_lower, np.zeros(n_slack)]))
+            slack_lower = np.zeros(n_slack)
+            if k == 0:
+                slack_lower[:1] = -np.inf
+            lbw.append(np.concatenate([u_lower, slack_lower]))
             ubw.append(np.concatenate([u_upper, np.full(n_slack, np.inf)]))
-            if k == 0 and n_slack:
-                lbw[-1][nu] = -np.inf
             dx, du = x - x_s, U[k] - u_s
             cost += ca.bilin(Q, dx, dx) + ca.bilin(R, du, du)
             terms += [LeastSquaresTerm(dx, self.Q), LeastSquaresTerm(du, self.R)]
