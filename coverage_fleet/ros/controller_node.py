@@ -77,6 +77,7 @@ import numpy as np
 from diagnostic_msgs.msg import DiagnosticArray, DiagnosticStatus
 from geometry_msgs.msg import PointStamped, PoseWithCovarianceStamped, Vector3Stamped
 from nav_msgs.msg import Odometry, Path
+from rclpy.duration import Duration
 from rclpy.lifecycle import LifecycleNode, LifecycleState, TransitionCallbackReturn
 from std_msgs.msg import Float64MultiArray, UInt32
 
@@ -135,6 +136,10 @@ from .vehicle_parameters import controller_vehicle, declare_vehicle_parameters
 
 #: Inbox source of the keep-apart snapshots (counts on /diagnostics as `snapshot.*`).
 SNAPSHOT_SOURCE = "snapshot"
+#: Seconds the stopping node waits for the braking input's acknowledgement: well inside a
+#: launch service's grace period (5 s before it escalates), long enough for a loaded host.
+STOP_ACK_TIMEOUT = 1.0
+
 #: How RobotController's status starts when keep-apart makes it brake.
 KEEP_APART_STATUS = "keep-apart:"
 
@@ -466,7 +471,16 @@ class ControllerNode(LifecycleNode):
         if self.state is None or not self.armed:
             return
         self._brake()
-        self.get_logger().info(f"{self.robot}: stopping; braking input sent")
+        # The process ends right after this: a reliable writer destroyed before its readers
+        # acknowledged drops the sample, and a robot driver would keep the last motion
+        # command (seen once in CI: the braking input lost, motion was the last word).
+        if self.cmd_pub.wait_for_all_acked(Duration(seconds=STOP_ACK_TIMEOUT)):
+            self.get_logger().info(f"{self.robot}: stopping; braking input sent and acknowledged")
+        else:
+            self.get_logger().warning(
+                f"{self.robot}: stopping; braking input sent but not acknowledged by every "
+                f"subscriber within {STOP_ACK_TIMEOUT} s"
+            )
 
     # --- control ------------------------------------------------------------------------
 
