@@ -148,6 +148,34 @@ class SolveStrategy(Protocol):
     def attempt(self, instance: NlpInstance) -> Attempt: ...
 
 
+#: fatrop's return flags, in the order of its enum IpSolverReturnFlag (fatrop 1.1.8,
+#: include/fatrop/ip_algorithm/ip_algorithm.hpp, shipped with casadi): casadi's stats give
+#: the bare number, which says nothing in a diagnostic or a trial's solve log.
+FATROP_RETURN_FLAGS = (
+    "Success",
+    "MaxIterExceeded",
+    "StopAtAcceptablePoint",
+    "LocalInfeasibility",
+    "LineSearchFailed",
+    "ErrorInStepComputation",
+    "Unknown",
+)
+
+
+def plugin_status(plugin: str, return_status: object) -> str:
+    """The solver's own word for how a solve ended: IPOPT's return status as casadi gives
+    it ("Solve_Succeeded"), fatrop's numeric flag by its name ("MaxIterExceeded"), with the
+    number kept for a flag this table does not know ("fatrop flag 9")."""
+    if return_status is None:
+        return "failed"
+    if plugin == "fatrop" and isinstance(return_status, int | np.integer):
+        code = int(return_status)
+        return FATROP_RETURN_FLAGS[code] if 0 <= code < len(FATROP_RETURN_FLAGS) else (
+            f"fatrop flag {code}"
+        )
+    return str(return_status)
+
+
 class NlpsolStrategy:
     """A full solve by one casadi nlpsol plugin."""
 
@@ -178,7 +206,7 @@ class NlpsolStrategy:
         return Attempt(
             strategy=self.name,
             success=bool(stats.get("success", False)),
-            status=str(stats.get("return_status", "failed")),
+            status=plugin_status(self.name, stats.get("return_status")),
             iterations=int(stats.get("iter_count", 0)),
             elapsed=elapsed,
             x=np.asarray(result["x"], dtype=float).reshape(-1),
