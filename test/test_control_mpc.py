@@ -334,6 +334,33 @@ def test_failed_fast_solve_is_rescued_by_ipopt():
     assert solution.status == "fatrop: MaxIterExceeded; ipopt: Solve_Succeeded", solution.status
 
 
+def test_fatrop_status_names_its_own_flag_not_casadis_success_bit():
+    """casadi's return_status for fatrop is 1 for every unsuccessful end; the status must
+    name the flag itself. A tolerance no iterate meets and an acceptable-point test every
+    iterate passes make fatrop stop at its first acceptable point (flag StopAtAcceptablePoint
+    of fatrop's enum IpSolverReturnFlag, include/fatrop/ip_algorithm/ip_algorithm.hpp),
+    which casadi does not count as success, so IPOPT answers."""
+    model, settings = _double_integrator()
+    acceptable_stop = dataclasses.replace(
+        settings,
+        solver={
+            "plugin": "fatrop",
+            "path": "full",
+            "options": {
+                "fatrop.tol": 1e-14,
+                "fatrop.tol_acceptable": 1e6,
+                "fatrop.acceptable_iter": 1,
+            },
+        },
+    )
+    mpc = TrackingMpc(model, acceptable_stop, REGION)
+    solution = mpc.solve(_start_state(model, (3.0, 3.0)), np.array([6.0, 4.0]))
+    assert solution.success
+    assert solution.status == (
+        "fatrop: StopAtAcceptablePoint; ipopt: Solve_Succeeded"
+    ), solution.status
+
+
 @pytest.mark.skipif(shutil.which("cc") is None, reason="no C compiler")
 def test_compiled_problem_gives_the_same_solution(tmp_path, monkeypatch):
     """Code generation changes how the functions are evaluated, not what they are."""

@@ -150,7 +150,10 @@ class SolveStrategy(Protocol):
 
 #: fatrop's return flags, in the order of its enum IpSolverReturnFlag (fatrop 1.1.8,
 #: include/fatrop/ip_algorithm/ip_algorithm.hpp, shipped with casadi): casadi's stats give
-#: the bare number, which says nothing in a diagnostic or a trial's solve log.
+#: the bare number, which says nothing in a diagnostic or a trial's solve log. The number is
+#: stats()["fatrop"]["return_flag"]; stats()["return_status"] is what fatrop's C driver
+#: returns, 0 for Success and 1 for every other flag (measured with casadi 3.8.2: a stop at
+#: an acceptable point reads return_status 1, return_flag 2).
 FATROP_RETURN_FLAGS = (
     "Success",
     "MaxIterExceeded",
@@ -174,6 +177,16 @@ def plugin_status(plugin: str, return_status: object) -> str:
             f"fatrop flag {code}"
         )
     return str(return_status)
+
+
+def _return_status(plugin: str, stats: Mapping[str, Any]) -> object:
+    """The plugin's return status from casadi's stats: fatrop's own flag where casadi
+    reports it (FATROP_RETURN_FLAGS), otherwise casadi's return_status."""
+    if plugin == "fatrop":
+        flag = stats.get("fatrop", {}).get("return_flag")
+        if flag is not None:
+            return flag
+    return stats.get("return_status")
 
 
 class NlpsolStrategy:
@@ -206,7 +219,7 @@ class NlpsolStrategy:
         return Attempt(
             strategy=self.name,
             success=bool(stats.get("success", False)),
-            status=plugin_status(self.name, stats.get("return_status")),
+            status=plugin_status(self.name, _return_status(self.name, stats)),
             iterations=int(stats.get("iter_count", 0)),
             elapsed=elapsed,
             x=np.asarray(result["x"], dtype=float).reshape(-1),
