@@ -45,8 +45,13 @@ def padded(rows: list[tuple[tuple[float, float], float]]) -> tuple[np.ndarray, n
     return normals, offsets
 
 
-def spec_for(kind: str):
-    return load_vehicle_file(VEHICLES / f"{kind}.yaml")
+def spec_for(kind: str, path: str | None = None):
+    """The shipped vehicle file; `path` overrides its solver path."""
+    spec = load_vehicle_file(VEHICLES / f"{kind}.yaml")
+    if path is None:
+        return spec
+    settings = dataclasses.replace(spec.mpc, solver={**spec.mpc.solver, "path": path})
+    return dataclasses.replace(spec, mpc=settings)
 
 
 def closed_loop(mpc: TrackingMpc, x: np.ndarray, target, cell, samples: int):
@@ -220,8 +225,10 @@ def test_padding_rows_left_out_give_the_same_closed_loop() -> None:
     sigma >= pad - c with c >= pad, and the optimal sigma is >= 0). So the closed loop
     with budgets matches the one of the problem built for all 12 rows alone, through
     changes of budget (no real rows, two, five, one: the warm start's multipliers carried
-    between problems), with the budgets' problems built on first use (as offline)."""
-    spec = spec_for("differential_drive")
+    between problems), with the budgets' problems built on first use (as offline). The
+    full solve: a real-time step's iterate is not a KKT point, so the two problems' iterates
+    differ within its acceptance test (measured 2e-4 m), not to the solver's tolerance."""
+    spec = spec_for("differential_drive", path="full")
     terminal, _ = terminal_for_vehicle(spec)
     rows = 12
     budgeted = TrackingMpc(
@@ -316,7 +323,8 @@ def test_a_rover_beyond_its_row_never_arcs_out_between_samples(normal, heading, 
     x = np.array([0.0, 0.0, heading])
     x, positions, _, solution = closed_loop(mpc, x, np.array(target), cell, 10)
     along = cell[0][0]
-    assert solution.success and solution.cell_violation == 0.0
+    # No slack bought (a real-time step's QP leaves rounding, 1e-17).
+    assert solution.success and solution.cell_violation <= 1e-12
     assert np.max(positions @ along) <= 1e-6
     assert np.linalg.norm(spec.model.position(x)) > 0.5  # it did drive off
 

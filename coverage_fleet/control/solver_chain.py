@@ -92,7 +92,7 @@ DEFAULT_MAX_ITER = 100
 #: vehicles.settings.SOLVER_KEYS; test_vehicles_loader checks the two agree).
 SOLVER_KEYS: tuple[str, ...] = ("plugin", "max_iter", "options", "compile", "path", "qp")
 #: What `path` and `qp` default to (vehicles.settings documents both).
-DEFAULT_PATH = "full"
+DEFAULT_PATH = "real_time"
 DEFAULT_QP = QP_PLUGINS[0]
 if DEFAULT_PATH not in SOLVER_PATHS:
     raise ImportError("DEFAULT_PATH must be one of vehicles.settings.SOLVER_PATHS")
