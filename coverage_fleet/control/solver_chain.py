@@ -7,14 +7,13 @@ just failed is skipped for the next `hold_samples` calls, because failures come 
 stretches (a hard manoeuvre) and a failed attempt costs its whole iteration budget. The last
 strategy is never skipped.
 
-The real-time chain (`mpc.solver.path: real_time`; the default is still `full`, see
-vehicles/settings.py): one real-time SQP iteration
-from the shifted plan (rti.py), which reports failure when its iterate fails the acceptance
-test and is tried again at the next sample (hold 0); then the full solve by the configured
-plugin (fatrop by default, its budget capped at FAST_ITERATION_CAP when a rescue stands
-behind it); then IPOPT from the same warm start with RESCUE_ITERATION_FACTOR times the
-budget (slower but more forgiving far from the previous solution). `path: full` drops the
-first strategy.
+The real-time chain (`mpc.solver.path: real_time`, the default; see vehicles/settings.py):
+one real-time SQP iteration from the shifted plan (rti.py), which reports failure when its
+iterate fails the acceptance test and is tried again at the next sample (hold 0); then the
+full solve by the configured plugin (fatrop by default, its budget capped at
+FAST_ITERATION_CAP when a rescue stands behind it); then IPOPT from the same warm start
+with RESCUE_ITERATION_FACTOR times the budget (slower but more forgiving far from the
+previous solution). `path: full` drops the first strategy.
 
 The real-time iteration is left out (`needs_shifted_plan`) when the instance's guess is not
 the last plan shifted (`NlpInstance.shifted_plan` False): its premise is a guess already

@@ -31,12 +31,12 @@ MAX_ITER_MAX = 10_000
 #: offer exactly these plugins; test_vehicles_loader checks that they agree).
 SOLVER_PLUGINS: tuple[str, ...] = ("fatrop", "ipopt")
 SOLVER_KEYS: tuple[str, ...] = ("plugin", "max_iter", "options", "compile", "path", "qp")
-#: `mpc.solver.path`: `real_time` (one to three SQP steps per sample from the shifted plan,
-#: control/rti.py; a sample whose iterate fails the acceptance test is solved in full) or
-#: `full` (default: the full solve by `plugin` every sample). Which one is the default is
-#: issue 13's call; with `real_time` the orchard demo mission never settled (its car-like
-#: robots rocked at rest) until the cold start and the stall restarts were solved to
-#: convergence (control/solver_chain.py's module docstring).
+#: `mpc.solver.path`: `real_time` (the default: one to three SQP steps per sample from the
+#: shifted plan, control/rti.py; a sample whose iterate fails the acceptance test is solved
+#: in full) or `full` (the full solve by `plugin` every sample). With `real_time` the
+#: orchard demo mission never settled (its car-like robots rocked at rest) until the cold
+#: start and the stall restarts were solved to convergence (control/solver_chain.py's
+#: module docstring).
 SOLVER_PATHS: tuple[str, ...] = ("real_time", "full")
 #: `mpc.solver.qp`: the QP solver of the real-time path (casadi conic plugins; the first is
 #: the default, chosen by measurement in benchmarks/mpc_benchmark.py).
