@@ -106,8 +106,10 @@ RESCUE_PLUGIN = "ipopt"
 RESCUE_ITERATION_FACTOR = 3
 #: After a failure of a strategy, this many calls skip it (see the module docstring).
 RESCUE_HOLD_SAMPLES = 10
-#: Iteration cap of the configured plugin when a rescue stands behind it (warm-started
-#: fatrop needs 5 to 20; a sample that needs more is cheaper to hand over).
+#: Iteration cap of the configured plugin when a rescue stands behind it (fatrop from the
+#: shifted plan needs 5 to 20; a sample that needs more is cheaper to hand over). fatrop is
+#: warm-started in the primal only: casadi's interface passes it no multipliers (measured:
+#: the same iterations with the last solve's, none or random ones).
 FAST_ITERATION_CAP = 40
 
 
