@@ -150,11 +150,10 @@ class SolveStrategy(Protocol):
 
 
 #: fatrop's return flags, in the order of its enum IpSolverReturnFlag (fatrop 1.1.8,
-#: include/fatrop/ip_algorithm/ip_algorithm.hpp, shipped with casadi): casadi's stats give
-#: the bare number, which says nothing in a diagnostic or a trial's solve log. The number is
-#: stats()["fatrop"]["return_flag"]; stats()["return_status"] is what fatrop's C driver
-#: returns, 0 for Success and 1 for every other flag (measured with casadi 3.8.2: a stop at
-#: an acceptable point reads return_status 1, return_flag 2).
+#: include/fatrop/ip_algorithm/ip_algorithm.hpp, shipped with casadi). casadi gives the
+#: number as stats()["fatrop"]["return_flag"]; its stats()["return_status"] for fatrop is
+#: the C driver's 0 for Success and 1 for every other flag (measured with casadi 3.8.2: a
+#: stop at an acceptable point reads return_status 1, return_flag 2).
 FATROP_RETURN_FLAGS = (
     "Success",
     "MaxIterExceeded",
@@ -166,28 +165,18 @@ FATROP_RETURN_FLAGS = (
 )
 
 
-def plugin_status(plugin: str, return_status: object) -> str:
-    """The solver's own word for how a solve ended: IPOPT's return status as casadi gives
-    it ("Solve_Succeeded"), fatrop's numeric flag by its name ("MaxIterExceeded"), with the
-    number kept for a flag this table does not know ("fatrop flag 9")."""
-    if return_status is None:
-        return "failed"
-    if plugin == "fatrop" and isinstance(return_status, int | np.integer):
-        code = int(return_status)
-        return FATROP_RETURN_FLAGS[code] if 0 <= code < len(FATROP_RETURN_FLAGS) else (
-            f"fatrop flag {code}"
-        )
-    return str(return_status)
-
-
-def _return_status(plugin: str, stats: Mapping[str, Any]) -> object:
-    """The plugin's return status from casadi's stats: fatrop's own flag where casadi
-    reports it (FATROP_RETURN_FLAGS), otherwise casadi's return_status."""
+def plugin_status(plugin: str, stats: Mapping[str, Any]) -> str:
+    """The solver's own word for how a solve ended, from casadi's stats: IPOPT's return
+    status ("Solve_Succeeded"), fatrop's flag by its name ("MaxIterExceeded"; a number this
+    table does not know stays a number, "fatrop flag 9"), "failed" when there is none."""
     if plugin == "fatrop":
         flag = stats.get("fatrop", {}).get("return_flag")
-        if flag is not None:
-            return flag
-    return stats.get("return_status")
+        if isinstance(flag, int | np.integer):
+            code = int(flag)
+            known = 0 <= code < len(FATROP_RETURN_FLAGS)
+            return FATROP_RETURN_FLAGS[code] if known else f"fatrop flag {code}"
+    status = stats.get("return_status")
+    return "failed" if status is None else str(status)
 
 
 class NlpsolStrategy:
@@ -220,7 +209,7 @@ class NlpsolStrategy:
         return Attempt(
             strategy=self.name,
             success=bool(stats.get("success", False)),
-            status=plugin_status(self.name, _return_status(self.name, stats)),
+            status=plugin_status(self.name, stats),
             iterations=int(stats.get("iter_count", 0)),
             elapsed=elapsed,
             x=np.asarray(result["x"], dtype=float).reshape(-1),
