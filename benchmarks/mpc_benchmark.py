@@ -17,9 +17,9 @@ and whether the fast path's 95th percentile is below 20 % of the sample time.
 With --keep-apart: the cost of the buffered-cell rows (issue 12 allows 30 % more median
 solve time). For every vehicle file and two solver paths (`full`, and the shipped default
 `real_time`, not compiled, as shipped), the same MPC without rows and with the fleet's row
-count (6 neighbours x 2 snapshots = 12 rows) is given the same states of one closed loop (the loop
-with rows drives the plant) past eight invented neighbours standing in the block; the
-rows come from control/keep_apart.CellWindow with a snapshot every sample. Printed: median /
+count (6 neighbours x 2 snapshots = 12 rows) is given the same states of one closed loop
+(the loop with rows drives the plant) past eight invented neighbours standing in the block;
+the rows come from control/keep_apart.CellWindow with a snapshot every sample. Printed: median /
 95th percentile without and with rows, their ratio, the largest row slack used, and the
 median / largest number of real rows per solve (CellRows.used: rows within the robot's reach;
 the rest of the 12 are padding rows, which the MPC leaves out by solving the problem built

@@ -6,6 +6,7 @@ held is exact: A = [[I, dt I], [0, I]], B = [[dt^2/2 I], [dt I]] (common practic
 
 from __future__ import annotations
 
+import dataclasses
 import math
 
 import casadi as ca
@@ -18,6 +19,7 @@ from coverage_fleet.vehicles.base import (
     SteadyStateFamily,
     VehicleModel,
 )
+from coverage_fleet.vehicles.settings import MpcSettings
 
 
 class DoubleIntegratorModel(VehicleModel):
@@ -103,3 +105,8 @@ def closed_loop_cost(
     i, j = model.position_indices
     error = model.position(x) - target
     return float(Q[i, i] * error[0] ** 2 + Q[j, j] * error[1] ** 2 + u @ R @ u)
+
+
+def on_solver_path(settings: MpcSettings, path: str) -> MpcSettings:
+    """The same MPC settings with `mpc.solver.path` set to `path` ("full" or "real_time")."""
+    return dataclasses.replace(settings, solver={**settings.solver, "path": path})

@@ -14,7 +14,7 @@ import casadi as ca
 import numpy as np
 import pytest
 import scipy.linalg
-from support_control import ORCHARD_BLOCK, closed_loop_cost, polygon_halfspaces
+from support_control import ORCHARD_BLOCK, closed_loop_cost, on_solver_path, polygon_halfspaces
 
 from coverage_fleet.control.mpc import TrackingMpc
 from coverage_fleet.control.stage_cost import stage_weights
@@ -38,15 +38,8 @@ def _mpcs(name: str, region, **changes):
         if settings.terminal == "ellipsoid"
         else None
     )
-    solver = {k: v for k, v in settings.solver.items() if k != "path"}
-    full = TrackingMpc(
-        spec.model, dataclasses.replace(settings, solver={**solver, "path": "full"}), region,
-        terminal,
-    )
-    fast = TrackingMpc(
-        spec.model, dataclasses.replace(settings, solver={**solver, "path": "real_time"}),
-        region, terminal,
-    )
+    full = TrackingMpc(spec.model, on_solver_path(settings, "full"), region, terminal)
+    fast = TrackingMpc(spec.model, on_solver_path(settings, "real_time"), region, terminal)
     return spec.model, settings, full, fast
 
 

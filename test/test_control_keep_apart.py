@@ -17,6 +17,7 @@ import numpy as np
 import pytest
 import shapely
 from shapely.ops import nearest_points
+from support_control import on_solver_path
 
 from coverage_fleet.control.controller import RobotController
 from coverage_fleet.control.fallbacks import FALLBACK_KEEP_APART_BRAKE
@@ -50,8 +51,7 @@ def spec_for(kind: str, path: str | None = None):
     spec = load_vehicle_file(VEHICLES / f"{kind}.yaml")
     if path is None:
         return spec
-    settings = dataclasses.replace(spec.mpc, solver={**spec.mpc.solver, "path": path})
-    return dataclasses.replace(spec, mpc=settings)
+    return dataclasses.replace(spec, mpc=on_solver_path(spec.mpc, path))
 
 
 def closed_loop(mpc: TrackingMpc, x: np.ndarray, target, cell, samples: int):

@@ -18,12 +18,11 @@ second case +2.3 %. After: 0.00 % and 0.03 %, both still to 1e-6 m/s.
 
 from __future__ import annotations
 
-import dataclasses
 from pathlib import Path
 
 import numpy as np
 import pytest
-from support_control import ORCHARD_BLOCK, closed_loop_cost, polygon_halfspaces
+from support_control import ORCHARD_BLOCK, closed_loop_cost, on_solver_path, polygon_halfspaces
 
 from coverage_fleet.control.mpc import TrackingMpc
 from coverage_fleet.control.stage_cost import stage_weights
@@ -44,7 +43,7 @@ def _closed_loop(path: str, start: np.ndarray, target: np.ndarray):
     """The car under its MPC on `path` with the model as plant: speeds, closed-loop cost,
     statuses."""
     spec = load_vehicle_file(CAR)
-    settings = dataclasses.replace(spec.mpc, solver={**spec.mpc.solver, "path": path})
+    settings = on_solver_path(spec.mpc, path)
     mpc = TrackingMpc(spec.model, settings, REGION)
     model = spec.model
     F = model.discrete_dynamics(settings.sample_time, settings.substeps)
