@@ -54,6 +54,7 @@ import casadi as ca
 import numpy as np
 
 from coverage_fleet.control.attempts import Attempt, NlpInstance
+from coverage_fleet.control.buffered_call import BufferedFunction
 from coverage_fleet.control.codegen import compiled_functions
 from coverage_fleet.interrupts import sigint_held
 from coverage_fleet.vehicles.settings import QP_PLUGINS
@@ -196,7 +197,6 @@ class RealTimeIterationStrategy:
             library = str(compiled_functions([qp_data, check], "tracking_mpc_rti"))
             qp_data = ca.external("rti_qp_data", library)
             check = ca.external("rti_check", library)
-        self._qp_data, self._check = qp_data, check
         options = dict(QP_DEFAULTS[qp_plugin])
         if qp_plugin == "hpipm":
             N = layout.horizon
@@ -208,7 +208,8 @@ class RealTimeIterationStrategy:
             )
         sparsity = {"h": hessian.sparsity(), "a": ca.jacobian(g_qp, w).sparsity()}
         self.qp_plugin = qp_plugin
-        self._qp = ca.conic("rti_qp", qp_plugin, sparsity, options)
+        qp = ca.conic("rti_qp", qp_plugin, sparsity, options)
+        self._step = BufferedFunction(_sqp_step(qp_data, check, qp, sign, w.shape[0], p.shape[0]))
 
     def _bounds_for_qp(self, lower: np.ndarray, upper: np.ndarray) -> tuple[np.ndarray, ...]:
         flipped = self._sign < 0
@@ -220,38 +221,19 @@ class RealTimeIterationStrategy:
         w, p = instance.guess, instance.parameters
         lbg, ubg = self._bounds_for_qp(instance.lbg, instance.ubg)
         lam_g = np.zeros(len(self._sign)) if instance.lam_g0 is None else instance.lam_g0
-        lam_x = instance.lam_x0
+        lam_x = np.zeros(len(w)) if instance.lam_x0 is None else instance.lam_x0
         started = time.perf_counter()
         status, success, steps, cost = "QP failed", False, 0, float("nan")
         with sigint_held():
             while steps < MAX_STEPS:
                 steps += 1
-                h, grad, g, a = self._qp_data(w, p, lam_g)
-                g = np.asarray(g).reshape(-1)
-                arguments: dict[str, Any] = {
-                    "h": h,
-                    "g": grad,
-                    "a": a,
-                    "lba": lbg - g,
-                    "uba": ubg - g,
-                    "lbx": instance.lbx - w,
-                    "ubx": instance.ubx - w,
-                    "lam_a0": self._sign * lam_g,
-                }
-                if lam_x is not None:
-                    arguments["lam_x0"] = lam_x
-                solution = self._qp(**arguments)
-                w = w + np.asarray(solution["x"]).reshape(-1)
-                lam_g = self._sign * np.asarray(solution["lam_a"]).reshape(-1)
-                lam_x = np.asarray(solution["lam_x"]).reshape(-1)
-                f_new, g_new = self._check(w, p)
-                g_new = np.asarray(g_new).reshape(-1)
-                violation = max(
-                    float(np.max(np.maximum(lbg - g_new, g_new - ubg), initial=0.0)),
-                    float(np.max(np.maximum(instance.lbx - w, w - instance.ubx), initial=0.0)),
+                result = self._step(
+                    w=w, p=p, lam_g=lam_g, lam_x=lam_x, lbg=lbg, ubg=ubg,
+                    lbx=instance.lbx, ubx=instance.ubx,
                 )
-                cost = float(f_new)
-                qp_ok = bool(self._qp.stats().get("success", False))
+                w, lam_g, lam_x = (result[k].copy() for k in ("w_next", "lam_g_next", "lam_x_next"))
+                violation, cost = float(result["violation"][0]), float(result["f"][0])
+                qp_ok = bool(self._step.stats().get("success", False))
                 if not (qp_ok and np.all(np.isfinite(w)) and np.isfinite(violation)):
                     status = "QP failed"
                     break
@@ -270,7 +252,48 @@ class RealTimeIterationStrategy:
             elapsed=time.perf_counter() - started,
             x=w,
             cost=cost,
-            lam_x=np.zeros_like(w) if lam_x is None else lam_x,
+            lam_x=lam_x,
             lam_g=lam_g,
             converged=False,
         )
+
+
+def _sqp_step(
+    qp_data: ca.Function,
+    check: ca.Function,
+    qp: ca.Function,
+    sign: np.ndarray,
+    n_w: int,
+    n_p: int,
+) -> ca.Function:
+    """One SQP step as a single casadi Function (one call from Python per step, evaluated
+    on bound arrays: buffered_call.py): QP data at w, the QP, the full step, and the new
+    iterate's cost and constraint violation (largest distance of g(w+) and w+ outside
+    their bounds; 0 when inside). lbg, ubg are the bounds of the sign-flipped rows
+    (RealTimeIterationStrategy._bounds_for_qp); lam_g in and out in the NLP's signs."""
+    n_g = len(sign)
+    w, lam_x, lbx, ubx = (ca.MX.sym(name, n_w) for name in ("w", "lam_x", "lbx", "ubx"))
+    lam_g, lbg, ubg = (ca.MX.sym(name, n_g) for name in ("lam_g", "lbg", "ubg"))
+    p = ca.MX.sym("p", n_p)
+    signs = ca.DM(sign)
+    h, grad, g, a = qp_data(w, p, lam_g)
+    solution = qp(
+        h=h, g=grad, a=a, lba=lbg - g, uba=ubg - g, lbx=lbx - w, ubx=ubx - w,
+        lam_a0=signs * lam_g, lam_x0=lam_x,
+    )
+    w_next = w + solution["x"]
+    f_next, g_next = check(w_next, p)
+    violation = ca.fmax(
+        0.0,
+        ca.fmax(
+            ca.mmax(ca.fmax(lbg - g_next, g_next - ubg)),
+            ca.mmax(ca.fmax(lbx - w_next, w_next - ubx)),
+        ),
+    )
+    return ca.Function(
+        "rti_step",
+        [w, p, lam_g, lam_x, lbg, ubg, lbx, ubx],
+        [w_next, signs * solution["lam_a"], solution["lam_x"], f_next, violation],
+        ["w", "p", "lam_g", "lam_x", "lbg", "ubg", "lbx", "ubx"],
+        ["w_next", "lam_g_next", "lam_x_next", "f", "violation"],
+    )

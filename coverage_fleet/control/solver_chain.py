@@ -44,6 +44,7 @@ import casadi as ca
 import numpy as np
 
 from coverage_fleet.control.attempts import Attempt, NlpInstance
+from coverage_fleet.control.buffered_call import BufferedFunction
 from coverage_fleet.control.codegen import compiled_library
 from coverage_fleet.control.rti import (
     LeastSquaresTerm,
@@ -187,23 +188,24 @@ class NlpsolStrategy:
 
     def __init__(self, name: str, solver: ca.Function) -> None:
         self.name = name
-        self.solver = solver
+        self.solver = BufferedFunction(solver)
 
     def attempt(self, instance: NlpInstance) -> Attempt:
-        arguments: dict[str, Any] = {
-            "x0": instance.guess,
-            "p": instance.parameters,
-            "lbx": instance.lbx,
-            "ubx": instance.ubx,
-            "lbg": instance.lbg,
-            "ubg": instance.ubg,
-        }
-        if instance.lam_g0 is not None:
-            arguments["lam_g0"] = instance.lam_g0
-            arguments["lam_x0"] = instance.lam_x0
+        n_w, n_g = len(instance.guess), len(instance.lbg)
+        cold = instance.lam_g0 is None
         started = time.perf_counter()
         with sigint_held():
-            result = self.solver(**arguments)
+            result = self.solver(
+                x0=instance.guess,
+                p=instance.parameters,
+                lbx=instance.lbx,
+                ubx=instance.ubx,
+                lbg=instance.lbg,
+                ubg=instance.ubg,
+                # casadi's own default for multipliers left out is 0.
+                lam_x0=np.zeros(n_w) if cold else instance.lam_x0,
+                lam_g0=np.zeros(n_g) if cold else instance.lam_g0,
+            )
         elapsed = time.perf_counter() - started
         stats = self.solver.stats()
         return Attempt(
@@ -212,10 +214,10 @@ class NlpsolStrategy:
             status=plugin_status(self.name, stats),
             iterations=int(stats.get("iter_count", 0)),
             elapsed=elapsed,
-            x=np.asarray(result["x"], dtype=float).reshape(-1),
-            cost=float(result["f"]),
-            lam_x=np.asarray(result["lam_x"], dtype=float).reshape(-1),
-            lam_g=np.asarray(result["lam_g"], dtype=float).reshape(-1),
+            x=result["x"].copy(),
+            cost=float(result["f"][0]),
+            lam_x=result["lam_x"].copy(),
+            lam_g=result["lam_g"].copy(),
         )
 
 
