@@ -34,6 +34,7 @@ from coverage_fleet.geometry.buffered_cells import (
     admissible_points,
     buffered_cell_polygon,
     separating_halfplanes,
+    targets_well_inside,
 )
 from coverage_fleet.geometry.density import UniformDensity
 from coverage_fleet.geometry.region import ConvexRegion
@@ -179,6 +180,44 @@ def test_admissible_point_is_shapelys_nearest_point_of_the_cell() -> None:
         cell = shapely.Polygon(buffered_cell_polygon(snap, name, 0.1, REGION.vertices, A, b))
         nearest = shapely.shortest_line(cell, shapely.Point(targets[k])).coords[0]
         assert points[k] == pytest.approx(nearest, abs=1e-9)
+
+
+def test_admissible_points_of_crowded_and_spread_fleets_are_shapelys_nearest_points() -> None:
+    """Random fleets of 2-12 robots (radii, pads and margins varied, some targets inside
+    their cells, some beyond): every robot's admissible point is shapely's nearest point of
+    its buffered cell (clipped as above), and the all-robots-at-once check that skips the
+    clipping vouches only for targets shapely finds inside the cell (fails if that check
+    drops a row, e.g. the pad on the half-planes)."""
+    rng = np.random.default_rng(11)
+    A, b = REGION.halfspaces()
+    vouched = 0
+    for _ in range(60):
+        n = int(rng.integers(2, 13))
+        positions = rng.uniform([0.3, 0.3], [3.7, 2.7], (n, 2))
+        targets = positions + rng.normal(0.0, rng.choice([0.05, 0.3, 1.0]), (n, 2))
+        radii = rng.uniform(0.05, 0.3, n)
+        pads = rng.uniform(0.0, 0.1, n)
+        margin = float(rng.uniform(0.0, 0.1))
+        names = tuple(f"r{k}" for k in range(n))
+        points, has_cell = admissible_points(names, positions, targets, radii, margin,
+                                             REGION.vertices, A, b, pads)
+        snap = FleetSnapshot(0.0, names, positions, np.zeros(n), radii, np.zeros(n))
+        inside = targets_well_inside(snap, targets, margin, A, b, pads)
+        vouched += int(inside.sum())
+        for k, name in enumerate(names):
+            vertices = buffered_cell_polygon(snap, name, margin, REGION.vertices, A, b,
+                                             float(pads[k]))
+            assert has_cell[k] == (len(vertices) >= 3)
+            if not has_cell[k]:
+                assert not inside[k]
+                continue
+            cell = shapely.Polygon(vertices)
+            target = shapely.Point(targets[k])
+            if inside[k]:
+                assert cell.contains(target)
+            nearest = shapely.shortest_line(cell, target).coords[0]
+            assert points[k] == pytest.approx(nearest, abs=1e-9)
+    assert vouched > 0  # the check took its shortcut in some fleets
 
 
 # --- held Lloyd, the held CVT gap and "settled" --------------------------------------------

@@ -200,11 +200,60 @@ def admissible_points(
     snapshot = FleetSnapshot(0.0, tuple(names), positions, np.zeros(n),
                              np.asarray(radii, float), np.zeros(n))
     points = targets.copy()
-    has_cell = np.zeros(n, bool)
-    for k, name in enumerate(names):
+    has_cell = targets_well_inside(snapshot, targets, margin, region_A, region_b, hold)
+    for k in np.nonzero(~has_cell)[0]:
+        name = names[k]
         polygon = buffered_cell_polygon(snapshot, name, margin, region_vertices, region_A,
                                         region_b, float(hold[k]))
         if len(polygon) >= 3:
             points[k] = nearest_point_of_polygon(polygon, targets[k])
             has_cell[k] = True
     return points, has_cell
+
+
+#: How far inside every row of its cell (metres) a target must be for
+#: `targets_well_inside` to vouch for it: far above the rounding of the clipped polygon's
+#: vertices (1e-14 m at 100 m), so the polygon holds the target as surely as the rows do.
+WELL_INSIDE = 1e-7
+
+
+def targets_well_inside(
+    snapshot: FleetSnapshot,
+    targets: np.ndarray,
+    margin: float,
+    region_A: np.ndarray,
+    region_b: np.ndarray,
+    hold_back: np.ndarray,
+) -> np.ndarray:
+    """(n,) bool: robot k's target lies WELL_INSIDE every row of its buffered cell (as
+    buffered_cell_polygon builds it, fresh positions), so the point of its cell nearest
+    the target is the target itself and the cell is not empty. All robots at once (no
+    polygon): the usual case of robots far apart, where clipping a polygon per robot cost
+    O(n^2) small numpy calls. False where unsure (coincident positions): the caller clips."""
+    p = snapshot.positions
+    n = len(p)
+    targets = np.asarray(targets, float).reshape(n, 2)
+    A = np.asarray(region_A, float).reshape(-1, 2)
+    norms = np.linalg.norm(A, axis=1)
+    shrink = snapshot.radii + hold_back
+    region_ok = np.all(
+        targets @ A.T <= np.asarray(region_b, float)[None, :] - shrink[:, None] * norms[None, :]
+        - WELL_INSIDE * norms[None, :],
+        axis=1,
+    )
+    if n < 2:
+        return region_ok
+    offsets_xy = p[None, :, :] - p[:, None, :]  # [i, j] = p_j - p_i
+    distances = np.hypot(offsets_xy[..., 0], offsets_xy[..., 1])
+    np.fill_diagonal(distances, np.inf)
+    apart = np.all(distances > COINCIDENT, axis=1)
+    # (The diagonal's and coincident pairs' normals are 0: their rows are not judged here.)
+    normals = offsets_xy / np.where(distances > COINCIDENT, distances, 1.0)[..., None]
+    allowance = snapshot.allowances()
+    gaps = (distances - snapshot.radii[:, None] - snapshot.radii[None, :] - margin
+            - allowance[:, None] - allowance[None, :])
+    # Row (i, j): normals[i, j] . q <= normals[i, j] . p_i + allowance_i + gap / 2 - hold_i.
+    slack = (np.einsum("ijk,ik->ij", normals, p) + allowance[:, None] + gaps / 2.0
+             - hold_back[:, None] - np.einsum("ijk,ik->ij", normals, targets))
+    np.fill_diagonal(slack, np.inf)
+    return region_ok & apart & np.all(slack >= WELL_INSIDE, axis=1)
