@@ -28,7 +28,11 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from coverage_fleet.geometry.buffered_cells import FleetSnapshot, separating_halfplanes
+from coverage_fleet.geometry.buffered_cells import (
+    FleetSnapshot,
+    HalfPlanes,
+    separating_halfplanes,
+)
 
 #: Default metres kept between two footprints (split between the two robots); common
 #: practice: a few centimetres of localisation error plus a little room.
@@ -107,12 +111,24 @@ class CellWindow:
         self.rows = int(rows)
         self.reach = float(reach)
         self._snapshots: deque[FleetSnapshot] = deque()
+        #: The robot's half-planes of each snapshot (by identity; None: not in it),
+        #: computed at its first solve: a snapshot serves every solve within the window.
+        self._planes: dict[int, HalfPlanes | None] = {}
 
     def add(self, snapshot: FleetSnapshot) -> None:
         """A newer snapshot (older or same-time ones are ignored)."""
         if self._snapshots and snapshot.time <= self._snapshots[-1].time:
             return
         self._snapshots.append(snapshot)
+
+    def _halfplanes(self, snapshot: FleetSnapshot) -> HalfPlanes | None:
+        key = id(snapshot)
+        if key not in self._planes:
+            self._planes[key] = (
+                separating_halfplanes(snapshot, self.own, self.settings.margin)
+                if self.own in snapshot.names else None
+            )
+        return self._planes[key]
 
     @property
     def newest(self) -> FleetSnapshot | None:
@@ -125,7 +141,7 @@ class CellWindow:
             len(self._snapshots) > 1
             and self._snapshots[0].time <= now - self.window + STAMP_TOLERANCE
         ):
-            self._snapshots.popleft()
+            self._planes.pop(id(self._snapshots.popleft()), None)
         newest = self.newest
         if newest is None:
             return CellRows(None, None, reason="no snapshot of the fleet's positions yet")
@@ -141,9 +157,9 @@ class CellWindow:
             )
         normals, offsets = [], []
         for snapshot in self._snapshots:
-            if self.own not in snapshot.names:
+            planes = self._halfplanes(snapshot)
+            if planes is None:
                 continue
-            planes = separating_halfplanes(snapshot, self.own, self.settings.margin)
             normals.append(planes.normals)
             offsets.append(planes.offsets)
         normals_all = np.vstack(normals) if normals else np.zeros((0, 2))
