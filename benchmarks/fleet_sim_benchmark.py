@@ -18,7 +18,11 @@ Printed per run: simulated seconds, wall seconds of the tick loop, real-time fac
 partition, gate, solve, plant and logging), share of the tick loop per stage (plain
 counters in fleet/step.StageTimes), and the start-up time (building the controllers, and
 for the method spawning the workers and their imports; paid once per run, outside the tick
-loop). The partition's compiled loops are loaded once before any timing. Then the ratios
+loop). For the method a second line splits its `solves` share: each worker's busy time
+(what it measured answering, fleet/controller_pool.py), the busiest worker's per tick (the
+least the answers could take with this split of robots) and the rest (the other workers'
+idle time, messages, wake-ups); the last two sum to the `solves` share. The partition's
+compiled loops are loaded once before any timing. Then the ratios
 method/baseline, how the cost per robot-step grows with the fleet (slope of log cost
 against log robots between sizes: 0 is flat, 1 is linear), and whether the two logs are
 identical (every logged value but the measured solve times).
@@ -118,6 +122,17 @@ def describe(label: str, log: TrialLog, times: StageTimes, setup: float) -> str:
             f"{shares}  setup {setup:5.1f} s")
 
 
+def describe_workers(log: TrialLog, times: StageTimes, setup: float) -> str:
+    """Where the pooled run's `solves` share went: each worker's busy time, the busiest
+    worker's per tick (the least the answers could take), and the rest (idle workers
+    waiting for the busiest, messages, wake-ups), as shares of the tick loop."""
+    busy = "  ".join(f"{b / times.total:5.1%}" for b in times.worker_busy)
+    rest = times.solves - times.worker_critical
+    return (f"  {'':<10} workers busy {busy} of the loop; busiest per tick "
+            f"{times.worker_critical / times.total:5.1%}, waits and messages "
+            f"{rest / times.total:5.1%}")
+
+
 def load_text() -> str:
     one, five, fifteen = os.getloadavg()
     return f"load average {one:.2f} {five:.2f} {fifteen:.2f} on {os.cpu_count()} cores"
@@ -154,6 +169,7 @@ def main() -> None:
             print(describe("1 process", *serial))
             parallel = run_once(mission, args.workers)
             print(describe(f"{args.workers} workers", *parallel))
+            print(describe_workers(*parallel))
             same = (log_texts_without_wall_clock(serial[0])
                     == log_texts_without_wall_clock(parallel[0]))
             ratio = serial[0].wall_time / parallel[0].wall_time

@@ -13,7 +13,8 @@ What is checked, and against what:
   multiprocessing timing anomalies", SIAM J. Appl. Math. 17(2), 1969, theorem 2), with
   the optimum found by trying every split;
 - the stage counters count what the log holds (ticks, robot-steps, solves) and their times
-  are not more than the run's wall time.
+  are not more than the run's wall time; the workers' busy times lie within the ticks'
+  waits for them.
 """
 
 from __future__ import annotations
@@ -74,6 +75,10 @@ def test_workers_write_the_same_log_as_one_process(mixed_mission: Mission) -> No
                                        for r in log.robots.values())
         assert all(getattr(times, stage) > 0 for stage in StageTimes.STAGES)
         assert times.total - times.logging <= log.wall_time
+    # Each worker's busy time lies within the ticks' waits for its answers.
+    assert serial_times.worker_busy == () and len(pooled_times.worker_busy) == 2
+    assert 0 < max(pooled_times.worker_busy) <= pooled_times.worker_critical
+    assert pooled_times.worker_critical <= pooled_times.solves
 
 
 def test_robot_split_is_within_grahams_bound_for_the_greedy_rule(

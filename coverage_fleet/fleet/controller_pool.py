@@ -36,6 +36,7 @@ import os
 import socket
 import subprocess
 import sys
+import time
 import traceback
 from collections.abc import Hashable, Mapping
 from multiprocessing.connection import Connection
@@ -91,6 +92,13 @@ class ControllerPool:
             [] for _ in self.shares
         ]
         self._snapshots: list[FleetSnapshot] = []
+        #: Seconds each worker spent answering ticks (targets, snapshots, answers; what it
+        #: measured itself, so its waits for work are left out).
+        self.busy_seconds = [0.0] * len(self.shares)
+        #: Sum over ticks of the busiest worker's seconds: the least the ticks' answers
+        #: could have taken on these workers (the rest of the wait is the other workers'
+        #: idle time, messages and wake-ups).
+        self.critical_seconds = 0.0
         try:
             for share in self.shares:
                 self._start_worker()
@@ -160,8 +168,13 @@ class ControllerPool:
             self._targets[index] = []
         self._snapshots = []
         answers: dict[str, Answer] = {}
+        busiest = 0.0
         for index in range(len(self.shares)):
-            answers.update(self._receive(index, None, "a tick"))
+            share_answers, busy = self._receive(index, None, "a tick")
+            answers.update(share_answers)
+            self.busy_seconds[index] += busy
+            busiest = max(busiest, busy)
+        self.critical_seconds += busiest
         return {name: answers[name] for name in states}
 
     def close(self) -> None:
@@ -206,6 +219,7 @@ def serve(connection: Connection) -> None:
         if message[0] != "answer":
             return
         _, state_time, targets, snapshots, batch = message
+        started = time.perf_counter()
         try:
             for name, key, target, distance in targets:
                 controllers.set_target(name, key, target, distance)
@@ -215,7 +229,7 @@ def serve(connection: Connection) -> None:
         except Exception:
             connection.send(("error", traceback.format_exc()))
             continue
-        connection.send(("answers", answers))
+        connection.send(("answers", (answers, time.perf_counter() - started)))
 
 
 if __name__ == "__main__":

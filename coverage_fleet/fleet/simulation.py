@@ -117,6 +117,9 @@ def _run(
                 assembler.add(ClearanceRecord(clearance.time, clearance.clearance,
                                               clearance.robots))
 
+    if pool is not None:
+        fleet.times.worker_busy = tuple(pool.busy_seconds)
+        fleet.times.worker_critical = pool.critical_seconds
     finishing = wallclock.perf_counter()
     log = assembler.finish(
         wall_time=finishing - started, duration=duration, step=step

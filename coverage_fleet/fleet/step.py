@@ -75,6 +75,11 @@ class StageTimes:
     ticks: int = 0
     robot_steps: int = 0
     solves_run: int = 0
+    #: Controllers on worker processes (fleet/controller_pool.py): seconds each worker
+    #: spent answering, and the sum over ticks of the busiest worker's (both within
+    #: `solves`; the rest of `solves` is idle workers, messages and wake-ups).
+    worker_busy: tuple[float, ...] = ()
+    worker_critical: float = 0.0
 
     STAGES: ClassVar[tuple[str, ...]] = ("partition", "gate", "solves", "plants", "logging")
 
