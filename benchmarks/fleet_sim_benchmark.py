@@ -21,7 +21,9 @@ for the method spawning the workers and their imports; paid once per run, outsid
 loop). For the method a second line splits its `solves` share: each worker's busy time
 (what it measured answering, fleet/controller_pool.py), the busiest worker's per tick (the
 least the answers could take with this split of robots) and the rest (the other workers'
-idle time, messages, wake-ups); the last two sum to the `solves` share. The partition's
+idle time, messages, wake-ups); the last two sum to the `solves` share. Under each run,
+its solves: mean and median solve time (the loop pays the mean) and the share of samples
+the real-time iteration answered alone against those handed to a full solve. The partition's
 compiled loops are loaded once before any timing. Then the ratios
 method/baseline, how the cost per robot-step grows with the fleet (slope of log cost
 against log robots between sizes: 0 is flat, 1 is linear), and whether the two logs are
@@ -55,6 +57,7 @@ from coverage_fleet.fleet.simulation import simulate_mission
 from coverage_fleet.fleet.step import StageTimes
 from coverage_fleet.fleet.trial import TrialLog, log_texts_without_wall_clock
 from coverage_fleet.geometry.partition import compute_partition
+from coverage_fleet.vehicles.settings import SOLVER_PLUGINS
 
 VEHICLES = ("differential_drive", "car_like", "multirotor", "surface_vessel")
 #: Simulated seconds per fleet size (full run, quick run).
@@ -122,6 +125,35 @@ def describe(label: str, log: TrialLog, times: StageTimes, setup: float) -> str:
             f"{shares}  setup {setup:5.1f} s")
 
 
+def describe_solves(log: TrialLog) -> str:
+    """The solves behind the `solves` share: mean and median solve time (the fleet loop
+    pays the mean), and how many samples the real-time iteration answered alone against
+    those handed to a full solve (status naming a plugin: control/solver_chain.py), with
+    the full solves' share of the summed solve time. Samples of neither kind (a
+    keep-apart brake, a fallback without a solve) are counted apart."""
+    times, full, fell_back = [], [], []
+    for robot in log.robots.values():
+        for ran, seconds, status, fallback in zip(
+            robot.controller_ran, robot.solve_time, robot.status, robot.fallback, strict=True
+        ):
+            if ran:
+                times.append(seconds)
+                full.append(any(f"{plugin}:" in status for plugin in SOLVER_PLUGINS))
+                fell_back.append(bool(fallback))
+    if not times:
+        return f"  {'':<10} no solves"
+    seconds, handed = np.array(times), np.array(full)
+    alone = ~handed & ~np.array(fell_back)
+    others = len(seconds) - int(alone.sum()) - int(handed.sum())
+    return (f"  {'':<10} solves {len(seconds)}: mean {seconds.mean() * 1e3:.2f} ms, median "
+            f"{np.median(seconds) * 1e3:.2f} ms; real-time alone {alone.mean():.1%} (mean "
+            f"{seconds[alone].mean() * 1e3 if alone.any() else 0.0:.2f} ms), full solve "
+            f"{handed.mean():.1%} (mean "
+            f"{seconds[handed].mean() * 1e3 if handed.any() else 0.0:.2f} ms, "
+            f"{seconds[handed].sum() / max(seconds.sum(), 1e-12):.0%} of the solve time)"
+            + (f", {others} braked or fell back without a full solve" if others else ""))
+
+
 def describe_workers(log: TrialLog, times: StageTimes, setup: float) -> str:
     """Where the pooled run's `solves` share went: each worker's busy time, the busiest
     worker's per tick (the least the answers could take), and the rest (idle workers
@@ -167,9 +199,11 @@ def main() -> None:
             print(f"{robots} robots ({', '.join(VEHICLES)} in turn), {duration:g} s simulated")
             serial = run_once(mission, 1)
             print(describe("1 process", *serial))
+            print(describe_solves(serial[0]))
             parallel = run_once(mission, args.workers)
             print(describe(f"{args.workers} workers", *parallel))
             print(describe_workers(*parallel))
+            print(describe_solves(parallel[0]))
             same = (log_texts_without_wall_clock(serial[0])
                     == log_texts_without_wall_clock(parallel[0]))
             ratio = serial[0].wall_time / parallel[0].wall_time
