@@ -196,7 +196,10 @@ def run(path: Path, steps: int, solver: dict | None) -> dict[str, float | str | 
     for k in range(steps):
         target = np.array(TARGETS[min(k * len(TARGETS) // steps, len(TARGETS) - 1)])
         answers = {}
-        for name, plant in (("fast", "fast"), ("fast_plain", "fast"), ("full", "full")):
+        # The two fast variants take turns going first: the second call on the same state
+        # measured up to 0.4 ms faster (caches warmed by the first).
+        fast_pair = (("fast", "fast"), ("fast_plain", "fast"))
+        for name, plant in (fast_pair if k % 2 == 0 else fast_pair[::-1]) + (("full", "full"),):
             answers[name], elapsed = _timed(mpcs[name].solve, plants[plant], target)
             failures[name] += not answers[name].success
             if k > 0:  # the first (cold) solve is not a warm-started sample

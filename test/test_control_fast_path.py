@@ -164,3 +164,34 @@ def test_rejected_iterate_falls_back_to_the_full_solve():
     # Both converged solutions of the same problem: equal to fatrop's tolerance (absolute
     # 1e-5 on an O(1e3) cost, see solver_chain.SOLVER_DEFAULTS).
     np.testing.assert_allclose(jumped.first_input, reference.first_input, atol=1e-3)
+
+
+def _input_variation(mpc, model, settings, x, targets, steps):
+    F = model.discrete_dynamics(settings.sample_time, settings.substeps)
+    inputs = []
+    for k in range(steps):
+        solution = mpc.solve(x, targets[k * len(targets) // steps])
+        assert solution.success, solution.status
+        inputs.append(solution.first_input)
+        x = np.array(F(x, solution.first_input)).reshape(-1)
+    return np.abs(np.diff(np.array(inputs), axis=0)).sum(axis=0)
+
+
+@pytest.mark.parametrize("name", ["differential_drive", "car_like"])
+def test_real_time_commands_are_not_rougher_than_the_full_solves(name):
+    """Two guards keep the real-time commands as smooth as the full solve's. (1) The warm
+    start of a terminal-equality MPC appends u_s to the shifted plan (the candidate of
+    Rawlings, Mayne & Diehl, "Model Predictive Control", 2nd ed., 2017, sec. 2.4.2, whose
+    appended stage rests at x_s with no dynamics defect); with the last input repeated the
+    rover's yaw-rate commands flipped sign from sample to sample (total variation 3.9x the
+    full solve's on this loop). (2) An iterate that moves the applied input by more than
+    rti.INPUT_STEP_FRACTION of its range is rejected; feasible only, the car's steering
+    swung between full locks while reversing (4.3x). Stated bound: each input's total
+    variation (sum of |u_{k+1} - u_k|) at most 2x the full solve's over the same targets
+    (common practice for comparing smoothness; both failed it before the guards)."""
+    model, settings, full, fast = _mpcs(name, REGION)
+    start = _at_rest(model, (2.0, 2.0))
+    targets = [np.array([10.0, 5.0]), np.array([4.0, 7.0])]
+    rough_full = _input_variation(full, model, settings, start, targets, 80)
+    rough_fast = _input_variation(fast, model, settings, start, targets, 80)
+    assert np.all(rough_fast <= 2.0 * rough_full + 1e-9), (rough_fast, rough_full)

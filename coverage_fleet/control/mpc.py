@@ -100,6 +100,7 @@ quadratic row and the stage layout of its rows; a row added here must keep that 
 
 from __future__ import annotations
 
+import math
 from collections.abc import Sequence
 from dataclasses import dataclass
 
@@ -354,6 +355,8 @@ class TrackingMpc:
         self._lam_rows = self.cell_rows
         #: The centre of the steady rows found by the last steady_relaxation program.
         self._steady_centre: np.ndarray | None = None
+        #: _shift_index's answers by decision-vector size.
+        self._shift_indices: dict[int, np.ndarray] = {}
 
     # --- construction ------------------------------------------------------------------
 
@@ -604,7 +607,7 @@ class TrackingMpc:
             nlp,
             settings,
             [bool(v) for v in lbg_all == ubg_all],
-            FastProblem(terms, quadratic_rows, StageLayout(N, nz, nv, path_rows)),
+            FastProblem(terms, quadratic_rows, StageLayout(N, nz, nv, path_rows, nu)),
             skip_left,
         )
         return _BuiltProblem(
@@ -660,16 +663,43 @@ class TrackingMpc:
 
     def _shifted(self, w: np.ndarray) -> np.ndarray:
         """The previous solution one sample later: the warm start (the steady state's
-        slack stays at stage 0, the predicted positions' shift with them)."""
-        states, inputs, theta, slacks = self._unpack(w)
-        states = np.vstack([states[1:], states[-1:]])
-        inputs = np.vstack([inputs[1:], inputs[-1:]])
-        if self.horizon > 1:
-            slacks = np.vstack([slacks[:1], slacks[2:], slacks[-1:]])
-        return self._pack(states, inputs, theta, slacks)
+        slack stays at stage 0, the predicted positions' shift with them). The appended
+        stage keeps the last state; its input is u_s at the terminal equality, where that
+        state is the resting state x_s: the candidate of Rawlings, Mayne & Diehl, "Model
+        Predictive Control", 2nd ed., 2017, sec. 2.4.2 (u_f = u_s keeps x_s), so the shifted
+        plan has no dynamics defect. Repeating the last input instead drove the rover on by
+        a sample's travel there (8.5 cm at 0.85 m/s), and its real-time yaw-rate commands
+        flipped sign from sample to sample (total variation 2.6x the full solve's over
+        benchmarks/mpc_benchmark.py's loop, 1.5x with u_s). With the terminal ellipsoid the
+        last input is repeated (appending the LQR law u_s + K e instead was measured to
+        halve the vessel's accepted real-time steps, cause not investigated)."""
+        shifted = w[self._shift_index(len(w))]
+        if self.terminal.kind == "equality":
+            _, _, theta, _ = self._unpack(shifted)
+            last_input = (self.horizon - 1) * (self._nz + self._nv) + self._nz
+            shifted[last_input : last_input + self.model.nu] = self._Mu @ theta + self._u0s
+        return shifted
+
+    def _shift_index(self, size: int) -> np.ndarray:
+        """Where each entry of the shifted decision vector comes from (a gather: the same
+        for every solve of this problem size, so it is worked out once)."""
+        cached = self._shift_indices.get(size)
+        if cached is None:
+            states, inputs, theta, slacks = self._unpack(np.arange(size, dtype=float))
+            states = np.vstack([states[1:], states[-1:]])
+            inputs = np.vstack([inputs[1:], inputs[-1:]])
+            if self.horizon > 1:
+                slacks = np.vstack([slacks[:1], slacks[2:], slacks[-1:]])
+            cached = self._pack(states, inputs, theta, slacks).astype(int)
+            self._shift_indices[size] = cached
+        return cached
 
     def _align_angles(self, w: np.ndarray, x0: np.ndarray) -> np.ndarray:
         """Shift the guess by whole turns so its angles match the measured ones."""
+        # The first state is w[:nx] (_unpack): most samples need no turn and no unpacking.
+        angles = list(self.model.angle_indices)
+        if not np.any(np.round((x0[angles] - w[angles]) / (2 * np.pi))):
+            return w
         states, inputs, theta, slacks = self._unpack(w)
         changed = False
         for index in self.model.angle_indices:
@@ -894,15 +924,15 @@ class TrackingMpc:
         stay where the robot is. Happens with nonholonomic models started at rest (at zero
         speed steering has no first-order effect, so "stay" satisfies the optimality
         conditions); a second start from a guess that moves breaks the symmetry."""
-        states, _, theta, _ = self._unpack(w)
-        p0 = self.model.position(x0)
-        p_s = self.model.position(self._Mx @ theta + self._x0s)
-        motion = np.abs(states[:, list(self.model.position_indices)] - p0).max()
-        return (
-            motion < STALL_DISTANCE
-            and np.linalg.norm(p_s - p0) < STALL_DISTANCE
-            and np.linalg.norm(p_s - target) > STALL_OFFSET
-        )
+        # The cheap tests first (a robot under way fails the first): theta ends w (_unpack).
+        x_s = self._Mx @ w[len(w) - self._n_theta :] + self._x0s
+        i, j = self.model.position_indices
+        if math.hypot(x_s[i] - x0[i], x_s[j] - x0[j]) >= STALL_DISTANCE:
+            return False
+        if math.hypot(x_s[i] - target[0], x_s[j] - target[1]) <= STALL_OFFSET:
+            return False
+        states = self._unpack(w)[0]
+        return float(np.abs(states[:, [i, j]] - x0[[i, j]]).max()) < STALL_DISTANCE
 
     def solve(
         self,
@@ -927,10 +957,8 @@ class TrackingMpc:
         # target 22 degrees off its heading, test_control_real_time_rest).
         cold = self._guess is None
         guess = self._cold_guess(x0) if cold else self._guess
-        guess = self._align_angles(guess, x0)
-        states, inputs, theta, slacks = self._unpack(guess)
-        states[0] = x0
-        guess = self._pack(states, inputs, theta, slacks)
+        guess = self._align_angles(guess, x0).copy()
+        guess[: self.model.nx] = x0  # the first state (_unpack)
         run = self._run(guess, parameters, problem, warm_duals=True, shifted_plan=not cold)
         final, status = run.final, run.status
         solve_time, iterations, success = run.elapsed, run.iterations, run.success
