@@ -319,19 +319,25 @@ def test_shapely_projection_reference_is_the_edge_offset():
     assert np.mean(inside_offset == inside_buffer) > 0.99
 
 
-def test_failed_fast_solve_is_rescued_by_ipopt():
+@pytest.mark.parametrize("prebuild", [True, False])
+def test_failed_fast_solve_is_rescued_by_ipopt(prebuild):
     """A real failure of the primary plugin (fatrop stopped after one iteration) is solved
-    again by IPOPT from the same warm start; the sample still succeeds and says so."""
+    again by IPOPT from the same warm start; the sample still succeeds and says so. Offline
+    (prebuild False) the rescue is built at that first failure and gives the same answer
+    as the one built up front (the same IPOPT on the same problem)."""
     model, settings = _double_integrator()
     starved = dataclasses.replace(
         settings,
         solver={"plugin": "fatrop", "path": "full", "options": {"fatrop.max_iter": 1}},
     )
-    mpc = TrackingMpc(model, starved, REGION)
+    mpc = TrackingMpc(model, starved, REGION, prebuild=prebuild)
     solution = mpc.solve(_start_state(model, (3.0, 3.0)), np.array([6.0, 4.0]))
     assert solution.success
     # fatrop's flag by its name (its enum IpSolverReturnFlag), not casadi's bare number.
     assert solution.status == "fatrop: MaxIterExceeded; ipopt: Solve_Succeeded", solution.status
+    reference = TrackingMpc(model, starved, REGION, prebuild=not prebuild)
+    again = reference.solve(_start_state(model, (3.0, 3.0)), np.array([6.0, 4.0]))
+    np.testing.assert_array_equal(again.first_input, solution.first_input)
 
 
 def test_fatrop_status_names_its_own_flag_not_casadis_success_bit():

@@ -286,8 +286,10 @@ class TrackingMpc:
         prebuild: build every budget's problem now (a robot's solves then never wait for
         a build); False builds each on its first use (offline runs, where start-up time
         counts and a solve's wall time does not: a build takes 0.1-1 s, a first compile
-        with `mpc.solver.compile` tens of seconds)."""
+        with `mpc.solver.compile` tens of seconds), and each problem's IPOPT rescue on the
+        first sample it is needed (solver_chain.NlpsolStrategy)."""
         _require_checked(model, settings, terminal)
+        self._prebuild = prebuild
         if cell_rows < 0:
             raise ValueError(f"cell_rows must be >= 0, got {cell_rows}")
         self.cell_rows = int(cell_rows)
@@ -609,6 +611,7 @@ class TrackingMpc:
             [bool(v) for v in lbg_all == ubg_all],
             FastProblem(terms, quadratic_rows, StageLayout(N, nz, nv, path_rows, nu)),
             skip_left,
+            rescue_on_first_use=not self._prebuild,
         )
         return _BuiltProblem(
             n_cell, chain, lbg_all, ubg_all, cell_index, np.nonzero(other)[0]

@@ -36,7 +36,7 @@ fault and carry on, losing the operator's Ctrl-C.
 from __future__ import annotations
 
 import time
-from collections.abc import Mapping, Sequence
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass
 from typing import Any, Protocol
 
@@ -186,9 +186,20 @@ class NlpsolStrategy:
     hold_samples: int | None = None
     needs_shifted_plan = False
 
-    def __init__(self, name: str, solver: ca.Function) -> None:
+    def __init__(self, name: str, solver: ca.Function | Callable[[], ca.Function]) -> None:
+        """solver: the nlpsol, or a function that builds it at the first attempt (the
+        rescue answers few samples, e.g. 25 of 2816 in a 16-robot fleet run, and building
+        it was about 30 % of building an MPC problem, which a fleet does again for every
+        keep-apart row budget a robot reaches)."""
         self.name = name
-        self.solver = BufferedFunction(solver)
+        self._build = None if isinstance(solver, ca.Function) else solver
+        self._solver = BufferedFunction(solver) if self._build is None else None
+
+    @property
+    def solver(self) -> BufferedFunction:
+        if self._solver is None:
+            self._solver = BufferedFunction(self._build())
+        return self._solver
 
     def attempt(self, instance: NlpInstance) -> Attempt:
         n_w, n_g = len(instance.guess), len(instance.lbg)
@@ -328,10 +339,13 @@ def build_solver_chain(
     equality: Sequence[bool],
     fast: FastProblem | None = None,
     skip_left: list[int] | None = None,
+    rescue_on_first_use: bool = False,
 ) -> SolverChain:
     """The chain for an NLP in casadi's {x, p, f, g} form; `equality` flags the rows of g
     that are equalities (fatrop's structure detection needs them); `fast` enables the
-    real-time path when the settings ask for it; `skip_left`: see SolverChain."""
+    real-time path when the settings ask for it; `skip_left`: see SolverChain;
+    `rescue_on_first_use`: build the IPOPT rescue when a sample first needs it (offline
+    runs; a real-time controller must not wait 30-130 ms for it at a failure)."""
     plugin = configured_plugin(settings)
     budget = int(settings.solver.get("max_iter", DEFAULT_MAX_ITER))
     rescued = plugin != RESCUE_PLUGIN
@@ -360,6 +374,10 @@ def build_solver_chain(
         rescue_options = _plugin_options(
             RESCUE_PLUGIN, budget * RESCUE_ITERATION_FACTOR, equality, {}
         )
-        rescue = ca.nlpsol(f"tracking_mpc_{RESCUE_PLUGIN}", RESCUE_PLUGIN, nlp, rescue_options)
-        strategies.append(NlpsolStrategy(RESCUE_PLUGIN, rescue))
+        def build_rescue() -> ca.Function:
+            return ca.nlpsol(f"tracking_mpc_{RESCUE_PLUGIN}", RESCUE_PLUGIN, nlp, rescue_options)
+
+        strategies.append(NlpsolStrategy(
+            RESCUE_PLUGIN, build_rescue if rescue_on_first_use else build_rescue()
+        ))
     return SolverChain(strategies, RESCUE_HOLD_SAMPLES, skip_left)
