@@ -609,7 +609,7 @@ class TrackingMpc:
             nlp,
             settings,
             [bool(v) for v in lbg_all == ubg_all],
-            FastProblem(terms, quadratic_rows, StageLayout(N, nz, nv, path_rows, nu)),
+            FastProblem(terms, quadratic_rows, StageLayout(N, nz, nv, path_rows)),
             skip_left,
             rescue_on_first_use=not self._prebuild,
         )

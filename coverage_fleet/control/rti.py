@@ -19,9 +19,7 @@ plan):
   exactly after the step; what is left is the linearisation error of the nonlinear rows
   (dynamics defects, the terminal ellipsoid), which is second order in the step: small
   while the shifted plan is a good start, large after a new target or a sharp manoeuvre,
-  exactly when one step is not enough;
-- the first input, the one the vehicle applies, moved by at most INPUT_STEP_FRACTION of
-  its range from the shifted plan's (feasible is not optimal: see the constant).
+  exactly when one step is not enough.
 A KKT-residual test was tried too and dropped: the Gauss-Newton step leaves a residual of
 the order of the step even on accepted samples whose closed loop matches the full solve
 (benchmarks/mpc_benchmark.py prints the closed-loop cost ratio).
@@ -67,16 +65,6 @@ from coverage_fleet.vehicles.settings import QP_PLUGINS
 #: 1 cm is far inside the footprint margin the region is shrunk by, and 1 % of the level
 #: stays inside the verified terminal set, which is 1/terminal_shrink (about 11 %) larger.
 VIOLATION_TOLERANCE = 1e-2
-#: Largest move of the first input (the one applied) from the shifted plan's, as a
-#: fraction of each input's range, that an accepted iterate may make. Feasibility alone
-#: let a car-like robot reversing at 0.5 m/s take a real-time iterate that swung the
-#: steering from full lock one way to full lock the other (the full solve: 0.09 rad), and
-#: its steering then chattered (total variation 4.3x the full solve's on
-#: test_control_fast_path's loop); the step's error is second order in its size
-#: (Diehl, Bock & Schloeder 2005, sec. 4), so a large move of the one input the vehicle
-#: applies is where one linearisation is least to be trusted. With 0.25 the share of
-#: accepted samples on benchmarks/mpc_benchmark.py's loops changed by at most 1 point.
-INPUT_STEP_FRACTION = 0.25
 #: SQP steps one sample may take before it hands over to the full solve. One is the
 #: real-time iteration proper; a second and third step (each a fresh linearisation at the
 #: last iterate, so their linearisation error shrinks quadratically) rescue most samples of
@@ -121,13 +109,6 @@ class StageLayout:
     nz: int
     nu: int
     path_rows: tuple[int, ...]
-    #: How many leading entries of v_0 the vehicle applies (its inputs; the rest are
-    #: slacks); None: all nu.
-    applied: int | None = None
-
-    def applied_inputs(self) -> slice:
-        """Where the first input, the one the vehicle applies, sits in the decision vector."""
-        return slice(self.nz, self.nz + (self.nu if self.applied is None else self.applied))
 
     def dynamics_mask(self) -> np.ndarray:
         rows = []
@@ -227,18 +208,8 @@ class RealTimeIterationStrategy:
             )
         sparsity = {"h": hessian.sparsity(), "a": ca.jacobian(g_qp, w).sparsity()}
         self.qp_plugin = qp_plugin
-        self._applied = layout.applied_inputs()
         qp = ca.conic("rti_qp", qp_plugin, sparsity, options)
         self._step = BufferedFunction(_sqp_step(qp_data, check, qp, sign, w.shape[0], p.shape[0]))
-
-    def _input_move(self, instance: NlpInstance, w: np.ndarray) -> float:
-        """How far the iterate moved the first input from the guess's, as the largest
-        fraction of an input's range (inputs without a finite range not counted)."""
-        a = self._applied
-        span = instance.ubx[a] - instance.lbx[a]
-        finite = np.isfinite(span) & (span > 0)
-        moved = np.abs(w[a] - instance.guess[a])[finite] / span[finite]
-        return float(np.max(moved, initial=0.0))
 
     def _bounds_for_qp(self, lower: np.ndarray, upper: np.ndarray) -> tuple[np.ndarray, ...]:
         flipped = self._sign < 0
@@ -267,12 +238,6 @@ class RealTimeIterationStrategy:
                     status = "QP failed"
                     break
                 success = violation <= VIOLATION_TOLERANCE
-                if success:
-                    moved = self._input_move(instance, w)
-                    if moved > INPUT_STEP_FRACTION:
-                        success = False
-                        status = f"iterate rejected (first input moved {moved:.0%} of its range)"
-                        continue
                 if success:
                     status = "real-time iteration accepted" + (
                         f" after {steps} steps" if steps > 1 else ""
