@@ -643,6 +643,10 @@ class TrackingMpc:
         inputs = body[:, nz : nz + nu]
         return states, inputs, last[nx:].copy(), body[:, nz + nu :].copy()
 
+    def _theta(self, w: np.ndarray) -> np.ndarray:
+        """The steady-state parameters, the last entries of w (_unpack), as a view."""
+        return w[len(w) - self._n_theta :]
+
     def _pack(
         self,
         states: np.ndarray,
@@ -678,7 +682,7 @@ class TrackingMpc:
         halve the vessel's accepted real-time steps, cause not investigated)."""
         shifted = w[self._shift_index(len(w))]
         if self.terminal.kind == "equality":
-            _, _, theta, _ = self._unpack(shifted)
+            theta = self._theta(shifted)
             last_input = (self.horizon - 1) * (self._nz + self._nv) + self._nz
             shifted[last_input : last_input + self.model.nu] = self._Mu @ theta + self._u0s
         return shifted
@@ -927,8 +931,8 @@ class TrackingMpc:
         stay where the robot is. Happens with nonholonomic models started at rest (at zero
         speed steering has no first-order effect, so "stay" satisfies the optimality
         conditions); a second start from a guess that moves breaks the symmetry."""
-        # The cheap tests first (a robot under way fails the first): theta ends w (_unpack).
-        x_s = self._Mx @ w[len(w) - self._n_theta :] + self._x0s
+        # The cheap tests first (a robot under way fails the first).
+        x_s = self._Mx @ self._theta(w) + self._x0s
         i, j = self.model.position_indices
         if math.hypot(x_s[i] - x0[i], x_s[j] - x0[j]) >= STALL_DISTANCE:
             return False
