@@ -121,14 +121,20 @@ def _closed_loop(mpc, model, settings, x, targets, steps):
     return np.array(positions), cost, statuses
 
 
-@pytest.mark.parametrize("name", ["multirotor", "differential_drive"])
+ALL_MODELS = ["car_like", "differential_drive", "multirotor", "surface_vessel"]
+
+
+@pytest.mark.parametrize("name", ALL_MODELS)
 def test_constrained_closed_loops_agree(name):
     """Speed and acceleration limits active on the way (the targets are 6-9 m apart, so
     the robot runs at its speed limit), a new target halfway. Tolerance stated: the two
     closed loops stay within 10 cm of each other (under a third of the smallest footprint
-    radius, 0.35 m; measured 2e-5 m for the multirotor and 6 cm for the rover, whose path
-    shifts sideways when one turn starts a sample apart) and their closed-loop costs within
-    1 % (issue 13's target; measured 0.00 % and 0.28 %)."""
+    radius, 0.35 m; measured 0.0-2.9 cm, the vessel's the largest) and their closed-loop
+    costs within 1 % (issue 13's target; measured at most 0.14 %, the vessel). The real-time
+    step itself answers at least 90 % of the samples (measured 78-79 of 80 for every
+    model; 62, 62, 78 and 67 of 80 for car, rover, multirotor and vessel before the QP
+    Hessian held the dynamics' curvature, control/rti.py), else this test would mostly
+    compare the full solve with itself."""
     model, settings, full, fast = _mpcs(name, REGION)
     start = _at_rest(model, (2.0, 2.0))
     targets = [np.array([10.0, 5.0]), np.array([4.0, 7.0])]
@@ -137,9 +143,8 @@ def test_constrained_closed_loops_agree(name):
     path_fast, cost_fast, statuses = _closed_loop(fast, model, settings, start, targets, steps)
     assert np.max(np.linalg.norm(path_fast - path_full, axis=1)) < 0.1
     assert abs(cost_fast - cost_full) <= 0.01 * cost_full
-    # The fast path answered most samples itself (else this test would compare the full
-    # solve with itself).
-    assert sum(s.startswith(ACCEPTED) for s in statuses) > steps // 2
+    accepted = sum(s.startswith(ACCEPTED) for s in statuses)
+    assert accepted >= 0.9 * steps, (accepted, steps)
 
 
 def test_rejected_iterate_falls_back_to_the_full_solve():
@@ -177,19 +182,18 @@ def _input_variation(mpc, model, settings, x, targets, steps):
     return np.abs(np.diff(np.array(inputs), axis=0)).sum(axis=0)
 
 
-def test_real_time_commands_are_not_rougher_than_the_full_solves():
-    """The warm start of a terminal-equality MPC appends u_s to the shifted plan (the
-    candidate of Rawlings, Mayne & Diehl, "Model Predictive Control", 2nd ed., 2017,
-    sec. 2.4.2, whose appended stage rests at x_s with no dynamics defect). With the last
-    input repeated instead, the rover's real-time yaw-rate commands flipped sign from sample
-    to sample (total variation 3.9x the full solve's on this loop; measured with the old
-    shift, the test failed). Stated bound: each input's total variation (sum of
-    |u_{k+1} - u_k|) at most 2x the full solve's over the same targets (common practice for
-    comparing smoothness). Not met by the car-like model on this loop (steering 4.3x: a
-    feasible real-time iterate swings the steering between full locks while reversing); a
-    guard rejecting large moves of the applied input fixed that but made the orchard demo
-    settle in 63.9 s instead of 39.4 s, so it was not kept."""
-    name = "differential_drive"
+@pytest.mark.parametrize("name", ALL_MODELS)
+def test_real_time_commands_are_not_rougher_than_the_full_solves(name):
+    """Stated bound: each input's total variation (sum of |u_{k+1} - u_k|) over the loop
+    at most 2x the full solve's over the same targets (common practice for comparing
+    smoothness). Two causes of roughness this caught, each measured with the test failing:
+    - the warm start of a terminal-equality MPC repeated the last input instead of
+      appending u_s (the candidate of Rawlings, Mayne & Diehl, "Model Predictive Control",
+      2nd ed., 2017, sec. 2.4.2, whose appended stage rests at x_s with no dynamics
+      defect): the rover's yaw-rate commands flipped sign from sample to sample (3.9x);
+    - a QP Hessian without the dynamics' curvature (control/rti.py): a feasible iterate
+      swung the car's steering between full locks while reversing (4.3x; rover 1.8x,
+      vessel 1.6x). With it every model measures 0.95-1.01x."""
     model, settings, full, fast = _mpcs(name, REGION)
     start = _at_rest(model, (2.0, 2.0))
     targets = [np.array([10.0, 5.0]), np.array([4.0, 7.0])]
