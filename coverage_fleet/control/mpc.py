@@ -373,6 +373,8 @@ class TrackingMpc:
         nx, nu = model.nx, model.nu
         F = model.discrete_dynamics(settings.sample_time, settings.substeps)
         self._dynamics = F
+        # The real-time step's curvature model (rti.dynamics_curvature): one RK4 step.
+        F_one_step = model.discrete_dynamics(settings.sample_time, 1)
         n_theta = self._Mx.shape[1]
         # The keep-apart slacks are stage inputs (module docstring): stage 0's is the steady
         # state's, stage k >= 1's relaxes x_k's rows (and stage N - 1's also x_N's); with a
@@ -468,6 +470,9 @@ class TrackingMpc:
             terms.append(LeastSquaresTerm(shifted, np.array([[CELL_PENALTY]])))
             return CELL_PENALTY * shifted**2
 
+        #: Per dynamics row group, the one-step increment F_one_step(x_k, u_k) - x_k (theta's
+        #: rows: 0), for the real-time step's curvature.
+        increments: list[ca.SX] = []
         w: list[ca.SX] = []
         lbw: list[np.ndarray] = []
         ubw: list[np.ndarray] = []
@@ -501,6 +506,7 @@ class TrackingMpc:
             terms += [LeastSquaresTerm(dx, self.Q), LeastSquaresTerm(du, self.R)]
             x_next = F(x, U[k])
             add(Z[k + 1] - ca.vertcat(x_next, theta), 0.0, 0.0)
+            increments.append(ca.vertcat(F_one_step(x, U[k]) - x, ca.SX(n_theta, 1)))
             if k == 0:
                 add(x - measured, 0.0, 0.0)
                 if heads_out:
@@ -609,7 +615,9 @@ class TrackingMpc:
             nlp,
             settings,
             [bool(v) for v in lbg_all == ubg_all],
-            FastProblem(terms, quadratic_rows, StageLayout(N, nz, nv, path_rows)),
+            FastProblem(
+                terms, quadratic_rows, StageLayout(N, nz, nv, path_rows), ca.vertcat(*increments)
+            ),
             skip_left,
             rescue_on_first_use=not self._prebuild,
         )

@@ -132,12 +132,15 @@ class ChainResult:
 
 @dataclass(frozen=True)
 class FastProblem:
-    """What the real-time path needs beyond the NLP: the cost as r' W r terms and where
-    each stage's rows sit."""
+    """What the real-time path needs beyond the NLP: the cost as r' W r terms, where
+    each stage's rows sit, and the dynamics' curvature model (rti.dynamics_curvature)."""
 
     terms: Sequence[LeastSquaresTerm]
     quadratic_rows: Sequence[QuadraticRow]
     layout: StageLayout
+    #: One entry per dynamics row, in their order: the state's increment over one sample
+    #: by one RK4 step, F_1(x_k, u_k) - x_k (0 for rows of constant states).
+    dynamics_increments: ca.SX
 
 
 class SolveStrategy(Protocol):
@@ -367,7 +370,8 @@ def build_solver_chain(
         qp = str(settings.solver.get("qp", DEFAULT_QP))
         strategies.insert(
             0, RealTimeIterationStrategy(
-                nlp, fast.terms, fast.quadratic_rows, fast.layout, qp, compiled
+                nlp, fast.terms, fast.quadratic_rows, fast.layout,
+                fast.dynamics_increments, qp, compiled,
             )
         )
     if rescued:
