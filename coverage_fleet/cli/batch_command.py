@@ -164,9 +164,6 @@ def run(args: argparse.Namespace) -> int:
     footprints = {e.name: e.footprint_radius for e in mission.roster}
     starts = ("random spread" if args.packed_starts is None
               else f"packed within {args.packed_starts:g} m")
-    print(f"batch: {len(seeds)} runs on {placement.describe()}; starts {starts}; keep-apart "
-          f"{'on' if mission.keep_apart.enabled else 'off'}", file=sys.stderr)
-    print(table_header())
     finished: dict[int, dict[str, Any]] = {}
     shown = 0
 
@@ -179,7 +176,13 @@ def run(args: argparse.Namespace) -> int:
             shown += 1
         print(f"batch: run {len(finished)}/{len(seeds)} done (seed {seed})", file=sys.stderr)
 
+    # Announced inside the safe-point scope, so a Ctrl-C right after the announcement is
+    # always taken there (a process started with SIGINT ignored, as shells start background
+    # jobs, used to drop one that came before the scope began).
     with interrupts_at_safe_points():
+        print(f"batch: {len(seeds)} runs on {placement.describe()}; starts {starts}; keep-apart "
+              f"{'on' if mission.keep_apart.enabled else 'off'}", file=sys.stderr)
+        print(table_header())
         rows = run_batch(
             mission,
             seeds,

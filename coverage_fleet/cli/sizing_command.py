@@ -357,8 +357,6 @@ def run(args: argparse.Namespace) -> int:
     check_output_location(out, "--out")
     seeds = list(range(args.first_seed, args.first_seed + args.seeds))
     jobs = [(c["roster"], seed, args.duration) for c in configurations for seed in seeds]
-    print(f"sizing: {len(configurations)} configurations x {len(seeds)} seeds = {len(jobs)} "
-          f"runs on {placement.describe()}", file=sys.stderr)
     finished = 0
 
     def progress(index: int, row: dict[str, Any]) -> None:
@@ -369,7 +367,10 @@ def run(args: argparse.Namespace) -> int:
               f"{mix_text(configuration['counts'])}, seed {row['seed']}: {row['outcome']})",
               file=sys.stderr, flush=True)
 
+    # Announced inside the safe-point scope (batch_command.py says why).
     with interrupts_at_safe_points():
+        print(f"sizing: {len(configurations)} configurations x {len(seeds)} seeds = {len(jobs)} "
+              f"runs on {placement.describe()}", file=sys.stderr)
         rows = run_all(run_configuration, mission, jobs, placement, progress)
     for number, configuration in enumerate(configurations):
         runs = rows[number * len(seeds):(number + 1) * len(seeds)]
