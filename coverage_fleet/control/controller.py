@@ -31,6 +31,7 @@ from coverage_fleet.control.ingredients import TerminalIngredients
 from coverage_fleet.control.keep_apart import CellRows
 from coverage_fleet.control.limits import COMMAND_LIMIT_TOLERANCE, input_limits
 from coverage_fleet.control.mpc import TrackingMpc
+from coverage_fleet.control.shared_problems import SharedProblems
 from coverage_fleet.vehicles.base import VehicleModel
 from coverage_fleet.vehicles.settings import MpcSettings
 
@@ -69,11 +70,13 @@ class RobotController:
         terminal: TerminalIngredients | None = None,
         cell_rows: int = 0,
         prebuild: bool = True,
+        shared: SharedProblems | None = None,
     ) -> None:
-        """prebuild: see TrackingMpc (False: offline runs)."""
+        """prebuild, shared: see TrackingMpc (offline runs: False, the fleet's builds)."""
         self.model = model
         self.mpc = TrackingMpc(
-            model, settings, region_halfspaces, terminal, cell_rows, prebuild=prebuild
+            model, settings, region_halfspaces, terminal, cell_rows, prebuild=prebuild,
+            shared=shared,
         )
         self._u_lower, self._u_upper = (np.asarray(v, float) for v in model.input_bounds())
         E, e = model.input_polytope()

@@ -112,14 +112,18 @@ from coverage_fleet.control.frames import heading_index, steady_frame_error
 from coverage_fleet.control.ingredients import TerminalIngredients
 from coverage_fleet.control.limits import input_limits, state_limits, steady_limits
 from coverage_fleet.control.rti import LeastSquaresTerm, QuadraticRow, StageLayout
+from coverage_fleet.control.shared_problems import SharedProblems, problem_key
 from coverage_fleet.control.solver_chain import (
+    RESCUE_HOLD_SAMPLES,
     ChainResult,
     FastProblem,
     NlpInstance,
     SolverChain,
-    build_solver_chain,
+    SolveStrategy,
+    build_strategies,
     configured_path,
     configured_plugin,
+    shareable,
     terminal_equality_width,
 )
 from coverage_fleet.control.stage_cost import stage_weights
@@ -202,8 +206,32 @@ class SteadyStatePoint:
 
 
 @dataclass(frozen=True)
+class _SharedBuild:
+    """What building the problem for one keep-apart row count makes, the same for every
+    robot with the same problem (control/shared_problems.py): the solver strategies and
+    the read-only arrays a solve reads."""
+
+    rows: int
+    strategies: tuple[SolveStrategy, ...]
+    lbg: np.ndarray
+    ubg: np.ndarray
+    cell_index: np.ndarray
+    other_index: np.ndarray
+    #: Bounds of the decision vector (the same in every budget).
+    lbw: np.ndarray
+    ubw: np.ndarray
+    #: Stage sizes: z_k = (x_k, theta), v_k = (u_k, slacks), len(theta).
+    nz: int
+    nv: int
+    n_theta: int
+    #: The model's discrete dynamics at the sample time (the manoeuvre guesses).
+    dynamics: ca.Function
+
+
+@dataclass(frozen=True)
 class _BuiltProblem:
-    """The problem built for one keep-apart row count (`rows`, one of the budgets)."""
+    """The problem built for one keep-apart row count (`rows`, one of the budgets): a
+    shared build with this robot's own solver chain (its failure holds)."""
 
     rows: int
     chain: SolverChain
@@ -279,6 +307,7 @@ class TrackingMpc:
         cell_rows: int = 0,
         row_budgets: Sequence[int] | None = None,
         prebuild: bool = True,
+        shared: SharedProblems[_SharedBuild] | None = None,
     ) -> None:
         """cell_rows: how many keep-apart rows each solve takes (0: none, the problem is
         exactly the one without keep-apart). row_budgets: the smaller row counts the
@@ -287,9 +316,12 @@ class TrackingMpc:
         a build); False builds each on its first use (offline runs, where start-up time
         counts and a solve's wall time does not: a build takes 0.1-1 s, a first compile
         with `mpc.solver.compile` tens of seconds), and each problem's IPOPT rescue on the
-        first sample it is needed (solver_chain.NlpsolStrategy)."""
+        first sample it is needed (solver_chain.NlpsolStrategy). shared: builds shared with
+        the other TrackingMpcs given the same (control/shared_problems.py: robots of one
+        process that solve one at a time); None builds this MPC's own."""
         _require_checked(model, settings, terminal)
         self._prebuild = prebuild
+        self._shared = shared
         if cell_rows < 0:
             raise ValueError(f"cell_rows must be >= 0, got {cell_rows}")
         self.cell_rows = int(cell_rows)
@@ -363,6 +395,26 @@ class TrackingMpc:
     # --- construction ------------------------------------------------------------------
 
     def _build(self, plugin: str, n_cell: int, skip_left: list[int] | None) -> _BuiltProblem:
+        """The problem for n_cell keep-apart rows (a budget) with a solver chain of this
+        robot's (skip_left: its failure holds, see _problem), the build found in the
+        shared builds when another robot made it."""
+        if self._shared is None:
+            built = self._make(plugin, n_cell)
+        else:
+            key = None if not shareable(self.settings) else problem_key(
+                self.model, self.settings, (self.region_A, self.region_b), self.terminal,
+                (plugin, self.cell_rows, n_cell, self._prebuild),
+            )
+            built = self._shared.get(key, lambda: self._make(plugin, n_cell))
+        self._dynamics = built.dynamics
+        self._lbw, self._ubw = built.lbw, built.ubw
+        self._nz, self._nv, self._n_theta = built.nz, built.nv, built.n_theta
+        chain = SolverChain(list(built.strategies), RESCUE_HOLD_SAMPLES, skip_left)
+        return _BuiltProblem(
+            built.rows, chain, built.lbg, built.ubg, built.cell_index, built.other_index
+        )
+
+    def _make(self, plugin: str, n_cell: int) -> _SharedBuild:
         """Stage-wise NLP: stage k holds z_k = (x_k, theta_k) and v_k = (u_k, its keep-apart
         slacks); theta is carried as a constant state (theta_{k+1} = theta_k) so that every
         constraint touches one stage or two neighbouring ones, the block structure
@@ -372,7 +424,6 @@ class TrackingMpc:
         model, settings, N = self.model, self.settings, self.horizon
         nx, nu = model.nx, model.nu
         F = model.discrete_dynamics(settings.sample_time, settings.substeps)
-        self._dynamics = F
         # The real-time step's curvature model (rti.dynamics_curvature): one RK4 step.
         F_one_step = model.discrete_dynamics(settings.sample_time, 1)
         n_theta = self._Mx.shape[1]
@@ -602,28 +653,28 @@ class TrackingMpc:
             "f": cost,
             "g": ca.vertcat(*g),
         }
-        self._lbw, self._ubw = np.concatenate(lbw), np.concatenate(ubw)
-        self._nz, self._nv = nz, nv
-        self._n_theta = n_theta
         lbg_all, ubg_all = np.concatenate(lbg), np.concatenate(ubg)
         cell_index = np.array(
             [np.arange(start, start + n_cell) for start in cell_starts], dtype=int
         ).reshape(len(cell_starts), n_cell)
         other = np.ones(len(lbg_all), dtype=bool)
         other[cell_index.reshape(-1)] = False
-        chain = build_solver_chain(
+        strategies = build_strategies(
             nlp,
             settings,
             [bool(v) for v in lbg_all == ubg_all],
             FastProblem(
                 terms, quadratic_rows, StageLayout(N, nz, nv, path_rows), ca.vertcat(*increments)
             ),
-            skip_left,
             rescue_on_first_use=not self._prebuild,
         )
-        return _BuiltProblem(
-            n_cell, chain, lbg_all, ubg_all, cell_index, np.nonzero(other)[0]
-        )
+        arrays = [
+            lbg_all, ubg_all, cell_index, np.nonzero(other)[0],
+            np.concatenate(lbw), np.concatenate(ubw),
+        ]
+        for array in arrays:
+            array.flags.writeable = False  # read by every robot that shares the build
+        return _SharedBuild(n_cell, tuple(strategies), *arrays, nz, nv, n_theta, F)
 
     def _problem(self, rows: int) -> _BuiltProblem:
         """The problem built for `rows` keep-apart rows (a budget), built now if not yet;

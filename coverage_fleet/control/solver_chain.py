@@ -112,6 +112,12 @@ RESCUE_HOLD_SAMPLES = 10
 #: warm-started in the primal only: casadi's interface passes it no multipliers (measured:
 #: the same iterations with the last solve's, none or random ones).
 FAST_ITERATION_CAP = 40
+#: QP solvers whose memory carries something from one call into the next that changes
+#: the answer: measured, two robots alternating on one OSQP real-time step got other
+#: answers than the same robots with a step each (with HPIPM bit for bit the same; the
+#: cause, presumably OSQP's adaptive step size kept in its workspace, not looked into).
+#: Their strategies are not shared between robots (`shareable`).
+QP_PLUGINS_WITH_MEMORY = ("osqp",)
 
 
 @dataclass(frozen=True)
@@ -320,6 +326,14 @@ def describe_path(settings: MpcSettings) -> str:
     return f"MPC solver path: {head}{rescue}; {code}"
 
 
+def shareable(settings: MpcSettings) -> bool:
+    """Whether the strategies `build_strategies` makes for these settings may serve several
+    robots (control/shared_problems.py): not with a QP solver that remembers its last
+    call (QP_PLUGINS_WITH_MEMORY) on the real-time path."""
+    qp = settings.solver.get("qp", DEFAULT_QP)
+    return not (configured_path(settings) == "real_time" and qp in QP_PLUGINS_WITH_MEMORY)
+
+
 def terminal_equality_width(plugin: str) -> float:
     """Half-width of the terminal equality band x_N - x_s in [-w, w] the plugin gets."""
     return FATROP_EQUALITY_TOLERANCE if plugin == "fatrop" else 0.0
@@ -344,11 +358,31 @@ def build_solver_chain(
     skip_left: list[int] | None = None,
     rescue_on_first_use: bool = False,
 ) -> SolverChain:
-    """The chain for an NLP in casadi's {x, p, f, g} form; `equality` flags the rows of g
-    that are equalities (fatrop's structure detection needs them); `fast` enables the
-    real-time path when the settings ask for it; `skip_left`: see SolverChain;
-    `rescue_on_first_use`: build the IPOPT rescue when a sample first needs it (offline
-    runs; a real-time controller must not wait 30-130 ms for it at a failure)."""
+    """The chain for an NLP in casadi's {x, p, f, g} form: `build_strategies` with a
+    chain's own failure holds (`skip_left`: see SolverChain)."""
+    strategies = build_strategies(nlp, settings, equality, fast, rescue_on_first_use)
+    return SolverChain(strategies, RESCUE_HOLD_SAMPLES, skip_left)
+
+
+def build_strategies(
+    nlp: dict[str, ca.SX],
+    settings: MpcSettings,
+    equality: Sequence[bool],
+    fast: FastProblem | None = None,
+    rescue_on_first_use: bool = False,
+) -> list[SolveStrategy]:
+    """The strategies of an NLP's chain, in order; `equality` flags the rows of g that are
+    equalities (fatrop's structure detection needs them); `fast` enables the real-time
+    path when the settings ask for it; `rescue_on_first_use`: build the IPOPT rescue when
+    a sample first needs it (offline runs; a real-time controller must not wait 30-130 ms
+    for it at a failure).
+
+    The strategies hold no state of the robot they solve for (that is the chain's failure
+    holds and the formulation's warm start), so the chains of several robots with the same
+    problem may share them, one call at a time (control/shared_problems.py): each
+    `attempt` copies what it returns out of its solver's bound arrays before it returns,
+    and the solvers' memories carry nothing from one call into the next that changes an
+    answer (test_control_shared_problems checks a fleet's logs bit for bit)."""
     plugin = configured_plugin(settings)
     budget = int(settings.solver.get("max_iter", DEFAULT_MAX_ITER))
     rescued = plugin != RESCUE_PLUGIN
@@ -384,4 +418,4 @@ def build_solver_chain(
         strategies.append(NlpsolStrategy(
             RESCUE_PLUGIN, build_rescue if rescue_on_first_use else build_rescue()
         ))
-    return SolverChain(strategies, RESCUE_HOLD_SAMPLES, skip_left)
+    return strategies

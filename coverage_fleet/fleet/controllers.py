@@ -27,16 +27,21 @@ import numpy as np
 from coverage_fleet.control.controller import RobotController
 from coverage_fleet.control.keep_apart import CellLayout, CellWindow, cell_layout, horizon_reach
 from coverage_fleet.control.sampling import Answer, SampledController
+from coverage_fleet.control.shared_problems import SharedProblems
 from coverage_fleet.control.terminal import terminal_for_vehicle
 from coverage_fleet.fleet.mission import Mission, RobotEntry
 from coverage_fleet.geometry.buffered_cells import FleetSnapshot
 
 
 def sampled_controller(
-    entry: RobotEntry, mission: Mission, sample_tolerance: float
+    entry: RobotEntry,
+    mission: Mission,
+    sample_tolerance: float,
+    shared: SharedProblems | None = None,
 ) -> SampledController:
     """The robot's tracking MPC with failure fallback, sampled at its vehicle's sample time;
-    with the mission's keep-apart cells when they are enabled."""
+    with the mission's keep-apart cells when they are enabled. shared: the MPC problems
+    built for the other controllers of this process (control/shared_problems.py)."""
     spec = entry.vehicle
     terminal, _ = terminal_for_vehicle(spec)
     layout = mission_cell_layout(mission)
@@ -44,7 +49,7 @@ def sampled_controller(
     # large fleets; no solve waits in real time here).
     controller = RobotController(
         spec.model, spec.mpc, mission.region.halfspaces(), terminal,
-        cell_rows=0 if layout is None else layout.rows, prebuild=False,
+        cell_rows=0 if layout is None else layout.rows, prebuild=False, shared=shared,
     )
     sampled = SampledController(
         controller,
@@ -107,17 +112,27 @@ class FleetControllers(Protocol):
 
 
 class LocalControllers:
-    """The controllers of `names` (default: the whole roster) in this process."""
+    """The controllers of `names` (default: the whole roster) in this process; robots with
+    the same problem (vehicle file, region, row budget) share its build
+    (control/shared_problems.py; they answer one at a time) unless share_builds is False."""
 
     def __init__(
-        self, mission: Mission, step: float, names: Sequence[str] | None = None
+        self,
+        mission: Mission,
+        step: float,
+        names: Sequence[str] | None = None,
+        share_builds: bool = True,
     ) -> None:
         entries = {e.name: e for e in mission.roster}
         chosen = list(entries) if names is None else list(names)
+        #: The MPC problems built for these controllers (None: each builds its own).
+        self.shared = SharedProblems() if share_builds else None
         # Ticks are exact multiples of the step: half a tick of tolerance makes "a sample is
         # due" the same as counting ticks.
         self.controllers = {
-            name: sampled_controller(entries[name], mission, sample_tolerance=step / 2)
+            name: sampled_controller(
+                entries[name], mission, sample_tolerance=step / 2, shared=self.shared
+            )
             for name in chosen
         }
 

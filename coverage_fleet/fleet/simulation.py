@@ -22,6 +22,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from coverage_fleet.fleet.controller_pool import ControllerPool
+from coverage_fleet.fleet.controllers import FleetControllers, LocalControllers
 from coverage_fleet.fleet.mission import Mission, simulation_step
 from coverage_fleet.fleet.plants import Pose
 from coverage_fleet.fleet.step import FleetStep, StageTimes
@@ -50,6 +51,7 @@ def simulate_mission(
     stop_at_rest: bool = True,
     workers: int = 1,
     stage_times: StageTimes | None = None,
+    share_builds: bool = True,
 ) -> TrialLog:
     """Run the mission offline in closed loop; returns the trial log.
 
@@ -62,7 +64,8 @@ def simulate_mission(
     workers > 1 runs the controllers on that many worker processes
     (fleet/controller_pool.py; the log is the same but for the measured solve times);
     1 keeps everything in this process. `stage_times`, if given, receives the wall time per
-    stage (fleet/step.StageTimes).
+    stage (fleet/step.StageTimes). share_builds=False makes every controller in this
+    process build its own MPC problems (control/shared_problems.py; the same log).
     """
     settings = mission.simulation
     seed = settings.seed if seed is None else int(seed)
@@ -70,8 +73,12 @@ def simulate_mission(
     step = simulation_step(mission.roster, settings)
     pool = ControllerPool(mission, step, workers) if workers > 1 else None
     try:
+        controllers = (
+            pool if pool is not None
+            else LocalControllers(mission, step, share_builds=share_builds)
+        )
         return _run(mission, seed, duration, step, initial_poses, on_step, stop_at_rest,
-                    pool, stage_times)
+                    controllers, stage_times)
     finally:
         if pool is not None:
             pool.close()
@@ -85,10 +92,10 @@ def _run(
     initial_poses: Mapping[str, Pose | OdometryValues] | None,
     on_step: Callable[[StepInfo], None] | None,
     stop_at_rest: bool,
-    pool: ControllerPool | None,
+    controllers: FleetControllers,
     stage_times: StageTimes | None,
 ) -> TrialLog:
-    fleet = FleetStep(mission, step, seed, initial_poses, controllers=pool)
+    fleet = FleetStep(mission, step, seed, initial_poses, controllers=controllers)
     if stage_times is not None:
         fleet.times = stage_times
     assembler = TrialAssembler(mission, seed)
@@ -117,9 +124,9 @@ def _run(
                 assembler.add(ClearanceRecord(clearance.time, clearance.clearance,
                                               clearance.robots))
 
-    if pool is not None:
-        fleet.times.worker_busy = tuple(pool.busy_seconds)
-        fleet.times.worker_critical = pool.critical_seconds
+    if isinstance(controllers, ControllerPool):
+        fleet.times.worker_busy = tuple(controllers.busy_seconds)
+        fleet.times.worker_critical = controllers.critical_seconds
     finishing = wallclock.perf_counter()
     log = assembler.finish(
         wall_time=finishing - started, duration=duration, step=step
