@@ -21,7 +21,10 @@ for the method spawning the workers and their imports; paid once per run, outsid
 loop). For the method a second line splits its `solves` share: each worker's busy time
 (what it measured answering, fleet/controller_pool.py), the busiest worker's per tick (the
 least the answers could take with this split of robots) and the rest (the other workers'
-idle time, messages, wake-ups); the last two sum to the `solves` share. Under each run,
+idle time, messages, wake-ups); the last two sum to the `solves` share; "on a core" is
+each worker's CPU time over its busy time (below 100 %: it waited for a core, as on a
+machine shared with other work; its solve times include the wait; for the baseline the
+same over its whole run, start-up included). Under each run,
 its solves: mean and median solve time (the loop pays the mean) and the share of samples
 the real-time iteration answered alone against those handed to a full solve. The partition's
 compiled loops are loaded once before any timing. Then the ratios
@@ -159,9 +162,11 @@ def describe_workers(log: TrialLog, times: StageTimes, setup: float) -> str:
     worker's per tick (the least the answers could take), and the rest (idle workers
     waiting for the busiest, messages, wake-ups), as shares of the tick loop."""
     busy = "  ".join(f"{b / times.total:5.1%}" for b in times.worker_busy)
+    on_cpu = "  ".join(f"{c / max(b, 1e-12):4.0%}" for c, b in
+                       zip(times.worker_cpu, times.worker_busy, strict=True))
     rest = times.solves - times.worker_critical
-    return (f"  {'':<10} workers busy {busy} of the loop; busiest per tick "
-            f"{times.worker_critical / times.total:5.1%}, waits and messages "
+    return (f"  {'':<10} workers busy {busy} of the loop (on a core {on_cpu} of it); busiest "
+            f"per tick {times.worker_critical / times.total:5.1%}, waits and messages "
             f"{rest / times.total:5.1%}")
 
 
@@ -197,8 +202,10 @@ def main() -> None:
             duration = DURATIONS.get(robots, (5.0, 1.0))[column] or 1.0
             mission = survey_mission(robots, duration, Path(folder))
             print(f"{robots} robots ({', '.join(VEHICLES)} in turn), {duration:g} s simulated")
+            cpu_started, wall_started = time.process_time(), time.perf_counter()
             serial = run_once(mission, 1)
-            print(describe("1 process", *serial))
+            on_core = (time.process_time() - cpu_started) / (time.perf_counter() - wall_started)
+            print(describe("1 process", *serial) + f"  on a core {on_core:.0%}")
             print(describe_solves(serial[0]))
             parallel = run_once(mission, args.workers)
             print(describe(f"{args.workers} workers", *parallel))

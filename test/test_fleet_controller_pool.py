@@ -78,6 +78,7 @@ def test_workers_write_the_same_log_as_one_process(mixed_mission: Mission) -> No
     # Each worker's busy time lies within the ticks' waits for its answers.
     assert serial_times.worker_busy == () and len(pooled_times.worker_busy) == 2
     assert 0 < max(pooled_times.worker_busy) <= pooled_times.worker_critical
+    assert len(pooled_times.worker_cpu) == 2 and min(pooled_times.worker_cpu) > 0
     assert pooled_times.worker_critical <= pooled_times.solves
 
 

@@ -99,6 +99,9 @@ class ControllerPool:
         #: could have taken on these workers (the rest of the wait is the other workers'
         #: idle time, messages and wake-ups).
         self.critical_seconds = 0.0
+        #: CPU seconds each worker used within its busy seconds (what it measured itself
+        #: with time.process_time): the rest of its busy time it waited for a core.
+        self.cpu_seconds = [0.0] * len(self.shares)
         try:
             for share in self.shares:
                 self._start_worker()
@@ -170,9 +173,10 @@ class ControllerPool:
         answers: dict[str, Answer] = {}
         busiest = 0.0
         for index in range(len(self.shares)):
-            share_answers, busy = self._receive(index, None, "a tick")
+            share_answers, busy, cpu = self._receive(index, None, "a tick")
             answers.update(share_answers)
             self.busy_seconds[index] += busy
+            self.cpu_seconds[index] += cpu
             busiest = max(busiest, busy)
         self.critical_seconds += busiest
         return {name: answers[name] for name in states}
@@ -219,7 +223,7 @@ def serve(connection: Connection) -> None:
         if message[0] != "answer":
             return
         _, state_time, targets, snapshots, batch = message
-        started = time.perf_counter()
+        started, cpu_started = time.perf_counter(), time.process_time()
         try:
             for name, key, target, distance in targets:
                 controllers.set_target(name, key, target, distance)
@@ -229,7 +233,8 @@ def serve(connection: Connection) -> None:
         except Exception:
             connection.send(("error", traceback.format_exc()))
             continue
-        connection.send(("answers", (answers, time.perf_counter() - started)))
+        busy = time.perf_counter() - started
+        connection.send(("answers", (answers, busy, time.process_time() - cpu_started)))
 
 
 if __name__ == "__main__":

@@ -127,6 +127,7 @@ def _run(
     if isinstance(controllers, ControllerPool):
         fleet.times.worker_busy = tuple(controllers.busy_seconds)
         fleet.times.worker_critical = controllers.critical_seconds
+        fleet.times.worker_cpu = tuple(controllers.cpu_seconds)
     finishing = wallclock.perf_counter()
     log = assembler.finish(
         wall_time=finishing - started, duration=duration, step=step

@@ -80,6 +80,10 @@ class StageTimes:
     #: `solves`; the rest of `solves` is idle workers, messages and wake-ups).
     worker_busy: tuple[float, ...] = ()
     worker_critical: float = 0.0
+    #: CPU seconds each worker process used within its busy time (time.process_time): less
+    #: than `worker_busy` by the time the worker waited for a core (other processes on a
+    #: shared machine), which the measured solve times include.
+    worker_cpu: tuple[float, ...] = ()
 
     STAGES: ClassVar[tuple[str, ...]] = ("partition", "gate", "solves", "plants", "logging")
 
