@@ -237,7 +237,7 @@ def test_padding_rows_left_out_give_the_same_closed_loop() -> None:
     single = TrackingMpc(
         spec.model, spec.mpc, REGION.halfspaces(), terminal, cell_rows=rows, row_budgets=()
     )
-    assert budgeted.row_budgets == (2, 4, 8, 12) and single.row_budgets == (12,)
+    assert budgeted.row_budgets == (0, 2, 4, 8, 12) and single.row_budgets == (12,)
     ahead = [((1.0, 0.0), 2.0), ((1.0, 0.1), 2.05)]  # a neighbour ahead, two snapshots
     far = [((0.0, 1.0), 5.0), ((0.0, -1.0), 5.0), ((-1.0, 0.0), 5.0)]
     schedule = [[]] * 5 + [ahead] * 15 + [ahead + far] * 10 + [ahead[:1]] * 10
@@ -267,7 +267,7 @@ def test_padding_rows_left_out_give_the_same_closed_loop() -> None:
         assert np.max(np.abs(a.predicted_states - b.predicted_states)) < 1e-4
         assert abs(a.cell_violation - b.cell_violation) < 1e-5
         x = np.array(F(x, a.first_input)).ravel()
-    assert budgets == [2] * 5 + [2] * 15 + [8] * 10 + [2] * 10
+    assert budgets == [0] * 5 + [2] * 15 + [8] * 10 + [2] * 10
     # The neighbour's row held (soft row: the slack stays at micrometres here).
     assert x[0] <= 2.0 - budgeted.cell_pad + 1e-3
 

@@ -166,9 +166,12 @@ PATH_SLACK_UNIT = 1e-3
 #: about 1.15x. Infinite bounds on the padding rows instead do not help: casadi's HPIPM
 #: interface clips them to 1e8 (the rows stay), and fatrop, given rows free on both sides,
 #: failed 8 times in 120 samples against 2 (its rescue then answered most samples). Each
-#: budget is one more problem to build (and to compile with `mpc.solver.compile`); a budget
-#: of 0 saved little more than one of 2.
-CELL_ROW_BUDGETS = (2, 4, 8)
+#: budget is one more problem to build (and to compile with `mpc.solver.compile`). A budget
+#: of 0 (no row at all, for a robot with no neighbour within reach) saved little on the full
+#: solve but much on the real-time path: in the orchard fleet's own loop (mpc_benchmark
+#: --keep-apart --fleet, 900 rover solves, median 0 real rows) the rover's median went from
+#: 1.46x to 1.23x its time without keep-apart.
+CELL_ROW_BUDGETS = (0, 2, 4, 8)
 #: Offset given to the padding rows a budget's problem is filled up with (metres above the
 #: pad: 0 . p - sigma <= offset - pad never binds, see TrackingMpc._cell_instance).
 PADDING_ROW_OFFSET = 1.0
@@ -1067,7 +1070,8 @@ class TrackingMpc:
         steady_violation = 0.0
         if steady_rows is not None:
             rows, bounds = steady_rows
-            steady_violation = max(0.0, float(np.max(rows @ steady.position - bounds)))
+            gaps = rows @ steady.position - bounds  # no rows in budget 0
+            steady_violation = max(0.0, float(np.max(gaps, initial=0.0)))
         return MpcSolution(
             first_input=inputs[0].copy(),
             predicted_states=states,
