@@ -340,6 +340,20 @@ def test_failed_fast_solve_is_rescued_by_ipopt(prebuild):
     np.testing.assert_array_equal(again.first_input, solution.first_input)
 
 
+def test_offline_mpc_builds_its_full_solve_when_a_sample_first_needs_it():
+    """prebuild=False (offline): the real-time path's full solve is built at the first
+    sample that needs it, here the cold start (no shifted plan for the real-time step);
+    that it then answers as one built up front: test_failed_fast_solve_is_rescued_by_ipopt."""
+    model, settings = _double_integrator()
+    mpc = TrackingMpc(model, settings, REGION, prebuild=False)
+    rti, full, rescue = mpc._problems[0].chain.strategies
+    assert (rti.name, full.name, rescue.name) == ("rti", "fatrop", "ipopt")
+    assert full._solver is None and rescue._solver is None
+    solution = mpc.solve(_start_state(model, (3.0, 3.0)), np.array([6.0, 4.0]))
+    assert solution.success and solution.status == "fatrop: Success"
+    assert full._solver is not None and rescue._solver is None
+
+
 def test_fatrop_status_names_its_own_flag_not_casadis_success_bit():
     """casadi's return_status for fatrop is 1 for every unsuccessful end; the status must
     name the flag itself. A tolerance no iterate meets and an acceptable-point test every

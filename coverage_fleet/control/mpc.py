@@ -318,10 +318,11 @@ class TrackingMpc:
         prebuild: build every budget's problem now (a robot's solves then never wait for
         a build); False builds each on its first use (offline runs, where start-up time
         counts and a solve's wall time does not: a build takes 0.1-1 s, a first compile
-        with `mpc.solver.compile` tens of seconds), and each problem's IPOPT rescue on the
-        first sample it is needed (solver_chain.NlpsolStrategy). shared: builds shared with
-        the other TrackingMpcs given the same (control/shared_problems.py: robots of one
-        process that solve one at a time); None builds this MPC's own."""
+        with `mpc.solver.compile` tens of seconds), and each problem's full solve and IPOPT
+        rescue on the first sample that needs them (solver_chain.build_strategies).
+        shared: builds shared with the other TrackingMpcs given the same
+        (control/shared_problems.py: robots of one process that solve one at a time);
+        None builds this MPC's own."""
         _require_checked(model, settings, terminal)
         self._prebuild = prebuild
         self._shared = shared
@@ -669,7 +670,7 @@ class TrackingMpc:
             FastProblem(
                 terms, quadratic_rows, StageLayout(N, nz, nv, path_rows), ca.vertcat(*increments)
             ),
-            rescue_on_first_use=not self._prebuild,
+            full_solves_on_first_use=not self._prebuild,
         )
         arrays = [
             lbg_all, ubg_all, cell_index, np.nonzero(other)[0],

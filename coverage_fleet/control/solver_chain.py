@@ -196,10 +196,10 @@ class NlpsolStrategy:
     needs_shifted_plan = False
 
     def __init__(self, name: str, solver: ca.Function | Callable[[], ca.Function]) -> None:
-        """solver: the nlpsol, or a function that builds it at the first attempt (the
-        rescue answers few samples, e.g. 25 of 2816 in a 16-robot fleet run, and building
-        it was about 30 % of building an MPC problem, which a fleet does again for every
-        keep-apart row budget a robot reaches)."""
+        """solver: the nlpsol, or a function that builds it at the first attempt (offline:
+        the rescue answers few samples, e.g. 25 of 2816 in a 16-robot fleet run, and
+        building it was about 30 % of building an MPC problem; on the real-time path many
+        problems never need their full solve either: build_strategies)."""
         self.name = name
         self._build = None if isinstance(solver, ca.Function) else solver
         self._solver = BufferedFunction(solver) if self._build is None else None
@@ -356,11 +356,11 @@ def build_solver_chain(
     equality: Sequence[bool],
     fast: FastProblem | None = None,
     skip_left: list[int] | None = None,
-    rescue_on_first_use: bool = False,
+    full_solves_on_first_use: bool = False,
 ) -> SolverChain:
     """The chain for an NLP in casadi's {x, p, f, g} form: `build_strategies` with a
     chain's own failure holds (`skip_left`: see SolverChain)."""
-    strategies = build_strategies(nlp, settings, equality, fast, rescue_on_first_use)
+    strategies = build_strategies(nlp, settings, equality, fast, full_solves_on_first_use)
     return SolverChain(strategies, RESCUE_HOLD_SAMPLES, skip_left)
 
 
@@ -369,13 +369,16 @@ def build_strategies(
     settings: MpcSettings,
     equality: Sequence[bool],
     fast: FastProblem | None = None,
-    rescue_on_first_use: bool = False,
+    full_solves_on_first_use: bool = False,
 ) -> list[SolveStrategy]:
     """The strategies of an NLP's chain, in order; `equality` flags the rows of g that are
     equalities (fatrop's structure detection needs them); `fast` enables the real-time
-    path when the settings ask for it; `rescue_on_first_use`: build the IPOPT rescue when
-    a sample first needs it (offline runs; a real-time controller must not wait 30-130 ms
-    for it at a failure).
+    path when the settings ask for it; `full_solves_on_first_use`: build the full solve
+    and the IPOPT rescue when a sample first needs them (offline runs; a real-time
+    controller must not wait 30-130 ms for one at a failure). On the real-time path most
+    problems never need their full solve: in benchmarks/fleet_sim_benchmark.py's 16-robot
+    run (20 s) 5 of 15 problems (vehicle kinds times keep-apart row budgets) called it,
+    and building fatrop's solver is over half of building a problem.
 
     The strategies hold no state of the robot they solve for (that is the chain's failure
     holds and the formulation's warm start), so the chains of several robots with the same
@@ -393,11 +396,17 @@ def build_strategies(
         settings.solver.get("options", {}),
     )
     name = f"tracking_mpc_{plugin}"
-    primary = ca.nlpsol(name, plugin, nlp, options)
     compiled = compiles(settings)
-    if compiled:
-        primary = ca.nlpsol(name, plugin, str(compiled_library(primary)), options)
-    strategies: list[SolveStrategy] = [NlpsolStrategy(plugin, primary)]
+
+    def build_primary() -> ca.Function:
+        primary = ca.nlpsol(name, plugin, nlp, options)
+        if compiled:
+            primary = ca.nlpsol(name, plugin, str(compiled_library(primary)), options)
+        return primary
+
+    strategies: list[SolveStrategy] = [
+        NlpsolStrategy(plugin, build_primary if full_solves_on_first_use else build_primary())
+    ]
     if configured_path(settings) == "real_time":
         if fast is None:
             raise ValueError("the real-time path needs the cost terms and the stage layout")
@@ -416,6 +425,6 @@ def build_strategies(
             return ca.nlpsol(f"tracking_mpc_{RESCUE_PLUGIN}", RESCUE_PLUGIN, nlp, rescue_options)
 
         strategies.append(NlpsolStrategy(
-            RESCUE_PLUGIN, build_rescue if rescue_on_first_use else build_rescue()
+            RESCUE_PLUGIN, build_rescue if full_solves_on_first_use else build_rescue()
         ))
     return strategies
