@@ -16,7 +16,9 @@ answers bit for bit, whichever robot called the shared solvers last:
   exactly the answers of the two robots built apart, and each robot keeps its own
   failure hold;
 - a mixed fleet with two or more robots of each kind writes the same log files with and
-  without sharing, while building fewer problems.
+  without sharing, while building fewer problems, and a later run of the same mission in
+  the same thread builds none;
+- a capacity keeps the builds used last (least recently used dropped first).
 """
 
 from __future__ import annotations
@@ -31,7 +33,7 @@ import yaml
 from support_control import ORCHARD_BLOCK, DoubleIntegratorModel, polygon_halfspaces
 
 from coverage_fleet.control.mpc import TrackingMpc
-from coverage_fleet.control.shared_problems import SharedProblems
+from coverage_fleet.control.shared_problems import SharedProblems, thread_builds
 from coverage_fleet.control.terminal import compute_terminal_ingredients
 from coverage_fleet.fleet.controllers import LocalControllers
 from coverage_fleet.fleet.mission import Mission, mission_from_mapping, simulation_step
@@ -178,8 +180,21 @@ def test_fleet_log_is_the_same_with_and_without_shared_builds(paired_mission: Mi
     apart = simulate_mission(paired_mission, stop_at_rest=False, share_builds=False)
     assert all(np.any(robot.controller_ran) for robot in shared.robots.values())
     assert log_texts_without_wall_clock(shared) == log_texts_without_wall_clock(apart)
-    # Two vehicle kinds: two problems built at the start, not one per robot.
+    # Two vehicle kinds: two problems built at the start, not one per robot ...
     step = simulation_step(paired_mission.roster, paired_mission.simulation)
-    controllers = LocalControllers(paired_mission, step)
-    assert controllers.shared is not None and controllers.shared.builds == 2
+    fresh = SharedProblems()
+    assert LocalControllers(paired_mission, step, builds=fresh).shared is fresh
+    assert fresh.builds == 2
+    # ... and none by a later run in this thread (the run above built them).
+    made = thread_builds().builds
+    assert LocalControllers(paired_mission, step).shared is thread_builds()
+    assert thread_builds().builds == made
     assert LocalControllers(paired_mission, step, share_builds=False).shared is None
+
+
+def test_builds_used_last_are_kept():
+    shared = SharedProblems(capacity=2)
+    for key in (b"a", b"b", b"a", b"c", b"a", b"b"):
+        shared.get(key, lambda key=key: key.decode())
+    # a, b built; a found; c built, b dropped (a used later); a found; b built again.
+    assert shared.builds == 4 and len(shared) == 2

@@ -16,11 +16,19 @@ failure holds, its warm start and multipliers (mpc.TrackingMpc). The robots of o
 `SharedProblems` must solve one at a time (one thread): the strategies' bound arrays are
 written by every call. Sharing changes no answer: test_control_shared_problems compares a
 fleet's logs with and without it bit for bit.
+
+`thread_builds()` is the one an offline fleet uses by default: kept for the life of the
+thread, so the runs of a study (seeds of one mission, fleet sizes and mixes in one region)
+build each problem once, not once per run; one per thread, since shared solvers must be
+called one at a time (a Dask worker may run tasks on several threads). It keeps the
+THREAD_BUILDS_CAPACITY builds used last.
 """
 
 from __future__ import annotations
 
 import pickle
+import threading
+from collections import OrderedDict
 from collections.abc import Callable
 from typing import Any, Generic, TypeVar
 
@@ -31,6 +39,11 @@ from coverage_fleet.vehicles.base import VehicleModel
 from coverage_fleet.vehicles.settings import MpcSettings
 
 Built = TypeVar("Built")
+
+#: Builds `thread_builds()` keeps (the ones used last): a fleet of the four shipped vehicle
+#: kinds with keep-apart needs 20 (kinds times row budgets); one build holds 2-4 MB
+#: (measured: 51 MB for 20, the full solves not yet built), so at most about 150 MB.
+THREAD_BUILDS_CAPACITY = 40
 
 
 def problem_key(
@@ -65,10 +78,14 @@ def problem_key(
 
 
 class SharedProblems(Generic[Built]):
-    """Builds by key, made on first request (one thread at a time: module docstring)."""
+    """Builds by key, made on first request (one thread at a time: module docstring);
+    with a capacity, the builds used last are kept (a robot keeps its own builds alive)."""
 
-    def __init__(self) -> None:
-        self._builds: dict[bytes, Built] = {}
+    def __init__(self, capacity: int | None = None) -> None:
+        if capacity is not None and capacity < 1:
+            raise ValueError(f"capacity must be at least 1, got {capacity}")
+        self.capacity = capacity
+        self._builds: OrderedDict[bytes, Built] = OrderedDict()
         #: How many builds were made (not found): the tests' and benchmarks' count.
         self.builds = 0
 
@@ -82,7 +99,23 @@ class SharedProblems(Generic[Built]):
             found = build()
             self.builds += 1
             self._builds[key] = found
+            if self.capacity is not None and len(self._builds) > self.capacity:
+                self._builds.popitem(last=False)
+        else:
+            self._builds.move_to_end(key)
         return found
 
     def __len__(self) -> int:
         return len(self._builds)
+
+
+_per_thread = threading.local()
+
+
+def thread_builds() -> SharedProblems:
+    """This thread's builds (module docstring), made on first use."""
+    builds = getattr(_per_thread, "builds", None)
+    if builds is None:
+        builds = SharedProblems(THREAD_BUILDS_CAPACITY)
+        _per_thread.builds = builds
+    return builds

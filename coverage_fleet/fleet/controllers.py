@@ -27,7 +27,7 @@ import numpy as np
 from coverage_fleet.control.controller import RobotController
 from coverage_fleet.control.keep_apart import CellLayout, CellWindow, cell_layout, horizon_reach
 from coverage_fleet.control.sampling import Answer, SampledController
-from coverage_fleet.control.shared_problems import SharedProblems
+from coverage_fleet.control.shared_problems import SharedProblems, thread_builds
 from coverage_fleet.control.terminal import terminal_for_vehicle
 from coverage_fleet.fleet.mission import Mission, RobotEntry
 from coverage_fleet.geometry.buffered_cells import FleetSnapshot
@@ -114,7 +114,8 @@ class FleetControllers(Protocol):
 class LocalControllers:
     """The controllers of `names` (default: the whole roster) in this process; robots with
     the same problem (vehicle file, region, row budget) share its build
-    (control/shared_problems.py; they answer one at a time) unless share_builds is False."""
+    (control/shared_problems.py; they answer one at a time) unless share_builds is False:
+    with `builds`, or by default with the other runs of this thread (thread_builds)."""
 
     def __init__(
         self,
@@ -122,11 +123,14 @@ class LocalControllers:
         step: float,
         names: Sequence[str] | None = None,
         share_builds: bool = True,
+        builds: SharedProblems | None = None,
     ) -> None:
         entries = {e.name: e for e in mission.roster}
         chosen = list(entries) if names is None else list(names)
         #: The MPC problems built for these controllers (None: each builds its own).
-        self.shared = SharedProblems() if share_builds else None
+        self.shared = None if not share_builds else (
+            builds if builds is not None else thread_builds()
+        )
         # Ticks are exact multiples of the step: half a tick of tolerance makes "a sample is
         # due" the same as counting ticks.
         self.controllers = {
