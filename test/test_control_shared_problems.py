@@ -23,27 +23,23 @@ answers bit for bit, whichever robot called the shared solvers last:
 
 from __future__ import annotations
 
-import copy
 import dataclasses
-from pathlib import Path
 
 import numpy as np
 import pytest
-import yaml
 from support_control import ORCHARD_BLOCK, DoubleIntegratorModel, polygon_halfspaces
+from support_missions import short_quick_mission
 
 from coverage_fleet.control.mpc import TrackingMpc
 from coverage_fleet.control.shared_problems import SharedProblems, thread_builds
 from coverage_fleet.control.terminal import compute_terminal_ingredients
 from coverage_fleet.fleet.controllers import LocalControllers
-from coverage_fleet.fleet.mission import Mission, mission_from_mapping, simulation_step
+from coverage_fleet.fleet.mission import Mission, simulation_step
 from coverage_fleet.fleet.simulation import simulate_mission
 from coverage_fleet.fleet.trial import log_texts_without_wall_clock
 from coverage_fleet.vehicles.settings import MpcSettings
 
 REGION = polygon_halfspaces(ORCHARD_BLOCK)
-MISSIONS = Path(__file__).resolve().parents[1] / "config" / "missions"
-QUICK = MISSIONS / "solar_row_quick_check.yaml"
 #: Two or more robots of each kind, spaced wider than two footprints (keep-apart on).
 PAIRED_ROSTER = [
     {"name": "rover_a", "vehicle": "differential_drive", "initial_pose": [1.0, 1.0, 0.0]},
@@ -166,12 +162,7 @@ def test_shared_rescue_answers_two_robots_as_apart():
 
 @pytest.fixture(scope="module")
 def paired_mission(tmp_path_factory: pytest.TempPathFactory) -> Mission:
-    raw = yaml.safe_load(QUICK.read_text())
-    raw["roster"] = copy.deepcopy(PAIRED_ROSTER)
-    raw["simulation"].update(duration=1.6, process_noise_std=0.002,
-                             measurement_noise_std=0.003)
-    raw["settle"]["speed"] = 0.2  # a few times what noise alone moves (the loader's rule)
-    return mission_from_mapping(raw, tmp_path_factory.mktemp("shared") / "paired.yaml")
+    return short_quick_mission(PAIRED_ROSTER, tmp_path_factory.mktemp("shared") / "paired.yaml")
 
 
 def test_fleet_log_is_the_same_with_and_without_shared_builds(paired_mission: Mission):

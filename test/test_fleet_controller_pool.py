@@ -19,18 +19,17 @@ What is checked, and against what:
 
 from __future__ import annotations
 
-import copy
 import itertools
 from dataclasses import replace
 from pathlib import Path
 
 import numpy as np
 import pytest
-import yaml
+from support_missions import short_quick_mission
 
 from coverage_fleet.cli.main import main
 from coverage_fleet.fleet.controllers import assign_robots, solve_weight
-from coverage_fleet.fleet.mission import Mission, mission_from_mapping, simulation_step
+from coverage_fleet.fleet.mission import Mission, simulation_step
 from coverage_fleet.fleet.simulation import simulate_mission
 from coverage_fleet.fleet.step import StageTimes
 from coverage_fleet.fleet.trial import log_texts_without_wall_clock
@@ -48,12 +47,7 @@ MIXED_ROSTER = [
 
 @pytest.fixture(scope="module")
 def mixed_mission(tmp_path_factory: pytest.TempPathFactory) -> Mission:
-    raw = yaml.safe_load(QUICK.read_text())
-    raw["roster"] = copy.deepcopy(MIXED_ROSTER)
-    raw["simulation"].update(duration=1.6, process_noise_std=0.002,
-                             measurement_noise_std=0.003)
-    raw["settle"]["speed"] = 0.2  # a few times what noise alone moves (the loader's rule)
-    return mission_from_mapping(raw, tmp_path_factory.mktemp("pool") / "mixed.yaml")
+    return short_quick_mission(MIXED_ROSTER, tmp_path_factory.mktemp("pool") / "mixed.yaml")
 
 
 def test_workers_write_the_same_log_as_one_process(mixed_mission: Mission) -> None:
