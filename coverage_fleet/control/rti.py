@@ -15,21 +15,21 @@ linearised model of a vehicle that steers lets a heading turn move the position 
 for free (first order in the turn), while the true motion also loses ground (second order:
 the chord of an arc). Far from the target the offset cost pulls hard enough that the QP
 turned headings and the steady state by up to 3 rad in one step: on the benchmark loop
-(benchmarks/mpc_benchmark.py) 40 of 120 rover samples still had dynamics defects of
-0.4-0.6 m after three steps, and they and 32 of 120 car samples went to the full solve.
-The Hessian of lam' g over the dynamics rows holds that loss of ground
-(dynamics_curvature evaluates it on one RK4 step per sample). Only its diagonal
-is kept (clipped at zero, so the QP stays convex and keeps the stage structure), and
-doubled: with the diagonal alone the iteration overshot in the coupled heading / yaw-rate
-direction and oscillated with growing amplitude (the rover's steady heading 0.56, 0.53,
-0.59, 0.50 rad on successive samples, the violation growing 1.4x per sample until a
-sample needed a second step); the Gershgorin bound (row sums of |H|, an upper bound of the
-curvature) damped the vessel's steps so much that 74 % of its samples were rejected. With
-twice the diagonal, 116 of 120 rover and 115 of 120 car samples pass after one step, and
-the closed-loop cost matches the full solve's (mpc_benchmark prints both). The Hessian of
-a QP step sets its length, not where the iteration stops (a zero step solves the NLP's KKT
-conditions whatever the Hessian), so the real-time path now follows the full solve's own
-optimum more closely, local ones included (README: the orchard rover that backs).
+(benchmarks/mpc_benchmark.py) 40 of 120 rover samples still had dynamics defects of 0.4-0.6
+m after three steps, and they and 32 of 120 car samples went to the full solve. The Hessian
+of lam' g over the dynamics rows holds that loss of ground (dynamics_curvature evaluates it
+on one RK4 step per sample). Only its diagonal is kept (clipped at zero, so the QP stays
+convex and keeps the stage structure), and doubled: with the diagonal alone the iteration
+overshot in the coupled heading / yaw-rate direction and oscillated with growing amplitude
+(the rover's steady heading 0.56, 0.53, 0.59, 0.50 rad on successive samples, the violation
+growing 1.4x per sample until a sample needed a second step); the Gershgorin bound (row
+sums of |H|, an upper bound of the curvature) damped the vessel's steps so much that 74 %
+of its samples were rejected. With twice the diagonal, 116 of 120 rover and 115 of 120 car
+samples pass after one step, and the closed-loop cost matches the full solve's
+(mpc_benchmark prints both). The Hessian of a QP step sets its length, not where the
+iteration stops (a zero step solves the NLP's KKT conditions whatever the Hessian), so the
+real-time path now follows the full solve's own optimum more closely, local ones included
+(README: the orchard rover that backs).
 
 Acceptance test on the new iterate w+ (the step is applied only when it passes; otherwise
 up to MAX_STEPS - 1 more steps are taken from it, and when none passes the chain's full
@@ -174,16 +174,14 @@ def gauss_newton_hessian(
 CURVATURE_FACTOR = 2.0
 
 
-def dynamics_curvature(
-    increments: ca.SX, lam_dynamics: ca.SX, w: ca.SX
-) -> ca.SX:
+def dynamics_curvature(increments: ca.SX, lam_dynamics: ca.SX, w: ca.SX) -> ca.SX:
     """CURVATURE_FACTOR diag(max(0, diag(d^2 (-lam' increments) / dw^2))), a diagonal
-    matrix: the convex part of the dynamics rows' curvature (rows z_{k+1} - x_k -
-    increment_k), weighted by their multipliers `lam_dynamics`.
+    matrix: the convex part of the dynamics rows' curvature, weighted by their multipliers
+    `lam_dynamics` (rows z_{k+1} - F(z_k, u_k), with F taken as x_k + increment_k).
 
     The increments are one RK4 step over the sample, not the substepped map the rows use:
     an approximation of an approximation (the diagonal, doubled), it gave the same
-    acceptance on mpc_benchmark's loops for all four models (1-6 of 120 samples needing
+    acceptance on mpc_benchmark's loops for all four models (0-6 of 120 samples needing
     more than one step) at half the evaluation cost of the car's QP data (220 -> 108 us,
     casadi's virtual machine)."""
     lagrangian = -ca.dot(lam_dynamics, increments)
@@ -235,9 +233,7 @@ class RealTimeIterationStrategy:
             [(ca.DM(1.0), t) for t in terms]
             + [(ca.fmax(lam_g[q.row], 0), q.term) for q in quadratic_rows],
             w,
-        ) + dynamics_curvature(
-            dynamics_increments, lam_g[dynamics_rows.tolist()], w
-        )
+        ) + dynamics_curvature(dynamics_increments, lam_g[dynamics_rows.tolist()], w)
         qp_data = ca.Function(
             "rti_qp_data",
             [w, p, lam_g],
