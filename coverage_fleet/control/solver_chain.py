@@ -350,20 +350,6 @@ def _plugin_options(
     return options
 
 
-def build_solver_chain(
-    nlp: dict[str, ca.SX],
-    settings: MpcSettings,
-    equality: Sequence[bool],
-    fast: FastProblem | None = None,
-    skip_left: list[int] | None = None,
-    full_solves_on_first_use: bool = False,
-) -> SolverChain:
-    """The chain for an NLP in casadi's {x, p, f, g} form: `build_strategies` with a
-    chain's own failure holds (`skip_left`: see SolverChain)."""
-    strategies = build_strategies(nlp, settings, equality, fast, full_solves_on_first_use)
-    return SolverChain(strategies, RESCUE_HOLD_SAMPLES, skip_left)
-
-
 def build_strategies(
     nlp: dict[str, ca.SX],
     settings: MpcSettings,
