@@ -272,6 +272,67 @@ def test_padding_rows_left_out_give_the_same_closed_loop() -> None:
     assert x[0] <= 2.0 - budgeted.cell_pad + 1e-3
 
 
+def test_a_robot_with_no_row_within_reach_solves_the_problem_without_keep_apart() -> None:
+    """Budget 0 (no row can bind) leaves the slacks out: with no row to relax, each slack
+    appears only in its own cost term, whose minimum over sigma >= 0 is at 0 (the exact
+    penalty's price is positive: Kerrigan & Maciejowski, UKACC Control 2000), so the
+    problem without them has the same optimum. For the rover (terminal equality, whose
+    terminal set the keep-apart MPC does not shrink) it is then the very problem of the
+    MPC without keep-apart: the same variables, and on the shipped real-time path the same
+    closed loop, sample for sample."""
+    spec = spec_for("differential_drive")
+    terminal, _ = terminal_for_vehicle(spec)
+    plain = TrackingMpc(spec.model, spec.mpc, REGION.halfspaces(), terminal)
+    kept_apart = TrackingMpc(
+        spec.model, spec.mpc, REGION.halfspaces(), terminal, cell_rows=ROWS, prebuild=False
+    )
+    # Every strategy of budget 0 solves over the plain MPC's variables only.
+    for strategy in kept_apart._problem(0).chain.strategies:
+        assert len(strategy.kept) == len(plain._lbw) < len(kept_apart._lbw)
+    # Padding rows only: what keep_apart.CellWindow gives when every row is out of reach.
+    far = padded([])
+    x = np.zeros(spec.model.nx)
+    F = spec.model.discrete_dynamics(spec.mpc.sample_time, spec.mpc.substeps)
+    for _ in range(30):
+        a, b = kept_apart.solve(x, (3.0, 1.0), far), plain.solve(x, (3.0, 1.0))
+        assert a.success and b.success and a.row_budget == 0
+        assert a.status == b.status
+        assert np.max(np.abs(a.predicted_states - b.predicted_states)) < 1e-9
+        assert a.cell_violation == 0.0
+        x = np.array(F(x, a.first_input)).ravel()
+    assert np.hypot(x[0] - 3.0, x[1] - 1.0) < 0.5  # under way to the target
+
+
+def test_the_real_time_step_holds_rows_hard_and_hands_a_violation_to_the_full_solve() -> None:
+    """The real-time step solves with the predicted positions' rows hard (mpc._hard_rows),
+    its problem without their slacks: with an exact penalty the soft optimum has every
+    path slack at 0 wherever the rows can be held (Kerrigan & Maciejowski, UKACC Control
+    2000). Where they cannot, the sample must go to the full solve with soft rows. A
+    multirotor at 2.5 m/s heading at a row 0.6 m ahead cannot stop before it: braking
+    distance v^2 / (2 a) (uniform deceleration, kinematics) is over 1.3 m at the 2.31 m/s^2
+    it has along an axis (an octagon inscribed in its 2.5 m/s^2 disc), before drag."""
+    spec = spec_for("multirotor")  # shipped default: the real-time path
+    terminal, _ = terminal_for_vehicle(spec)
+    plain = TrackingMpc(spec.model, spec.mpc, REGION.halfspaces(), terminal)
+    mpc = TrackingMpc(spec.model, spec.mpc, REGION.halfspaces(), terminal, cell_rows=ROWS)
+    real_time = mpc._problem(2).chain.strategies[0]
+    assert real_time.name == "rti"
+    # The plain problem's variables and the steady state's slack, no path slack.
+    assert len(real_time.kept) == len(plain._lbw) + 1
+    cell = padded([((1.0, 0.0), 0.6)])
+    x = np.array([0.0, 0.0, 2.5, 0.0])
+    target = np.array([5.0, 0.0])
+    cold = mpc.solve(x, target, cell)  # no shifted plan yet: the full solve
+    assert cold.success and cold.cell_violation > 0.1
+    again = mpc.solve(x, target, cell)  # from the shifted plan: the real-time step first
+    # The hard QP has no solution; a full solve with soft rows answers.
+    assert again.success and again.status.startswith("rti: QP failed; ")
+    assert again.cell_violation > 0.1
+    x, positions, _, last = closed_loop(mpc, x, target, cell, samples=40)
+    assert last.status == "real-time iteration accepted" and last.cell_violation == 0.0
+    assert positions[-1][0] <= 0.6 - mpc.cell_pad + 1e-3
+
+
 def test_a_car_pinned_between_two_held_rows_waits_instead_of_buying_slack() -> None:
     """A car-like robot at rest stands 0.05 m beyond one row and 0.14 m inside another
     (within its pad, 0.15 m), facing between them: forward breaks the second, backward

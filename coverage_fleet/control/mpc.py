@@ -59,7 +59,13 @@ Jacobians cost grows with the state faster than with the inputs: measured with
 benchmarks/mpc_benchmark.py --keep-apart --repeat 2 on a quiet machine, the rover's median
 full solve with rows went from 1.28x to 1.23x of the one without and takes as many
 interior-point iterations as without rows (8, against 9 carried), the multirotor's
-real-time path from 1.37x to 1.25x (README, Performance).
+real-time path from 1.37x to 1.25x (README, Performance). The problem of row budget 0 (no
+row: no neighbour within reach) has no slack at all, so it is the problem without
+keep-apart but for the steady region rows' relaxation (TrackingMpc._make); and the
+real-time step holds the predicted positions' rows hard (_hard_rows: the exact penalty
+makes the two optima one wherever the rows can be held; elsewhere the step fails and the
+full solve, with soft rows, answers), which took the multirotor's real-time path with rows
+from 1.38x to 1.22x of its time without.
 
 The steady state keeps the rows where they are (so the plan comes back into the cell). A
 packed robot's cell may be empty, or conflict with the region's steady-state margin, and
@@ -120,6 +126,7 @@ from coverage_fleet.control.solver_chain import (
     NlpInstance,
     SolverChain,
     SolveStrategy,
+    VariableSubset,
     build_strategies,
     configured_path,
     configured_plugin,
@@ -170,7 +177,8 @@ PATH_SLACK_UNIT = 1e-3
 #: of 0 (no row at all, for a robot with no neighbour within reach) saved little on the full
 #: solve but much on the real-time path: in the orchard fleet's own loop (mpc_benchmark
 #: --keep-apart --fleet, 900 rover solves, median 0 real rows) the rover's median went from
-#: 1.46x to 1.23x its time without keep-apart.
+#: 1.46x to 1.23x its time without keep-apart, and to 1.16x with budget 0's slacks left out
+#: (TrackingMpc._make).
 CELL_ROW_BUDGETS = (0, 2, 4, 8)
 #: Offset given to the padding rows a budget's problem is filled up with (metres above the
 #: pad: 0 . p - sigma <= offset - pad never binds, see TrackingMpc._cell_instance).
@@ -220,13 +228,9 @@ class _SharedBuild:
     ubg: np.ndarray
     cell_index: np.ndarray
     other_index: np.ndarray
-    #: Bounds of the decision vector (the same in every budget).
+    #: Bounds of this build's own decision vector (budget 0's has no slacks: _make).
     lbw: np.ndarray
     ubw: np.ndarray
-    #: Stage sizes: z_k = (x_k, theta), v_k = (u_k, slacks), len(theta).
-    nz: int
-    nv: int
-    n_theta: int
     #: The model's discrete dynamics at the sample time (the manoeuvre guesses).
     dynamics: ca.Function
 
@@ -296,6 +300,60 @@ def _require_checked(
             f"{model.source}: MPC settings not usable: {'; '.join(faults)} (vehicle files are "
             f"checked by vehicles.loader; settings built in code must obey the same rules)"
         )
+
+
+def _kept_inputs(
+    horizon: int, nz: int, nv: int, kept_inputs: Sequence[int]
+) -> np.ndarray:
+    """Where the variables of a problem whose stage k keeps the first kept_inputs[k] of
+    the nv stage inputs sit in the decision vector [z_0 v_0 ... z_{N-1} v_{N-1} z_N]."""
+    stage = nz + nv
+    return np.concatenate(
+        [k * stage + np.arange(nz + kept_inputs[k]) for k in range(horizon)]
+        + [horizon * stage + np.arange(nz)]
+    )
+
+
+def _hard_rows(
+    fast: FastProblem, nlp: dict[str, ca.SX], path_slacks: list[ca.SX]
+) -> FastProblem:
+    """The real-time step's problem with the keep-apart rows of the predicted positions
+    hard: their slacks (`path_slacks`, per stage the inputs after the first len(u) + 1 at
+    stage 0 and after len(u) at the others) fixed at 0 and left out; the steady state's
+    slack stays. Why it answers the same: the slacks' price is an exact penalty (module
+    docstring), so wherever the rows can be held the soft problem's optimum has every path
+    slack at 0 and is the hard problem's optimum; where they cannot, the hard QP is
+    infeasible, the step fails, and the full solve (soft rows) answers the sample. Why:
+    the slack was one more input at every stage for HPIPM's Riccati recursion (README,
+    Performance: the multirotor's real-time step cost 1.38x with 4 rows, over the 30 %
+    keep-apart budget)."""
+    dropped = ca.vertcat(*path_slacks)
+    zero = ca.DM.zeros(dropped.shape[0])
+    w = nlp["x"]
+    f, g = ca.substitute([nlp["f"], nlp["g"]], [dropped], [zero])
+    kept_mask = np.ones(w.shape[0], dtype=bool)
+    for entry in range(w.shape[0]):
+        if ca.depends_on(w[entry], dropped):
+            kept_mask[entry] = False
+    kept = np.nonzero(kept_mask)[0]
+    w_hard = w[kept.tolist()]
+    terms = []
+    for term in fast.terms:
+        residual = ca.substitute(term.residual, dropped, zero)
+        if ca.depends_on(residual, w_hard):  # the slacks' own prices are constants now
+            terms.append(LeastSquaresTerm(residual, term.weight))
+    layout = fast.layout
+    kept_inputs = tuple(
+        n - slacks.shape[0] for n, slacks in zip(layout.nu, path_slacks, strict=True)
+    )
+    return FastProblem(
+        terms,
+        fast.quadratic_rows,
+        StageLayout(layout.horizon, layout.nz, kept_inputs, layout.path_rows),
+        fast.dynamics_increments,
+        nlp={"x": w_hard, "p": nlp["p"], "f": f, "g": g},
+        kept=kept,
+    )
 
 
 class TrackingMpc:
@@ -379,6 +437,12 @@ class TrackingMpc:
             model.max_planar_speed * settings.sample_time / 2.0 if self.cell_rows else 0.0
         )
         self.plugin = configured_plugin(settings)
+        #: The decision vector's stage sizes (_unpack): z_k = (x_k, theta), v_k = (u_k,
+        #: keep-apart slacks), as in the problem for cell_rows rows (a smaller budget's
+        #: problem may leave some out: _BuiltProblem.kept).
+        self._n_theta = self._Mx.shape[1]
+        self._nz = model.nx + self._n_theta
+        self._nv = model.nu + self._slack_count(self.cell_rows)
         self._problems = {self.cell_rows: self._build(self.plugin, self.cell_rows, None)}
         if prebuild:
             for rows in self.row_budgets:
@@ -411,20 +475,30 @@ class TrackingMpc:
             )
             built = self._shared.get(key, lambda: self._make(plugin, n_cell))
         self._dynamics = built.dynamics
-        self._lbw, self._ubw = built.lbw, built.ubw
-        self._nz, self._nv, self._n_theta = built.nz, built.nv, built.n_theta
+        if n_cell == self.cell_rows:  # the decision vector's own layout (_unpack)
+            self._lbw, self._ubw = built.lbw, built.ubw
         chain = SolverChain(list(built.strategies), RESCUE_HOLD_SAMPLES, skip_left)
         return _BuiltProblem(
             built.rows, chain, built.lbg, built.ubg, built.cell_index, built.other_index
         )
+
+    def _slack_count(self, n_cell: int) -> int:
+        """Keep-apart slacks per stage input in the problem for n_cell rows (_make)."""
+        return (1 if self.horizon > 1 else 2) if n_cell else 0
 
     def _make(self, plugin: str, n_cell: int) -> _SharedBuild:
         """Stage-wise NLP: stage k holds z_k = (x_k, theta_k) and v_k = (u_k, its keep-apart
         slacks); theta is carried as a constant state (theta_{k+1} = theta_k) so that every
         constraint touches one stage or two neighbouring ones, the block structure
         structure-exploiting solvers need. n_cell: the keep-apart rows of this build (a
-        budget); the variables are the same in every budget (the slacks are there whenever
-        cell_rows > 0)."""
+        budget). The slacks are there whenever the budget has rows: budget 0 has none for
+        them to relax, so its problem is the one without keep-apart but for the steady
+        region rows' relaxation (a parameter), and its strategies solve over the MPC's
+        variables without the slacks (solver_chain.VariableSubset). Why: each slack is one
+        more input at every stage, which the Riccati recursions of HPIPM and fatrop pay for
+        at every stage whether a row binds or not (README, Performance: before, a robot
+        with no neighbour within reach paid 1.24-1.31x the solve time without keep-apart).
+        The real-time step leaves out the path slacks in every budget (_hard_rows)."""
         model, settings, N = self.model, self.settings, self.horizon
         nx, nu = model.nx, model.nu
         F = model.discrete_dynamics(settings.sample_time, settings.substeps)
@@ -434,7 +508,7 @@ class TrackingMpc:
         # The keep-apart slacks are stage inputs (module docstring): stage 0's is the steady
         # state's, stage k >= 1's relaxes x_k's rows (and stage N - 1's also x_N's); with a
         # horizon of 1, stage 0 has a second one for x_1's rows.
-        n_slack = (1 if N > 1 else 2) if self.cell_rows else 0
+        n_slack = self._slack_count(n_cell)
         nz = nx + n_theta
         nv = nu + n_slack
         Z = [ca.SX.sym(f"z{k}", nz) for k in range(N + 1)]
@@ -606,7 +680,7 @@ class TrackingMpc:
             add(ca.mtimes(ca.DM(x_steady.G_dep), x_s), -np.inf, x_steady.g_dep)
         if len(u_steady.g_dep):
             add(ca.mtimes(ca.DM(u_steady.G_dep), u_s), -np.inf, u_steady.g_dep)
-        if n_slack:
+        if self.cell_rows:
             # A packed robot's cell may be empty, or lie beyond the region's steady-state
             # margin: the steady state's rows move out by the parameters steady_relax (0
             # where the robot can rest), and any rest is its own slack's, so such a
@@ -663,22 +737,30 @@ class TrackingMpc:
         ).reshape(len(cell_starts), n_cell)
         other = np.ones(len(lbg_all), dtype=bool)
         other[cell_index.reshape(-1)] = False
+        fast = FastProblem(
+            terms, quadratic_rows, StageLayout(N, nz, (nv,) * N, path_rows),
+            ca.vertcat(*increments),
+        )
+        if n_slack and configured_path(settings) == "real_time":
+            fast = _hard_rows(fast, nlp, [v[nu + 1 :] for v in V[:1]] + [v[nu:] for v in V[1:]])
         strategies = build_strategies(
             nlp,
             settings,
             [bool(v) for v in lbg_all == ubg_all],
-            FastProblem(
-                terms, quadratic_rows, StageLayout(N, nz, nv, path_rows), ca.vertcat(*increments)
-            ),
+            fast,
             full_solves_on_first_use=not self._prebuild,
         )
+        if nv != self._nv:
+            kept = _kept_inputs(N, nz, self._nv, (nv,) * N)
+            size = N * (nz + self._nv) + nz
+            strategies = [VariableSubset(s, kept, size) for s in strategies]
         arrays = [
             lbg_all, ubg_all, cell_index, np.nonzero(other)[0],
             np.concatenate(lbw), np.concatenate(ubw),
         ]
         for array in arrays:
             array.flags.writeable = False  # read by every robot that shares the build
-        return _SharedBuild(n_cell, tuple(strategies), *arrays, nz, nv, n_theta, F)
+        return _SharedBuild(n_cell, tuple(strategies), *arrays, F)
 
     def _problem(self, rows: int) -> _BuiltProblem:
         """The problem built for `rows` keep-apart rows (a budget), built now if not yet;

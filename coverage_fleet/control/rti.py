@@ -124,12 +124,12 @@ QP_DEFAULTS: dict[str, dict[str, Any]] = {
 @dataclass(frozen=True)
 class StageLayout:
     """Where each stage's rows sit: decision variables [z_0 u_0 ... z_{N-1} u_{N-1} z_N]
-    with len(z_k) = nz, len(u_k) = nu; constraint rows per stage k: first the nz dynamics
-    rows z_{k+1} - F(z_k, u_k) (k < N), then `path_rows[k]` other rows."""
+    with len(z_k) = nz, len(u_k) = nu[k]; constraint rows per stage k: first the nz
+    dynamics rows z_{k+1} - F(z_k, u_k) (k < N), then `path_rows[k]` other rows."""
 
     horizon: int
     nz: int
-    nu: int
+    nu: tuple[int, ...]
     path_rows: tuple[int, ...]
 
     def dynamics_mask(self) -> np.ndarray:
@@ -252,7 +252,7 @@ class RealTimeIterationStrategy:
             options.update(
                 N=N,
                 nx=[layout.nz] * (N + 1),
-                nu=[layout.nu] * N + [0],
+                nu=[*layout.nu, 0],
                 ng=list(layout.path_rows),
             )
         sparsity = {"h": hessian.sparsity(), "a": ca.jacobian(g_qp, w).sparsity()}

@@ -35,6 +35,7 @@ fault and carry on, losing the operator's Ctrl-C.
 
 from __future__ import annotations
 
+import dataclasses
 import time
 from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass
@@ -147,6 +148,10 @@ class FastProblem:
     #: One entry per dynamics row, in their order: the state's increment over one sample
     #: by one RK4 step, F_1(x_k, u_k) - x_k (0 for rows of constant states).
     dynamics_increments: ca.SX
+    #: The real-time step's own NLP (same parameters and rows), over the variables `kept`
+    #: of the full solve's (the others are 0 in its answers); None: the full solve's NLP.
+    nlp: dict[str, ca.SX] | None = None
+    kept: np.ndarray | None = None
 
 
 class SolveStrategy(Protocol):
@@ -239,6 +244,37 @@ class NlpsolStrategy:
             lam_x=result["lam_x"].copy(),
             lam_g=result["lam_g"].copy(),
         )
+
+
+class VariableSubset:
+    """A strategy whose problem has only the variables `kept` (indices) of the instance's
+    decision vector (of `size` entries), the others fixed at 0: it is given their part of
+    the guess, bounds and multipliers, and its answer has 0 for the others and for their
+    bounds' multipliers. For variables that are 0 at the optimum anyway, such as keep-apart
+    slacks with no row to relax (mpc.py)."""
+
+    def __init__(self, strategy: SolveStrategy, kept: np.ndarray, size: int) -> None:
+        self.strategy = strategy
+        self.kept = kept
+        self.size = size
+        self.name = strategy.name
+        self.hold_samples = strategy.hold_samples
+        self.needs_shifted_plan = strategy.needs_shifted_plan
+
+    def attempt(self, instance: NlpInstance) -> Attempt:
+        kept = self.kept
+        answer = self.strategy.attempt(
+            dataclasses.replace(
+                instance,
+                guess=instance.guess[kept],
+                lbx=instance.lbx[kept],
+                ubx=instance.ubx[kept],
+                lam_x0=None if instance.lam_x0 is None else instance.lam_x0[kept],
+            )
+        )
+        x, lam_x = np.zeros(self.size), np.zeros(self.size)
+        x[kept], lam_x[kept] = answer.x, answer.lam_x
+        return dataclasses.replace(answer, x=x, lam_x=lam_x)
 
 
 class SolverChain:
@@ -397,12 +433,13 @@ def build_strategies(
         if fast is None:
             raise ValueError("the real-time path needs the cost terms and the stage layout")
         qp = str(settings.solver.get("qp", DEFAULT_QP))
-        strategies.insert(
-            0, RealTimeIterationStrategy(
-                nlp, fast.terms, fast.quadratic_rows, fast.layout,
-                fast.dynamics_increments, qp, compiled,
-            )
+        real_time: SolveStrategy = RealTimeIterationStrategy(
+            nlp if fast.nlp is None else fast.nlp, fast.terms, fast.quadratic_rows,
+            fast.layout, fast.dynamics_increments, qp, compiled,
         )
+        if fast.kept is not None:
+            real_time = VariableSubset(real_time, fast.kept, nlp["x"].shape[0])
+        strategies.insert(0, real_time)
     if rescued:
         rescue_options = _plugin_options(
             RESCUE_PLUGIN, budget * RESCUE_ITERATION_FACTOR, equality, {}
