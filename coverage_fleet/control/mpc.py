@@ -315,43 +315,35 @@ def _kept_inputs(
 
 
 def _hard_rows(
-    fast: FastProblem, nlp: dict[str, ca.SX], path_slacks: list[ca.SX]
+    fast: FastProblem,
+    nlp: dict[str, ca.SX],
+    slack_inputs: Sequence[int],
+    price_terms: Sequence[LeastSquaresTerm],
 ) -> FastProblem:
     """The real-time step's problem with the keep-apart rows of the predicted positions
-    hard: their slacks (`path_slacks`, per stage the inputs after the first len(u) + 1 at
-    stage 0 and after len(u) at the others) fixed at 0 and left out; the steady state's
-    slack stays. Why it answers the same: the slacks' price is an exact penalty (module
-    docstring), so wherever the rows can be held the soft problem's optimum has every path
-    slack at 0 and is the hard problem's optimum; where they cannot, the hard QP is
-    infeasible, the step fails, and the full solve (soft rows) answers the sample. Why:
-    the slack was one more input at every stage for HPIPM's Riccati recursion (README,
-    Performance: the multirotor's real-time step cost 1.38x with 4 rows, over the 30 %
-    keep-apart budget)."""
-    dropped = ca.vertcat(*path_slacks)
-    zero = ca.DM.zeros(dropped.shape[0])
-    w = nlp["x"]
-    f, g = ca.substitute([nlp["f"], nlp["g"]], [dropped], [zero])
-    kept_mask = np.ones(w.shape[0], dtype=bool)
-    for entry in range(w.shape[0]):
-        if ca.depends_on(w[entry], dropped):
-            kept_mask[entry] = False
-    kept = np.nonzero(kept_mask)[0]
-    w_hard = w[kept.tolist()]
-    terms = []
-    for term in fast.terms:
-        residual = ca.substitute(term.residual, dropped, zero)
-        if ca.depends_on(residual, w_hard):  # the slacks' own prices are constants now
-            terms.append(LeastSquaresTerm(residual, term.weight))
+    hard: their slacks (per stage k the last slack_inputs[k] stage inputs; the steady
+    state's slack, the first at stage 0, stays) fixed at 0 and left out, with their prices
+    (`price_terms`, constants then). Why it answers the same: the slacks' price is an exact
+    penalty (module docstring), so wherever the rows can be held the soft problem's optimum
+    has every path slack at 0 and is the hard problem's optimum; where they cannot, the
+    hard QP is infeasible, the step fails, and the full solve (soft rows) answers the
+    sample. Why: the slack was one more input at every stage for HPIPM's Riccati recursion
+    (README, Performance: the multirotor's real-time step cost 1.38x with 4 rows, over the
+    30 % keep-apart budget)."""
     layout = fast.layout
-    kept_inputs = tuple(
-        n - slacks.shape[0] for n, slacks in zip(layout.nu, path_slacks, strict=True)
-    )
+    kept_inputs = tuple(n - s for n, s in zip(layout.nu, slack_inputs, strict=True))
+    kept = _kept_inputs(layout.horizon, layout.nz, max(layout.nu), kept_inputs)
+    w = nlp["x"]
+    dropped_entries = np.setdiff1d(np.arange(w.shape[0]), kept)
+    dropped = w[dropped_entries.tolist()]
+    f, g = ca.substitute([nlp["f"], nlp["g"]], [dropped], [ca.DM.zeros(dropped.shape[0])])
+    priced = {id(term) for term in price_terms}
     return FastProblem(
-        terms,
+        [term for term in fast.terms if id(term) not in priced],
         fast.quadratic_rows,
         StageLayout(layout.horizon, layout.nz, kept_inputs, layout.path_rows),
         fast.dynamics_increments,
-        nlp={"x": w_hard, "p": nlp["p"], "f": f, "g": g},
+        nlp={"x": w[kept.tolist()], "p": nlp["p"], "f": f, "g": g},
         kept=kept,
     )
 
@@ -547,11 +539,15 @@ class TrackingMpc:
         lbg: list[np.ndarray] = []
         ubg: list[np.ndarray] = []
 
+        #: Rows of g so far (a running count: summing the blocks each time was quadratic).
+        added_rows = [0]
+
         def add(expr: ca.SX, lower: np.ndarray | float, upper: np.ndarray | float) -> None:
             n = expr.shape[0]
             if n == 0:
                 return
             g.append(expr)
+            added_rows[0] += n
             lbg.append(np.broadcast_to(np.asarray(lower, float), (n,)).copy())
             ubg.append(np.broadcast_to(np.asarray(upper, float), (n,)).copy())
 
@@ -560,7 +556,7 @@ class TrackingMpc:
 
         def cell(position: ca.SX, sigma: ca.SX, offsets: ca.SX, pad: float) -> None:
             if n_cell:
-                cell_starts.append(sum(e.shape[0] for e in g))
+                cell_starts.append(added_rows[0])
                 add(ca.mtimes(cell_normals, position) - sigma - offsets + pad, -np.inf, 0.0)
 
         # Rows the robot stands beyond, or within the pad of, move out to where it stands
@@ -593,10 +589,14 @@ class TrackingMpc:
                 position = ca.vertcat(x[i], x[j])
                 cell(position, sigma * PATH_SLACK_UNIT, held_offsets, self.cell_pad)
 
+        #: The path slacks' prices (the real-time step leaves them out: _hard_rows).
+        price_terms: list[LeastSquaresTerm] = []
+
         def path_price(sigma: ca.SX) -> ca.SX:
             # CELL_PRICE sigma + CELL_PENALTY sigma^2 (metres), as one square (rti.py).
             shifted = sigma * PATH_SLACK_UNIT + CELL_PRICE / (2.0 * CELL_PENALTY)
-            terms.append(LeastSquaresTerm(shifted, np.array([[CELL_PENALTY]])))
+            price_terms.append(LeastSquaresTerm(shifted, np.array([[CELL_PENALTY]])))
+            terms.append(price_terms[-1])
             return CELL_PENALTY * shifted**2
 
         #: Per dynamics row group, the one-step increment F_one_step(x_k, u_k) - x_k (theta's
@@ -610,7 +610,7 @@ class TrackingMpc:
             # dynamics to the next stage first, then this stage's path constraints.
             x, theta = Z[k][:nx], Z[k][nx:]
             x_s = ca.mtimes(Mx, theta) + x0s
-            stage_starts.append(sum(e.shape[0] for e in g))
+            stage_starts.append(added_rows[0])
             w.append(Z[k])
             if k == 0:
                 lbw.append(np.concatenate([np.full(nx, -np.inf), -free_theta]))
@@ -639,7 +639,7 @@ class TrackingMpc:
             if k == 0:
                 add(x - measured, 0.0, 0.0)
                 if heads_out:
-                    cell_starts.append(sum(e.shape[0] for e in g))  # a group of cell rows
+                    cell_starts.append(added_rows[0])  # a group of cell rows
                     add(ca.mtimes(cell_normals, first_velocity) - heading_bound, -np.inf, 0.0)
                 if n_slack:
                     # The steady state's cell rows sit here, beside their slack (theta is
@@ -704,7 +704,7 @@ class TrackingMpc:
                 # Scaled to e'Pe / alpha <= 1, so its violation reads as a fraction of the
                 # level (the acceptance test compares every row to one tolerance).
                 level = LeastSquaresTerm(error, self.terminal.P / self.terminal.alpha)
-                quadratic_rows.append(QuadraticRow(sum(e.shape[0] for e in g), level))
+                quadratic_rows.append(QuadraticRow(added_rows[0], level))
                 add(ca.bilin(P, error, error) / self.terminal.alpha, -np.inf, 1.0)
                 # The ellipsoid's bounding box along its principal axes, |v_i' e| <=
                 # sqrt(alpha / lambda_i) (P = V diag(lambda) V'): implied by the ellipsoid
@@ -720,7 +720,7 @@ class TrackingMpc:
                 add(ca.bilin(P, error, error), -np.inf, self.terminal.alpha)
         cost += settings.offset_weight * ca.sumsqr(p_s - target)
         terms.append(LeastSquaresTerm(p_s - target, settings.offset_weight * np.eye(2)))
-        stage_starts.append(sum(e.shape[0] for e in g))
+        stage_starts.append(added_rows[0])
         path_rows = tuple(
             stage_starts[k + 1] - stage_starts[k] - (nz if k < N else 0) for k in range(N + 1)
         )
@@ -742,7 +742,9 @@ class TrackingMpc:
             ca.vertcat(*increments),
         )
         if n_slack and configured_path(settings) == "real_time":
-            fast = _hard_rows(fast, nlp, [v[nu + 1 :] for v in V[:1]] + [v[nu:] for v in V[1:]])
+            # Every slack but stage 0's first (the steady state's) is a path slack.
+            slack_inputs = [n_slack - 1] + [n_slack] * (N - 1)
+            fast = _hard_rows(fast, nlp, slack_inputs, price_terms)
         strategies = build_strategies(
             nlp,
             settings,

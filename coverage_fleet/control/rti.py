@@ -161,12 +161,15 @@ class QuadraticRow:
 def gauss_newton_hessian(
     terms: Sequence[tuple[ca.SX, LeastSquaresTerm]], w: ca.SX
 ) -> ca.SX:
-    """2 sum c J_r' W J_r: the Gauss-Newton Hessian of sum c r' W r (c a scalar factor)."""
-    hessian = ca.SX(w.shape[0], w.shape[0])
-    for factor, term in terms:
-        jacobian = ca.jacobian(term.residual, w)
-        hessian += 2 * factor * ca.mtimes([jacobian.T, ca.DM(term.weight), jacobian])
-    return hessian
+    """2 J' W J with J the Jacobian of all residuals stacked and W block diagonal (each
+    term's c W): the Gauss-Newton Hessian of sum c r' W r (c a scalar factor). One
+    Jacobian of the stacked residuals, not one per term: a term's Jacobian walks the whole
+    expression graph of w (measured: half of building the real-time step of a problem)."""
+    if not terms:
+        return ca.SX(w.shape[0], w.shape[0])
+    jacobian = ca.jacobian(ca.vertcat(*(term.residual for _, term in terms)), w)
+    weight = ca.diagcat(*(factor * ca.DM(term.weight) for factor, term in terms))
+    return 2 * ca.mtimes([jacobian.T, weight, jacobian])
 
 
 #: The dynamics' curvature enters the QP Hessian as this multiple of its diagonal (module
@@ -234,10 +237,11 @@ class RealTimeIterationStrategy:
             + [(ca.fmax(lam_g[q.row], 0), q.term) for q in quadratic_rows],
             w,
         ) + dynamics_curvature(dynamics_increments, lam_g[dynamics_rows.tolist()], w)
+        jacobian = ca.jacobian(g_qp, w)
         qp_data = ca.Function(
             "rti_qp_data",
             [w, p, lam_g],
-            [hessian, ca.gradient(f, w), g_qp, ca.jacobian(g_qp, w)],
+            [hessian, ca.gradient(f, w), g_qp, jacobian],
             ["w", "p", "lam_g"],
             ["h", "grad", "g", "a"],
         )
@@ -255,7 +259,7 @@ class RealTimeIterationStrategy:
                 nu=[*layout.nu, 0],
                 ng=list(layout.path_rows),
             )
-        sparsity = {"h": hessian.sparsity(), "a": ca.jacobian(g_qp, w).sparsity()}
+        sparsity = {"h": hessian.sparsity(), "a": jacobian.sparsity()}
         self.qp_plugin = qp_plugin
         qp = ca.conic("rti_qp", qp_plugin, sparsity, options)
         self._step = BufferedFunction(_sqp_step(qp_data, check, qp, sign, w.shape[0], p.shape[0]))
