@@ -95,7 +95,7 @@ class RobotController:
         neighbours are), and the status says why."""
         x = np.asarray(x, dtype=float).reshape(-1)
         target = np.asarray(target_xy, dtype=float).reshape(-1)
-        if not (np.all(np.isfinite(x)) and np.all(np.isfinite(target))):
+        if not (np.isfinite(x).all() and np.isfinite(target).all()):
             self.mpc.reset()
             return self._fallback(x, "measured state or target not finite", 0, 0.0)
         rows = None

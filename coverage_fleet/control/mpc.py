@@ -850,9 +850,9 @@ class TrackingMpc:
 
     def _align_angles(self, w: np.ndarray, x0: np.ndarray) -> np.ndarray:
         """Shift the guess by whole turns so its angles match the measured ones."""
-        # The first state is w[:nx] (_unpack): most samples need no turn and no unpacking.
-        angles = list(self.model.angle_indices)
-        if not np.any(np.round((x0[angles] - w[angles]) / (2 * np.pi))):
+        # The first state is w[:nx] (_unpack): most samples need no turn and no unpacking
+        # (plain floats: numpy's per-call overhead on two entries was most of this).
+        if all(round((x0[i] - w[i]) / (2 * math.pi)) == 0 for i in self.model.angle_indices):
             return w
         states, inputs, theta, slacks = self._unpack(w)
         changed = False
@@ -1100,7 +1100,7 @@ class TrackingMpc:
         normals @ p <= offsets for the robot's centre; required when cell_rows > 0."""
         x0 = np.asarray(x0, dtype=float).reshape(-1)
         target = np.asarray(target_xy, dtype=float).reshape(2)
-        if not (np.all(np.isfinite(x0)) and np.all(np.isfinite(target))):
+        if not (np.isfinite(x0).all() and np.isfinite(target).all()):
             # A NaN reaching fatrop from a cold start can keep it iterating for minutes.
             raise ValueError(f"state {x0.tolist()} and target {target.tolist()} must be finite")
         parameters, problem, steady_rows = self._parameters(x0, target, cell)

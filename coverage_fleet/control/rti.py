@@ -263,11 +263,18 @@ class RealTimeIterationStrategy:
         self.qp_plugin = qp_plugin
         qp = ca.conic("rti_qp", qp_plugin, sparsity, options)
         self._step = BufferedFunction(_sqp_step(qp_data, check, qp, sign, w.shape[0], p.shape[0]))
+        self._last_bounds: tuple[np.ndarray, ...] | None = None
 
     def _bounds_for_qp(self, lower: np.ndarray, upper: np.ndarray) -> tuple[np.ndarray, ...]:
+        # A problem's row bounds are the same arrays at every sample (mpc.py): flip them
+        # once (the last pair is kept, and holding them keeps their identity meaningful).
+        last = self._last_bounds
+        if last is not None and last[0] is lower and last[1] is upper:
+            return last[2], last[3]
         flipped = self._sign < 0
         lo, hi = lower.copy(), upper.copy()
         lo[flipped], hi[flipped] = -upper[flipped], -lower[flipped]
+        self._last_bounds = (lower, upper, lo, hi)
         return lo, hi
 
     def attempt(self, instance: NlpInstance) -> Attempt:

@@ -109,6 +109,7 @@ from coverage_fleet.fleet.message_checks import (
 )
 from coverage_fleet.fleet.mission import load_mission
 from coverage_fleet.fleet.pose_state import PoseVelocity, check_position_covariance
+from coverage_fleet.gc_freeze import freeze_after_setup
 
 from . import qos, topics
 from .conversions import (
@@ -324,6 +325,7 @@ class ControllerNode(LifecycleNode):
             return TransitionCallbackReturn.FAILURE
         if self._target is not None:
             self.controller.set_target(*self._target)
+        freeze_after_setup()  # the set-up's objects out of the collector's passes
         self.get_logger().info(
             f"{self.robot}: {self.model.kind} from {self.spec.source}, sample time "
             f"{self.sample_time:g} s, command {self.spec.command_kind}; MPC ready in "
