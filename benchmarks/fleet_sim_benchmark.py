@@ -12,17 +12,21 @@ settles (it would not within these durations anyway).
 
 For each fleet size the same mission, seed and duration run twice, alternating:
 - baseline: every controller in this process (`--workers 1` of `coverage-fleet simulate`);
-- method:   controllers on N worker processes (fleet/controller_pool.py; default N = cores).
+- method:   controllers over N processes, this one and N - 1 worker processes
+            (fleet/controller_pool.py; default N = cores), labelled "N workers".
 Printed per run: simulated seconds, wall seconds of the tick loop, real-time factor
 (simulated / wall), wall time per robot-step (one robot for one tick: its share of
 partition, gate, solve, plant and logging), share of the tick loop per stage (plain
 counters in fleet/step.StageTimes), and the start-up time (building the controllers, and
 for the method spawning the workers and their imports; paid once per run, outside the tick
-loop). For the method a second line splits its `solves` share: each worker's busy time
-(what it measured answering, fleet/controller_pool.py), the busiest worker's per tick (the
-least the answers could take with this split of robots) and the rest (the other workers'
-idle time, messages, wake-ups); the last two sum to the `solves` share; "on a core" is
-each worker's CPU time over its busy time (below 100 %: it waited for a core, as on a
+loop; for the method the workers' start-up that this process does not wait for is in the
+tick loop's first tick, so compare setup + loop, printed as "total"). For the method a
+second line splits its `solves` share: each process's busy time (this process's answers to
+its own share first, then each worker's, what it measured answering,
+fleet/controller_pool.py), the busiest process's per tick (the least the answers could
+take with this split of robots) and the rest (the other processes' idle time, messages,
+wake-ups, the workers' start-up); the last two sum to the `solves` share; "on a core" is
+each process's CPU time over its busy time (below 100 %: it waited for a core, as on a
 machine shared with other work; its solve times include the wait; for the baseline the
 same over its whole run, start-up included). Under each run,
 its solves: mean and median solve time (the loop pays the mean) and the share of samples
@@ -125,7 +129,7 @@ def describe(label: str, log: TrialLog, times: StageTimes, setup: float) -> str:
     shares = "  ".join(f"{getattr(times, s) / times.total:6.1%}" for s in StageTimes.STAGES)
     return (f"  {label:<10} {simulated:6.1f} s sim  {log.wall_time:7.2f} s wall  "
             f"RTF {simulated / log.wall_time:6.2f}x  {per_step * 1e3:7.3f} ms/robot-step  "
-            f"{shares}  setup {setup:5.1f} s")
+            f"{shares}  setup {setup:5.2f} s  total {setup + log.wall_time:6.2f} s")
 
 
 def describe_solves(log: TrialLog) -> str:
@@ -158,15 +162,17 @@ def describe_solves(log: TrialLog) -> str:
 
 
 def describe_workers(log: TrialLog, times: StageTimes, setup: float) -> str:
-    """Where the pooled run's `solves` share went: each worker's busy time, the busiest
-    worker's per tick (the least the answers could take), and the rest (idle workers
-    waiting for the busiest, messages, wake-ups), as shares of the tick loop."""
+    """Where the pooled run's `solves` share went: each process's busy time (this one
+    first), the busiest process's per tick (the least the answers could take), and the
+    rest (idle processes waiting for the busiest, messages, wake-ups, the workers'
+    start-up), as shares of the tick loop."""
     busy = "  ".join(f"{b / times.total:5.1%}" for b in times.worker_busy)
     on_cpu = "  ".join(f"{c / max(b, 1e-12):4.0%}" for c, b in
                        zip(times.worker_cpu, times.worker_busy, strict=True))
     rest = times.solves - times.worker_critical
-    return (f"  {'':<10} workers busy {busy} of the loop (on a core {on_cpu} of it); busiest "
-            f"per tick {times.worker_critical / times.total:5.1%}, waits and messages "
+    return (f"  {'':<10} busy (this process, workers) {busy} of the loop (on a core {on_cpu} "
+            f"of it); busiest per tick {times.worker_critical / times.total:5.1%}, waits and "
+            "messages "
             f"{rest / times.total:5.1%}")
 
 
@@ -179,7 +185,8 @@ def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.split("\n")[0])
     parser.add_argument("--quick", action="store_true", help="4, 16, 64 robots, short runs")
     parser.add_argument("--workers", type=int, default=default_workers(),
-                        help="worker processes of the method (default: one per core)")
+                        help="processes of the method, this one included (default: one per "
+                             "core)")
     parser.add_argument("--sizes", help="fleet sizes, comma-separated (default: all)")
     args = parser.parse_args()
     if args.workers < 2:
@@ -214,7 +221,9 @@ def main() -> None:
             same = (log_texts_without_wall_clock(serial[0])
                     == log_texts_without_wall_clock(parallel[0]))
             ratio = serial[0].wall_time / parallel[0].wall_time
-            print(f"  tick loop {ratio:.2f}x as fast on {args.workers} workers; logs "
+            total_ratio = (serial[0].wall_time + serial[2]) / (parallel[0].wall_time + parallel[2])
+            print(f"  tick loop {ratio:.2f}x as fast on {args.workers} workers (setup + loop "
+                  f"{total_ratio:.2f}x); logs "
                   f"{'identical' if same else 'DIFFERENT'} (solve times aside)")
             results[robots] = (serial, parallel)
     print("cost per robot-step as the fleet grows (slope of log cost / log robots; 0 = flat):")

@@ -8,10 +8,21 @@ What is checked, and against what:
   MPC solve is a deterministic computation of its inputs and the controller's own history
   (common practice: the reason parallel and serial runs of a deterministic simulation can
   be compared exactly);
-- the split of robots over workers (greedy, heaviest first) stays within Graham's bound for
-  that rule, makespan <= (4/3 - 1/(3m)) x the optimal one (R. L. Graham, "Bounds on
-  multiprocessing timing anomalies", SIAM J. Appl. Math. 17(2), 1969, theorem 2), with
-  the optimum found by trying every split;
+- the same with the controllers over three processes (this one and two workers), and with
+  more processes than robots;
+- the split of robots over processes (greedy, heaviest first): for robots that all sample
+  at every tick it is the longest-processing-time rule and stays within Graham's bound
+  for it, makespan <= (4/3 - 1/(3m)) x the optimal one (R. L. Graham, "Bounds on
+  multiprocessing timing anomalies", SIAM J. Appl. Math. 17(2), 1969, theorem 2), the
+  optimum found by trying every split; for a fleet whose slower vehicles all solve on the
+  same ticks, its busiest tick is lighter than with the same rule on the mean work per
+  tick alone (which piles the slow vehicles' ticks on one process), and no lighter than
+  the optimum found by trying every split (a check of the test's own arithmetic); on a
+  short run it keeps each vehicle file's robots on one process (each process builds the
+  problems of fewer vehicle files) when that lowers the expected work builds included,
+  and a long run gets the tick-balanced split;
+- while the pool runs, this thread and each worker run on CPUs of their own (as far as
+  there are CPUs), and this thread gets its former CPUs back when the pool closes;
 - the stage counters count what the log holds (ticks, robot-steps, solves) and their times
   are not more than the run's wall time; the workers' busy times lie within the ticks'
   waits for them.
@@ -20,6 +31,7 @@ What is checked, and against what:
 from __future__ import annotations
 
 import itertools
+import os
 from dataclasses import replace
 from pathlib import Path
 
@@ -28,8 +40,15 @@ import pytest
 from support_missions import short_quick_mission
 
 from coverage_fleet.cli.main import main
-from coverage_fleet.fleet.controllers import assign_robots, solve_weight
-from coverage_fleet.fleet.mission import Mission, simulation_step
+from coverage_fleet.fleet.controller_pool import ControllerPool, usable_cpus
+from coverage_fleet.fleet.controllers import (
+    BUILD_WORK,
+    assign_robots,
+    phase_loads,
+    solve_weight,
+    split_work,
+)
+from coverage_fleet.fleet.mission import Mission, RobotEntry, simulation_step
 from coverage_fleet.fleet.simulation import simulate_mission
 from coverage_fleet.fleet.step import StageTimes
 from coverage_fleet.fleet.trial import log_texts_without_wall_clock
@@ -76,15 +95,29 @@ def test_workers_write_the_same_log_as_one_process(mixed_mission: Mission) -> No
     assert pooled_times.worker_critical <= pooled_times.solves
 
 
+def _renamed(entries: list[RobotEntry]) -> list[RobotEntry]:
+    return [replace(entry, name=f"{entry.name}_{k}") for k, entry in enumerate(entries)]
+
+
+def _busiest_tick(loads: np.ndarray, split: tuple[int, ...] | list[int], workers: int) -> float:
+    """The heaviest tick of the cycle over the processes of a split (process per robot)."""
+    return max(
+        float(loads[[k for k, m in enumerate(split) if m == w]].sum(axis=0).max(initial=0.0))
+        for w in range(workers)
+    )
+
+
 def test_robot_split_is_within_grahams_bound_for_the_greedy_rule(
     mixed_mission: Mission,
 ) -> None:
-    roster = mixed_mission.roster * 2  # 8 robots, two of each type
     step = 0.1
-    weights = {entry.name + str(k): solve_weight(entry, step) for k, entry in enumerate(roster)}
-    renamed = [replace(entry, name=entry.name + str(k)) for k, entry in enumerate(roster)]
+    every_tick = [e for e in mixed_mission.roster if e.vehicle.mpc.sample_time == step]
+    assert len(every_tick) == 3  # rover, car, multirotor
+    roster = _renamed(every_tick * 3)  # 9 robots, three of each type
+    weights = {entry.name: solve_weight(entry, step) for entry in roster}
     for workers in (2, 3):
-        shares = assign_robots(renamed, step, workers)
+        shares = assign_robots(roster, step, workers)
+        assert len(shares) == workers
         assert sorted(name for share in shares for name in share) == sorted(weights)
         makespan = max(sum(weights[name] for name in share) for share in shares)
         best = min(
@@ -93,7 +126,83 @@ def test_robot_split_is_within_grahams_bound_for_the_greedy_rule(
             for split in itertools.product(range(workers), repeat=len(weights))
         )
         assert makespan <= (4 / 3 - 1 / (3 * workers)) * best + 1e-12
-    assert assign_robots(renamed[:1], step, 2) == [[renamed[0].name]]
+    assert assign_robots(roster[:1], step, 2) == [[roster[0].name], []]
+
+
+def test_robot_split_balances_the_ticks_on_which_slower_vehicles_solve(
+    mixed_mission: Mission,
+) -> None:
+    step = 0.1
+    kinds = {type(e.vehicle.model).__name__: e for e in mixed_mission.roster}
+    rover, vessel = kinds["DifferentialDriveModel"], kinds["SurfaceVesselModel"]
+    assert vessel.vehicle.mpc.sample_time == 2 * step  # solves every other tick
+    roster = _renamed([rover] * 3 + [vessel] * 2)
+    loads = phase_loads(roster, step)
+    assert loads.shape == (5, 2) and np.all(loads[3:, 1] == 0)
+    shares = assign_robots(roster, step, 2)
+    process_of = {name: w for w, share in enumerate(shares) for name in share}
+    split = [process_of[entry.name] for entry in roster]
+    best = min(_busiest_tick(loads, s, 2) for s in itertools.product(range(2), repeat=5))
+    assert _busiest_tick(loads, split, 2) >= best
+    # Balancing the mean work per tick alone (longest processing time first on
+    # solve_weight) puts both vessels on one process: its busiest tick is heavier.
+    mean_loads = [0.0, 0.0]
+    mean_split = [0] * len(roster)
+    for k in sorted(range(len(roster)), key=lambda k: -solve_weight(roster[k], step)):
+        w = min((0, 1), key=lambda w: (mean_loads[w], w))
+        mean_loads[w] += solve_weight(roster[k], step)
+        mean_split[k] = w
+    assert sorted(mean_split[3:]) == [1, 1]  # both vessels on one process
+    assert _busiest_tick(loads, split, 2) < _busiest_tick(loads, mean_split, 2)
+
+
+def test_a_short_run_keeps_each_vehicle_files_robots_together(mixed_mission: Mission) -> None:
+    step = 0.1
+    roster = _renamed(mixed_mission.roster * 4)  # 16 robots, four vehicle files
+    loads = phase_loads(roster, step)
+    groups = [entry.vehicle.cache_key for entry in roster]
+
+    def process_of(shares: list[list[str]]) -> list[int]:
+        where = {name: w for w, share in enumerate(shares) for name in share}
+        return [where[entry.name] for entry in roster]
+
+    short, long = process_of(assign_robots(roster, step, 2, ticks=201)), process_of(
+        assign_robots(roster, step, 2))
+    held = [{g for g, w in zip(groups, short, strict=True) if w == p} for p in (0, 1)]
+    assert [len(h) for h in held] == [2, 2]  # every vehicle file on one process
+    assert len({g for g, w in zip(groups, long, strict=True) if w == 0}) > 2  # mixed
+    build = BUILD_WORK / 201
+    assert split_work(loads, groups, short, 2, build) < split_work(loads, groups, long, 2, build)
+    assert split_work(loads, groups, long, 2, 0.0) <= split_work(loads, groups, short, 2, 0.0)
+
+
+def test_three_processes_and_more_processes_than_robots_write_the_same_log(
+    mixed_mission: Mission,
+) -> None:
+    serial = log_texts_without_wall_clock(
+        simulate_mission(mixed_mission, stop_at_rest=False, workers=1))
+    for workers in (3, 6):
+        times = StageTimes()
+        pooled = simulate_mission(mixed_mission, stop_at_rest=False, workers=workers,
+                                  stage_times=times)
+        assert log_texts_without_wall_clock(pooled) == serial
+        # This process and a worker per remaining robot share: 4 robots over at most 4.
+        assert len(times.worker_busy) == min(workers, len(mixed_mission.roster))
+
+
+def test_pool_runs_each_process_on_a_cpu_of_its_own_and_gives_the_cpus_back(
+    mixed_mission: Mission,
+) -> None:
+    before = usable_cpus()
+    step = simulation_step(mixed_mission.roster, mixed_mission.simulation)
+    with ControllerPool(mixed_mission, step, 2) as pool:
+        assert pool.workers == 2 and all(pool.shares)
+        states = {e.name: np.zeros(e.vehicle.model.nx) for e in mixed_mission.roster}
+        pool.answer_all(states, 0.0)  # the worker has started and placed itself
+        worker_cpus = os.sched_getaffinity(pool.worker_pids[0])
+        assert usable_cpus() == [before[0]]
+        assert worker_cpus == {before[1 % len(before)]}
+    assert usable_cpus() == before
 
 
 def test_simulate_rejects_a_bad_worker_count(

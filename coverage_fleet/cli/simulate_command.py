@@ -86,7 +86,10 @@ class ProgressBar:
 
 
 def placement_text(workers: int) -> str:
-    return "this process" if workers == 1 else f"{workers} worker processes"
+    if workers == 1:
+        return "this process"
+    others = workers - 1
+    return f"this process and {others} worker process{'es' if others > 1 else ''}"
 
 
 def default_trial_directory(mission: Mission, seed: int) -> Path:
@@ -108,7 +111,8 @@ def simulate_to_trial(
     workers: int = 1,
 ) -> tuple[Path, TrialLog, dict[str, Any]]:
     """Simulate the mission and write its trial directory; returns (path, log, metrics).
-    workers > 1: the controllers run on that many worker processes (same log)."""
+    workers > 1: the controllers run over that many processes, this one included (same
+    log)."""
     check_output_free(out)
     with interrupts_at_safe_points():
         log = simulate_mission(mission, seed=seed, duration=duration, on_step=progress,
@@ -184,7 +188,8 @@ def register(subparsers: argparse._SubParsersAction) -> None:
     parser.add_argument("--duration", type=float, help="simulated seconds (default: the mission's)")
     parser.add_argument(
         "--workers", type=int,
-        help="worker processes for the robots' controllers (default: one per core, here "
+        help="processes for the robots' controllers, this one included (default: one per "
+             "core, here "
              f"{default_workers()}, when each gets at least {ROBOTS_PER_WORKER_MIN} robots; "
              "1 runs everything in this process); the result is the same either way")
     parser.set_defaults(handler=run)

@@ -1,41 +1,89 @@
-"""The offline fleet's controllers split over worker processes, so that the MPC solves of one
-tick run on all cores.
+"""The offline fleet's controllers split over this process and worker processes, so that
+the MPC solves of one tick run on all cores.
 
-Design (measured in benchmarks/fleet_sim_benchmark.py):
-- A worker is a child process (`python -m coverage_fleet.fleet.controller_pool`) that
-  holds its robots' sampled controllers for the whole run: warm starts, held inputs and
-  fallback plans stay where they were made, and only states, targets and answers cross the
-  process boundary (a few hundred bytes per robot and tick). casadi objects do not pickle,
-  so each worker builds its controllers from the vehicle specs in the mission; the terminal
-  ingredients are computed (or read) once here first, so the workers read them from the
-  cache (control/terminal.py).
-- Robots are split by expected solve work (`controllers.assign_robots`), so a mixed fleet
-  does not put its slow vehicles on one worker.
+Design (measured in benchmarks/fleet_sim_benchmark.py, 16 mixed robots, 20 s simulated, 2
+cores):
+- `workers` counts the processes that solve: this one and `workers - 1` worker processes.
+  This process answers a share of the robots itself between sending the workers theirs and
+  collecting their answers: one process fewer to start, and no core waits while this
+  process only waits. The partition, gate, plants and trial records stay here; the workers
+  are idle while this process does them (5-10 % of the tick loop): they all need every
+  robot's answer of the tick before, so there is nothing to overlap them with.
+- A worker is forked from this process (multiprocessing's "fork" start): it starts with the
+  package imported and the mission in memory, in about 10 ms. A fresh interpreter
+  (`python -m ...`, as before) took 0.7-0.8 s to import the package, and the mission had
+  to be pickled to it (0.23 MB at 16 robots with a raster density, more than a socket
+  buffers, so the send held this process until the worker read it): start-up was 1.0 s
+  and the first tick ended 0.6 s later than in one process; forked, start-up is 0.2-0.3 s
+  and the first tick ends earlier than in one process (1.1 s against 1.3 s after the
+  start, 16 robots). It works because this process runs no Python thread of its own at
+  that moment (the only other threads are the BLAS libraries' pools, which prepare for a
+  fork themselves); the worker then uses the libraries exactly as this process does, BLAS
+  threads included, so its answers are the ones this process would give. POSIX only, as
+  the socket pairs already were.
+- A worker holds its robots' sampled controllers for the whole run: warm starts, held
+  inputs and fallback plans stay where they were made, and only states, targets and
+  answers cross the process boundary (a few hundred bytes per robot and tick). The MPC
+  problems are built after the fork, in the process that solves them (casadi objects do
+  not pickle, and a build is only made when a robot first needs it: 15 problems and 7 full
+  solvers, 1.9-2.1 s, in a 16-robot run of four vehicle types), so every process builds
+  the problems of the vehicle files it holds; the split weighs that
+  (`controllers.assign_robots`). The terminal ingredients are computed (or read) once
+  here first (control/terminal.py). This process's own share gets a fresh set of builds
+  (control/shared_problems.py), as a worker's: a run does not borrow builds from the
+  thread's earlier runs, so a pooled run and a one-process run pay the same builds.
+- The first tick waits for a worker's "ready" only when it needs its answers: this
+  process builds its own share's controllers and answers its share of the first tick
+  meanwhile.
+- Every process runs on a CPU of its own (process k on the k-th usable CPU, modulo their
+  number; this thread's former CPUs come back at `close`). Unpinned, two workers on a
+  quiet 2-core machine waited for a CPU while the other CPU idled, in some runs little
+  (on a core 94 % of their busy time) and in others 2.2-2.8 s each of a 5.5-7.5 s tick
+  loop (their /proc schedstat run-queue waits; on a core 61-70 %, also in the 64-robot
+  run): a tick's messages can wake a worker on the CPU of the process that sent them,
+  where the scheduler leaves it queued. Pinned: 0.02-0.3 s. A run that shares the machine
+  with other work cannot escape a busy CPU this way; on two cores it hardly could anyway.
+- Robots are split for the least expected critical work (`controllers.assign_robots`):
+  tick by tick, so that a mixed fleet neither puts its slow vehicles on one process nor
+  all the robots that solve on the same ticks (0.2 s vessels among 0.1 s vehicles), and,
+  on a short run, with whole vehicle groups on one process when the builds that saves
+  outweigh the balance lost (16 robots of four vehicle types, 20 s: the two processes
+  built 9 + 9 problems with the vehicles mixed, 5 + 5 with two vehicle types each). The
+  split is fixed for the run (a controller's state does not move between processes), so
+  it cannot follow the work that comes in bursts: a build, and the full solves of samples
+  the real-time step could not answer (1 % of the samples, a third of the solve time);
+  in those ticks one process works while the other waits.
 - Each tick this process sends every worker its robots' states (and any newly committed
-  targets) before it waits for the first reply, so the workers solve at the same time;
-  partition, gate, plants and the trial records stay here, in roster order.
+  targets and keep-apart snapshots) before it answers its own share and then waits for
+  the replies, so all processes solve at the same time; the answers are put back in
+  roster order.
+- Measured at 16 and 64 robots (benchmarks/fleet_sim_benchmark.py, quiet 2-core machine):
+  the tick loop 1.24x and 1.36x as fast as one process (setup + loop 1.25x and 1.35x);
+  before these changes 1.00x and 0.98x (setup + loop 0.79x and 0.73x). What keeps it
+  from 2x: the bursts above (the busiest process per tick 86 % of the loop against 58 % and
+  72 % busy at 16 robots), the partition, gate, plants and records (about 10 % of the
+  loop, the workers idle), and the same robots' answers taking 7-19 % longer in a pooled
+  process than in one process (two busy cores, waits between ticks).
 - Same results as in one process: a controller's answer depends only on what it was given
-  and on its own history, and the workers run with one BLAS thread
-  (OMP/OPENBLAS/MKL_NUM_THREADS=1, as fleet/parallel.py's local cluster) so that a
-  library's floating-point results do not depend on a thread count. Only the measured solve
-  times differ from run to run (as they do between two runs in one process).
+  and on its own history, never on where it runs. Only the measured solve times differ
+  from run to run (as they do between two runs in one process).
 - Why not the Dask cluster of fleet/parallel.py: a tick needs a round trip of well under a
   millisecond to every worker, many thousand times per run; a task scheduler adds
   milliseconds per task, and its workers do not keep per-robot state between tasks. A pipe
   per worker (a socket pair inherited by the child) does both.
 - Workers run in a session of their own: a terminal's Ctrl-C reaches only this process,
-  which stops at its next safe point and closes the workers in order. A worker ends when
-  its socket closes, so it also ends when this process dies. Nothing leaves the machine:
-  the socket pair has no address.
+  which stops at its next safe point and closes the workers in order. A worker keeps only
+  its own end of the sockets and ends when it closes, so it also ends when this process
+  dies. Nothing leaves the machine: the socket pair has no address.
 """
 
 from __future__ import annotations
 
 import contextlib
+import multiprocessing
+import multiprocessing.process
 import os
 import socket
-import subprocess
-import sys
 import time
 import traceback
 from collections.abc import Hashable, Mapping
@@ -45,15 +93,16 @@ from typing import Any
 import numpy as np
 
 from coverage_fleet.control.sampling import Answer
+from coverage_fleet.control.shared_problems import SharedProblems
 from coverage_fleet.control.terminal import terminal_for_vehicle
 from coverage_fleet.errors import ConfigError
 from coverage_fleet.fleet.controllers import LocalControllers, assign_robots
 from coverage_fleet.fleet.mission import Mission
-from coverage_fleet.fleet.parallel import PINNED_THREADS, default_workers
+from coverage_fleet.fleet.parallel import default_workers
 from coverage_fleet.geometry.buffered_cells import FleetSnapshot
 from coverage_fleet.interrupts import raise_if_interrupted
 
-#: Robots per worker below which the simulate command keeps its controllers in one process
+#: Robots per process below which the simulate command keeps its controllers in one process
 #: by default (benchmarks/fleet_sim_benchmark.py: with fewer, the pool's start-up and the
 #: per-tick round trips cost more than the second core gains on short runs).
 ROBOTS_PER_WORKER_MIN = 4
@@ -63,137 +112,206 @@ WORKER_START_TIMEOUT_S = 600.0
 #: Seconds a worker may take to stop before it is killed.
 WORKER_STOP_TIMEOUT_S = 10.0
 _POLL_S = 0.1
+#: Workers are forked from this process (module docstring).
+_FORK = multiprocessing.get_context("fork")
 
 
 def default_simulation_workers(robots: int, cores: int | None = None) -> int:
-    """Controller workers for an offline run of `robots` robots by default: one per core,
-    as long as each gets at least ROBOTS_PER_WORKER_MIN robots; 1 (this process) otherwise."""
+    """Controller processes for an offline run of `robots` robots by default (this one
+    included): one per core, as long as each gets at least ROBOTS_PER_WORKER_MIN robots;
+    1 (this process alone) otherwise."""
     cores = default_workers() if cores is None else cores
     return max(1, min(cores, robots // ROBOTS_PER_WORKER_MIN))
 
 
-class ControllerPool:
-    """The mission's controllers over `workers` worker processes (fewer if there are fewer
-    robots). Use as a context manager, or call `close`."""
+def usable_cpus() -> list[int]:
+    """The CPUs this thread may run on, in order (empty where the platform cannot say)."""
+    if not hasattr(os, "sched_getaffinity"):
+        return []
+    return sorted(os.sched_getaffinity(0))
 
-    def __init__(self, mission: Mission, step: float, workers: int) -> None:
+
+def pin_to(cpu: int | None) -> set[int] | None:
+    """Keep the calling thread (and threads it starts) on `cpu`; returns the CPUs it was
+    allowed before (None: nothing changed)."""
+    if cpu is None or not hasattr(os, "sched_setaffinity"):
+        return None
+    before = set(os.sched_getaffinity(0))
+    try:
+        os.sched_setaffinity(0, {cpu})
+    except OSError:
+        return None
+    return before
+
+
+class ControllerPool:
+    """The mission's controllers over `workers` processes: this one and `workers - 1`
+    worker processes (fewer when there are fewer robots). Use as a context manager, or call
+    `close`."""
+
+    def __init__(
+        self, mission: Mission, step: float, workers: int, ticks: int | None = None
+    ) -> None:
+        """ticks: how many ticks the run lasts, if known (the split weighs the builds each
+        process pays against balance: controllers.assign_robots)."""
         if workers < 1:
             raise ValueError(f"workers must be at least 1, got {workers}")
-        self.shares = assign_robots(mission.roster, step, workers)
+        split = assign_robots(mission.roster, step, workers, ticks)
+        #: Robot names per process: this process's first (it may be empty), then each
+        #: worker's.
+        self.shares = [split[0], *(share for share in split[1:] if share)]
         self._worker_of = {name: w for w, share in enumerate(self.shares) for name in share}
         seen: set[str] = set()
         for entry in mission.roster:
             if entry.vehicle.cache_key not in seen:
                 seen.add(entry.vehicle.cache_key)
                 terminal_for_vehicle(entry.vehicle)  # into the cache before the workers read
-        self._processes: list[subprocess.Popen] = []
+        self._processes: list[multiprocessing.process.BaseProcess] = []
         self._connections: list[Connection] = []
+        #: Whether each worker has said it built its controllers (its first tick waits).
+        self._started: list[bool] = []
         self._targets: list[list[tuple[str, Hashable, np.ndarray, float]]] = [
             [] for _ in self.shares
         ]
         self._snapshots: list[FleetSnapshot] = []
-        #: Seconds each worker spent answering ticks (targets, snapshots, answers; what it
-        #: measured itself, so its waits for work are left out).
+        #: Seconds each process spent answering ticks (this process: its own share;
+        #: workers: targets, snapshots, answers, what each measured itself, so its waits
+        #: for work are left out).
         self.busy_seconds = [0.0] * len(self.shares)
-        #: Sum over ticks of the busiest worker's seconds: the least the ticks' answers
-        #: could have taken on these workers (the rest of the wait is the other workers'
-        #: idle time, messages and wake-ups).
+        #: Sum over ticks of the busiest process's seconds: the least the ticks' answers
+        #: could have taken with this split (the rest of the wait is idle processes,
+        #: messages and wake-ups).
         self.critical_seconds = 0.0
-        #: CPU seconds each worker used within its busy seconds (what it measured itself
-        #: with time.process_time): the rest of its busy time it waited for a core.
+        #: CPU seconds each process used within its busy seconds (time.process_time): the
+        #: rest of its busy time it waited for a core.
         self.cpu_seconds = [0.0] * len(self.shares)
+        cpus = usable_cpus() if len(self.shares) > 1 else []
+        self._cpu_of = [cpus[k % len(cpus)] if cpus else None for k in range(len(self.shares))]
+        self._allowed_before: set[int] | None = None
         try:
-            for share in self.shares:
-                self._start_worker()
-                self._connections[-1].send(("start", mission, float(step), share))
-            for index in range(len(self.shares)):
-                self._receive(index, WORKER_START_TIMEOUT_S, "start")
+            for index, share in enumerate(self.shares[1:], start=1):
+                self._start_worker(mission, step, share, self._cpu_of[index])
+                self._started.append(False)
+            self._allowed_before = pin_to(self._cpu_of[0])
+            # Built while the workers build theirs (a fresh set of builds, as a worker's:
+            # a run does not borrow the builds of this thread's earlier runs).
+            self._local = LocalControllers(mission, step, self.shares[0],
+                                           builds=SharedProblems())
         except BaseException:
             self.close()
             raise
 
     @property
     def workers(self) -> int:
+        """Processes answering: this one and the worker processes."""
         return len(self.shares)
 
-    def _start_worker(self) -> None:
+    @property
+    def worker_pids(self) -> list[int]:
+        """The worker processes' ids, in the order of `shares[1:]`."""
+        return [process.pid for process in self._processes]
+
+    def _start_worker(
+        self, mission: Mission, step: float, names: list[str], cpu: int | None
+    ) -> None:
         ours, theirs = socket.socketpair()
         with ours, theirs:
-            process = subprocess.Popen(
-                [sys.executable, "-m", "coverage_fleet.fleet.controller_pool",
-                 str(theirs.fileno())],
-                pass_fds=(theirs.fileno(),), stdin=subprocess.DEVNULL,
-                start_new_session=True, env={**os.environ, **PINNED_THREADS},
+            # The sockets of the workers started before stay with this process alone.
+            inherited = [c.fileno() for c in self._connections] + [ours.fileno()]
+            process = _FORK.Process(
+                target=_worker_main, name=f"controller-worker-{len(self._processes) + 1}",
+                args=(theirs.fileno(), inherited, mission, float(step), names, cpu),
+                daemon=True,
             )
+            process.start()
             self._processes.append(process)
             self._connections.append(Connection(ours.detach()))
 
-    def _receive(self, index: int, timeout: float | None, doing: str) -> Any:
-        connection, process = self._connections[index], self._processes[index]
+    def _receive(self, worker: int, timeout: float | None, doing: str) -> Any:
+        """The next message of worker `worker` (0 is the first worker process)."""
+        connection, process = self._connections[worker], self._processes[worker]
         if timeout is not None:
             waited = 0.0
             while not connection.poll(_POLL_S):
                 raise_if_interrupted()
                 waited += _POLL_S
-                if process.poll() is not None or waited > timeout:
-                    why = ("no answer" if process.poll() is None
-                           else f"exit status {process.returncode}")
+                if not process.is_alive() or waited > timeout:
+                    why = ("no answer" if process.is_alive()
+                           else f"exit status {process.exitcode}")
                     raise ConfigError.single(
                         "command line", "--workers",
-                        f"controller worker {index} did not {doing} ({why})")
+                        f"controller worker {worker + 1} did not {doing} ({why})")
         try:
             kind, payload = connection.recv()
         except (EOFError, OSError):
             raise RuntimeError(
-                f"controller worker {index} ended during {doing} (exit status "
-                f"{process.poll()}); its error is above") from None
+                f"controller worker {worker + 1} ended during {doing} (exit status "
+                f"{process.exitcode}); its error is above") from None
         if kind == "error":
-            raise RuntimeError(f"controller worker {index} failed during {doing}:\n{payload}")
+            raise RuntimeError(
+                f"controller worker {worker + 1} failed during {doing}:\n{payload}")
         return payload
 
     def set_target(
         self, name: str, key: Hashable, target: np.ndarray, distance_at_commit: float
     ) -> None:
-        self._targets[self._worker_of[name]].append(
-            (name, key, np.asarray(target, float), float(distance_at_commit)))
+        process = self._worker_of[name]
+        if process == 0:
+            self._local.set_target(name, key, target, distance_at_commit)
+        else:
+            self._targets[process].append(
+                (name, key, np.asarray(target, float), float(distance_at_commit)))
 
     def add_snapshot(self, snapshot: FleetSnapshot) -> None:
+        self._local.add_snapshot(snapshot)
         self._snapshots.append(snapshot)
 
     def answer_all(
         self, states: Mapping[str, np.ndarray], state_time: float
     ) -> dict[str, Answer]:
-        # Send to every worker first, then collect: the workers solve at the same time.
-        for index, share in enumerate(self.shares):
-            batch = [(name, states[name]) for name in share if name in states]
-            self._connections[index].send(
-                ("answer", float(state_time), self._targets[index], self._snapshots, batch))
-            self._targets[index] = []
+        # Send to every worker first, then answer this process's share, then collect: all
+        # processes solve at the same time.
+        for process in range(1, len(self.shares)):
+            batch = [(name, states[name]) for name in self.shares[process] if name in states]
+            self._connections[process - 1].send(
+                ("answer", float(state_time), self._targets[process], self._snapshots, batch))
+            self._targets[process] = []
         self._snapshots = []
-        answers: dict[str, Answer] = {}
-        busiest = 0.0
-        for index in range(len(self.shares)):
-            share_answers, busy, cpu = self._receive(index, None, "a tick")
+        started, cpu_started = time.perf_counter(), time.process_time()
+        answers = self._local.answer_all(
+            {name: states[name] for name in self.shares[0] if name in states}, state_time)
+        busiest = time.perf_counter() - started
+        self.busy_seconds[0] += busiest
+        self.cpu_seconds[0] += time.process_time() - cpu_started
+        for process in range(1, len(self.shares)):
+            if not self._started[process - 1]:
+                self._receive(process - 1, WORKER_START_TIMEOUT_S, "start")
+                self._started[process - 1] = True
+            share_answers, busy, cpu = self._receive(process - 1, None, "a tick")
             answers.update(share_answers)
-            self.busy_seconds[index] += busy
-            self.cpu_seconds[index] += cpu
+            self.busy_seconds[process] += busy
+            self.cpu_seconds[process] += cpu
             busiest = max(busiest, busy)
         self.critical_seconds += busiest
         return {name: answers[name] for name in states}
 
     def close(self) -> None:
-        """Ask every worker to stop, close the sockets, kill a worker that does not end."""
+        """Ask every worker to stop, close the sockets, kill a worker that does not end;
+        this thread may run on its former CPUs again."""
         for connection in self._connections:
             with contextlib.suppress(OSError, ValueError):
                 connection.send(("stop", None))
             connection.close()
         for process in self._processes:
-            try:
-                process.wait(timeout=WORKER_STOP_TIMEOUT_S)
-            except subprocess.TimeoutExpired:
+            process.join(WORKER_STOP_TIMEOUT_S)
+            if process.is_alive():
                 process.kill()
-                process.wait()
+                process.join()
         self._connections, self._processes = [], []
+        if self._allowed_before is not None:
+            with contextlib.suppress(OSError):
+                os.sched_setaffinity(0, self._allowed_before)
+            self._allowed_before = None
 
     def __enter__(self) -> ControllerPool:
         return self
@@ -202,15 +320,25 @@ class ControllerPool:
         self.close()
 
 
-def serve(connection: Connection) -> None:
-    """The worker's side: build the controllers named in the start message, then answer
-    ticks until told to stop or the socket closes. Faults go back as ("error", traceback)."""
+def _worker_main(
+    descriptor: int, inherited: list[int], mission: Mission, step: float, names: list[str],
+    cpu: int | None,
+) -> None:
+    """A forked worker's first steps: a session of its own (a terminal's Ctrl-C reaches only
+    the parent), only its own socket, its CPU; then `serve`."""
+    os.setsid()
+    for other in inherited:
+        with contextlib.suppress(OSError):
+            os.close(other)
+    pin_to(cpu)
+    serve(Connection(descriptor), mission, step, names)
+
+
+def serve(connection: Connection, mission: Mission, step: float, names: list[str]) -> None:
+    """The worker's side: build the controllers of `names`, say "ready", then answer ticks
+    until told to stop or the socket closes. Faults go back as ("error", traceback)."""
     try:
-        _, mission, step, names = connection.recv()
-    except EOFError:
-        return
-    try:
-        controllers = LocalControllers(mission, step, names)
+        controllers = LocalControllers(mission, step, names, builds=SharedProblems())
     except Exception:
         connection.send(("error", traceback.format_exc()))
         return
@@ -236,6 +364,3 @@ def serve(connection: Connection) -> None:
         busy = time.perf_counter() - started
         connection.send(("answers", (answers, busy, time.process_time() - cpu_started)))
 
-
-if __name__ == "__main__":
-    serve(Connection(int(sys.argv[1])))

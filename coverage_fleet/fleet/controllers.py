@@ -3,8 +3,9 @@ robot's state at each tick.
 
 Two ways to hold them, with the same interface (`FleetControllers`):
 - `LocalControllers`: every controller in this process (one core);
-- `fleet/controller_pool.ControllerPool`: the controllers split over worker processes
-  (`assign_robots`), each worker holding its robots' controllers from start to end.
+- `fleet/controller_pool.ControllerPool`: the controllers split over this process and
+  worker processes (`assign_robots`), each process holding its robots' controllers from
+  start to end.
 
 Both give the same answers for the same states: a controller's answer depends only on the
 states, targets, snapshots and times it was given and on its own history (warm start, held
@@ -19,6 +20,8 @@ of that tick.
 
 from __future__ import annotations
 
+import itertools
+import math
 from collections.abc import Hashable, Mapping, Sequence
 from typing import Protocol
 
@@ -164,24 +167,116 @@ class LocalControllers:
 def solve_weight(entry: RobotEntry, step: float) -> float:
     """A robot's expected share of solve work per tick: the size of its MPC (states plus
     inputs, over the horizon) times how often it solves (one tick in sample_time / step)."""
+    return solve_size(entry) * step / entry.vehicle.mpc.sample_time
+
+
+def solve_size(entry: RobotEntry) -> float:
+    """The expected work of one of the robot's solves: the size of its MPC (states plus
+    inputs, over the horizon)."""
     model, mpc = entry.vehicle.model, entry.vehicle.mpc
-    return (model.nx + model.nu) * mpc.horizon * step / mpc.sample_time
+    return float((model.nx + model.nu) * mpc.horizon)
+
+
+def solve_period(entry: RobotEntry, step: float) -> int:
+    """Ticks from one of the robot's samples to the next (at least 1)."""
+    return max(1, round(entry.vehicle.mpc.sample_time / step))
+
+
+#: Longest cycle of ticks the split balances tick by tick (the least common multiple of the
+#: fleet's sample periods; a longer one is balanced on its mean alone).
+PHASE_CYCLE_MAX = 64
+
+
+def phase_loads(roster: Sequence[RobotEntry], step: float) -> np.ndarray:
+    """Each robot's expected solve work at each tick of the fleet's sampling cycle
+    (robots x ticks): every robot samples at tick 0 and then every `solve_period` ticks, so
+    robots of a slower vehicle all solve on the same ticks (a fleet of 0.1 s and 0.2 s
+    vehicles at 0.1 s steps: a heavy tick, then a light one). A cycle longer than
+    PHASE_CYCLE_MAX ticks is replaced by its mean (one column)."""
+    periods = [solve_period(entry, step) for entry in roster]
+    cycle = math.lcm(*periods) if periods else 1
+    if cycle > PHASE_CYCLE_MAX:
+        return np.array([[solve_weight(entry, step)] for entry in roster]).reshape(-1, 1)
+    ticks = np.arange(cycle)
+    return np.array([
+        np.where(ticks % period == 0, solve_size(entry), 0.0)
+        for entry, period in zip(roster, periods, strict=True)
+    ]).reshape(len(roster), cycle)
+
+
+#: What one process's builds of one vehicle file's MPC problems cost, in `solve_size` units
+#: (the work of one solve): the builds of a 16-robot run of the four shipped vehicle types
+#: (benchmarks/fleet_sim_benchmark.py, 20 s simulated, one process) took 1.9-2.1 s, 15
+#: problems (vehicle types times keep-apart row budgets) and 7 full solvers, about 0.5 s a
+#: vehicle type, while a rover's solve (size 100) took 0.8 ms: 0.5 s is about 60 000 units.
+#: Every process that holds a robot of a vehicle file pays them again (casadi objects do
+#: not pickle), so on a short run a split that keeps the robots of one vehicle file
+#: together can beat one that balances each tick.
+BUILD_WORK = 60_000.0
+#: Splits of whole vehicle groups tried at most (processes ** groups); beyond, only the
+#: robot-by-robot split.
+GROUP_SPLITS_MAX = 4096
 
 
 def assign_robots(
-    roster: Sequence[RobotEntry], step: float, workers: int
+    roster: Sequence[RobotEntry], step: float, workers: int, ticks: int | None = None
 ) -> list[list[str]]:
-    """Robot names per worker, balanced by expected solve work: heaviest first, each to the
-    worker with the least work so far (ties: the lower worker, then roster order), so that a
-    mixed fleet does not put all its slow vehicles on one worker. Deterministic; within a
-    worker the names keep roster order. Workers left without a robot are dropped."""
-    order = sorted(
-        range(len(roster)), key=lambda k: (-solve_weight(roster[k], step), k)
-    )
-    loads = [0.0] * workers
-    shares: list[list[int]] = [[] for _ in range(workers)]
-    for k in order:
-        target = min(range(workers), key=lambda w: (loads[w], w))
-        loads[target] += solve_weight(roster[k], step)
-        shares[target].append(k)
-    return [[roster[k].name for k in sorted(share)] for share in shares if share]
+    """Robot names per process (exactly `workers` lists, some possibly empty), for the
+    least expected critical work per tick, `split_work`: the busiest process's solve work at
+    each tick of the sampling cycle (`phase_loads`), plus, for a run of `ticks` ticks, the
+    builds each process pays for every vehicle file it holds (BUILD_WORK spread over the
+    run; None: a run long enough that they do not count). Two candidates, the lighter kept
+    (ties: the first):
+    - robot by robot: heaviest robot first (mean work per tick), each to the process whose
+      busiest tick stays lightest, builds included (ties: the lighter process over the
+      cycle, then the lower one); with one tick per cycle and no builds this is the
+      longest-processing-time-first rule. It spreads the robots that solve on the same
+      ticks (0.2 s vessels among 0.1 s vehicles) over the processes;
+    - whole vehicle groups (the robots of one vehicle file), every way of placing them
+      (up to GROUP_SPLITS_MAX): each process builds fewer vehicle files.
+    Deterministic; within a process the names keep roster order."""
+    if workers < 1:
+        raise ValueError(f"workers must be at least 1, got {workers}")
+    loads = phase_loads(roster, step)
+    groups = [entry.vehicle.cache_key for entry in roster]
+    build = 0.0 if ticks is None else BUILD_WORK / max(1, ticks)
+    candidates = [_robot_by_robot(loads, groups, workers, build)]
+    kinds = list(dict.fromkeys(groups))
+    if workers > 1 and len(kinds) > 1 and workers ** len(kinds) <= GROUP_SPLITS_MAX:
+        for placing in itertools.product(range(workers), repeat=len(kinds)):
+            home = dict(zip(kinds, placing, strict=True))
+            candidates.append([home[g] for g in groups])
+    best = min(candidates, key=lambda split: split_work(loads, groups, split, workers, build))
+    return [[roster[k].name for k in range(len(roster)) if best[k] == w]
+            for w in range(workers)]
+
+
+def split_work(
+    loads: np.ndarray, groups: Sequence[str], split: Sequence[int], workers: int, build: float
+) -> float:
+    """The expected critical work per tick of a split (the process of each robot): mean over
+    the cycle's ticks of the busiest process's work, each process's including `build` per
+    vehicle group it holds."""
+    work = np.zeros((workers, loads.shape[1]))
+    held: list[set[str]] = [set() for _ in range(workers)]
+    for k, w in enumerate(split):
+        work[w] += loads[k]
+        held[w].add(groups[k])
+    work += build * np.array([len(h) for h in held], dtype=float)[:, None]
+    return float(work.max(axis=0).mean())
+
+
+def _robot_by_robot(
+    loads: np.ndarray, groups: Sequence[str], workers: int, build: float
+) -> list[int]:
+    work = np.zeros((workers, loads.shape[1]))
+    held: list[set[str]] = [set() for _ in range(workers)]
+    split = [0] * len(groups)
+    for k in sorted(range(len(groups)), key=lambda k: (-loads[k].mean(), k)):
+        after = [work[w] + loads[k] + (0.0 if groups[k] in held[w] else build)
+                 for w in range(workers)]
+        target = min(range(workers), key=lambda w: (after[w].max(), after[w].sum(), w))
+        work[target] = after[target]
+        held[target].add(groups[k])
+        split[k] = target
+    return split

@@ -61,17 +61,19 @@ def simulate_mission(
     (as the ROS graph does); settled_time and stuck_time are then the first times the
     settle monitor reported the fleet settled or stuck.
 
-    workers > 1 runs the controllers on that many worker processes
-    (fleet/controller_pool.py; the log is the same but for the measured solve times);
-    1 keeps everything in this process. `stage_times`, if given, receives the wall time per
-    stage (fleet/step.StageTimes). share_builds=False makes every controller in this
-    process build its own MPC problems (control/shared_problems.py; the same log).
+    workers > 1 runs the controllers over that many processes, this one and workers - 1
+    worker processes (fleet/controller_pool.py; the log is the same but for the measured
+    solve times); 1 keeps everything in this process. `stage_times`, if given, receives
+    the wall time per stage (fleet/step.StageTimes). share_builds=False makes every
+    controller in this process build its own MPC problems (control/shared_problems.py; the
+    same log).
     """
     settings = mission.simulation
     seed = settings.seed if seed is None else int(seed)
     duration = settings.duration if duration is None else float(duration)
     step = simulation_step(mission.roster, settings)
-    pool = ControllerPool(mission, step, workers) if workers > 1 else None
+    ticks = int(np.floor(duration / step + 1e-9)) + 1
+    pool = ControllerPool(mission, step, workers, ticks) if workers > 1 else None
     try:
         controllers = (
             pool if pool is not None

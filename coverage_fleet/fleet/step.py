@@ -75,12 +75,13 @@ class StageTimes:
     ticks: int = 0
     robot_steps: int = 0
     solves_run: int = 0
-    #: Controllers on worker processes (fleet/controller_pool.py): seconds each worker
-    #: spent answering, and the sum over ticks of the busiest worker's (both within
-    #: `solves`; the rest of `solves` is idle workers, messages and wake-ups).
+    #: Controllers over processes (fleet/controller_pool.py): seconds each process spent
+    #: answering (this process's own share first, then each worker's), and the sum over
+    #: ticks of the busiest process's (both within `solves`; the rest of `solves` is idle
+    #: processes, messages and wake-ups).
     worker_busy: tuple[float, ...] = ()
     worker_critical: float = 0.0
-    #: CPU seconds each worker process used within its busy time (time.process_time): less
+    #: CPU seconds each process used within its busy time (time.process_time): less
     #: than `worker_busy` by the time the worker waited for a core (other processes on a
     #: shared machine), which the measured solve times include.
     worker_cpu: tuple[float, ...] = ()
@@ -108,7 +109,7 @@ class FleetStep:
     """The offline fleet: plants, base station and one sampled controller per robot.
 
     `controllers` default to all in this process (`LocalControllers`); pass a
-    `controller_pool.ControllerPool` to run them on worker processes (same answers).
+    `controller_pool.ControllerPool` to run them over processes (same answers).
     The caller closes what it passed in. Time per stage accumulates in `times`."""
 
     def __init__(
