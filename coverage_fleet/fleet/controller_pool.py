@@ -19,14 +19,16 @@ cores):
   start, 16 robots). It works because this process runs no Python thread of its own at
   that moment (the only other threads are the BLAS libraries' pools, which prepare for a
   fork themselves); the worker then uses the libraries exactly as this process does, BLAS
-  threads included, so its answers are the ones this process would give. POSIX only, as
-  the socket pairs already were.
+  threads included, so its answers are the ones this process would give. What it inherits
+  is frozen for its garbage collector (gc.freeze across the fork), which would otherwise
+  walk this process's heap (an earlier run's builds and logs too) in every full pass.
+  POSIX only, as the socket pairs already were.
 - A worker holds its robots' sampled controllers for the whole run: warm starts, held
   inputs and fallback plans stay where they were made, and only states, targets and
   answers cross the process boundary (a few hundred bytes per robot and tick). The MPC
   problems are built after the fork, in the process that solves them (casadi objects do
   not pickle, and a build is only made when a robot first needs it: 15 problems and 7 full
-  solvers, 1.9-2.1 s, in a 16-robot run of four vehicle types), so every process builds
+  solvers, 1.2-1.5 s, in a 16-robot run of four vehicle types), so every process builds
   the problems of the vehicle files it holds; the split weighs that
   (`controllers.assign_robots`). The terminal ingredients are computed (or read) once
   here first (control/terminal.py). This process's own share gets a fresh set of builds
@@ -57,13 +59,14 @@ cores):
   targets and keep-apart snapshots) before it answers its own share and then waits for
   the replies, so all processes solve at the same time; the answers are put back in
   roster order.
-- Measured at 16 and 64 robots (benchmarks/fleet_sim_benchmark.py, quiet 2-core machine):
-  the tick loop 1.24x and 1.36x as fast as one process (setup + loop 1.25x and 1.35x);
-  before these changes 1.00x and 0.98x (setup + loop 0.79x and 0.73x). What keeps it
-  from 2x: the bursts above (the busiest process per tick 86 % of the loop against 58 % and
-  72 % busy at 16 robots), the partition, gate, plants and records (about 10 % of the
-  loop, the workers idle), and the same robots' answers taking 7-19 % longer in a pooled
-  process than in one process (two busy cores, waits between ticks).
+- Measured (benchmarks/fleet_sim_benchmark.py, quiet 2-core machine, before and after these
+  changes one right after the other): the tick loop on 2 processes against one process at
+  4 / 16 / 64 robots 1.09x / 1.13x / 1.43x before, 1.29x / 1.40x / 1.51-1.61x after;
+  setup + loop 0.76x / 0.86x / 1.04x before, 1.28x / 1.38x / 1.49-1.57x after. A pooled
+  solve now takes as long as in one process (mean 1.08 against 1.09 ms at 16 robots).
+  What keeps it from 2x: the bursts above and the fixed split (at 16 robots the busiest
+  process per tick is 85 % of the loop against 62 % and 69 % busy), and the partition,
+  gate, plants and records (about 10 % of the loop), while the workers wait.
 - Same results as in one process: a controller's answer depends only on what it was given
   and on its own history, never on where it runs. Only the measured solve times differ
   from run to run (as they do between two runs in one process).
@@ -80,6 +83,7 @@ cores):
 from __future__ import annotations
 
 import contextlib
+import gc
 import multiprocessing
 import multiprocessing.process
 import os
@@ -189,9 +193,17 @@ class ControllerPool:
         self._cpu_of = [cpus[k % len(cpus)] if cpus else None for k in range(len(self.shares))]
         self._allowed_before: set[int] | None = None
         try:
-            for index, share in enumerate(self.shares[1:], start=1):
-                self._start_worker(mission, step, share, self._cpu_of[index])
-                self._started.append(False)
+            # What the workers inherit is kept out of their garbage collector's passes
+            # (frozen across the fork, Python's gc.freeze documentation): a worker would
+            # otherwise walk this process's whole heap (an earlier run's builds and logs
+            # included) again and again.
+            gc.freeze()
+            try:
+                for index, share in enumerate(self.shares[1:], start=1):
+                    self._start_worker(mission, step, share, self._cpu_of[index])
+                    self._started.append(False)
+            finally:
+                gc.unfreeze()
             self._allowed_before = pin_to(self._cpu_of[0])
             # Built while the workers build theirs (a fresh set of builds, as a worker's:
             # a run does not borrow the builds of this thread's earlier runs).

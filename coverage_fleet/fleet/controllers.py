@@ -206,9 +206,10 @@ def phase_loads(roster: Sequence[RobotEntry], step: float) -> np.ndarray:
 
 #: What one process's builds of one vehicle file's MPC problems cost, in `solve_size` units
 #: (the work of one solve): the builds of a 16-robot run of the four shipped vehicle types
-#: (benchmarks/fleet_sim_benchmark.py, 20 s simulated, one process) took 1.9-2.1 s, 15
-#: problems (vehicle types times keep-apart row budgets) and 7 full solvers, about 0.5 s a
-#: vehicle type, while a rover's solve (size 100) took 0.8 ms: 0.5 s is about 60 000 units.
+#: (benchmarks/fleet_sim_benchmark.py, 20 s simulated, one process: 15 problems, vehicle
+#: types times keep-apart row budgets, and 7 full solvers) took 1.9-2.1 s while a solve of
+#: size 100 (the rover's) took 0.8 ms, and 1.2-1.5 s against 0.6 ms after the faster builds
+#: of 56ad906: 0.3-0.5 s a vehicle type, 50 000-65 000 units.
 #: Every process that holds a robot of a vehicle file pays them again (casadi objects do
 #: not pickle), so on a short run a split that keeps the robots of one vehicle file
 #: together can beat one that balances each tick.
