@@ -128,7 +128,7 @@ def test_gaussian_and_raster_densities_lower_the_cost_monotonically() -> None:
          GaussianBump(0.5, np.array([0.8, 0.7]), np.array([[0.02, 0.01], [0.01, 0.02]]))],
         background=0.05)
     result = lloyd(start, UNIT_SQUARE, bumps, max_iterations=40, tolerance=1e-9)
-    assert_non_increasing(result.costs, 1e-8)  # quadrature: relative 1e-9
+    assert_non_increasing(result.costs, 1e-8)  # rounding of the moments
     assert result.costs[-1] < 0.7 * result.costs[0]
     # The agents gather where the mass is: more of them nearer the heavier bump.
     near_heavy = np.linalg.norm(result.positions[-1] - [0.3, 0.3], axis=1) < 0.3

@@ -1,4 +1,4 @@
-"""Densities: quadrature rule exactness, Gaussian moments against scipy.integrate, raster
+"""Densities: Gaussian moments against scipy.integrate, raster
 scanline moments against exact cell-by-cell clipping with shapely, the PGM reader against
 Pillow, and the configuration errors the mission loader relies on."""
 
@@ -24,53 +24,9 @@ from coverage_fleet.geometry.density import (
 )
 from coverage_fleet.geometry.partition import compute_partition, voronoi_cells
 from coverage_fleet.geometry.polygon import uniform_moments
-from coverage_fleet.geometry.quadrature import RULE_WEIGHTS, fan_quadrature, subdivided_rule
 from coverage_fleet.geometry.region import ConvexRegion
 
 SQUARE = ConvexRegion.from_vertices([[0, 0], [4, 0], [4, 3], [0, 3]])
-
-
-# --- quadrature ---------------------------------------------------------------------
-
-
-@pytest.mark.parametrize("pieces", [1, 3])
-def test_triangle_rule_is_exact_to_degree_six(pieces) -> None:
-    """Integral of x^a y^b over the triangle (0,0), (1,0), (0,1) is a! b! / (a + b + 2)!
-    (area-coordinate integration formula, Zienkiewicz & Taylor, "The Finite Element
-    Method", vol. 1, 5th ed., 2000, sec. 8.9). The rule carries weights summing to 1, so
-    the integral is (1/2) * sum(w f)."""
-    points, weights = subdivided_rule(pieces)
-    assert weights.sum() == pytest.approx(1.0, abs=1e-14)
-    assert RULE_WEIGHTS.sum() == pytest.approx(1.0, abs=1e-12)
-    for a in range(7):
-        for b in range(7 - a):
-            exact = math.factorial(a) * math.factorial(b) / math.factorial(a + b + 2)
-            rule = 0.5 * np.sum(weights * points[:, 0] ** a * points[:, 1] ** b)
-            assert rule == pytest.approx(exact, rel=1e-12), (a, b)
-    # Degree 8 is beyond the rule on one piece: the check above can tell the difference.
-    if pieces == 1:
-        rule = 0.5 * np.sum(weights * points[:, 0] ** 8)
-        assert abs(rule - math.factorial(8) / math.factorial(10)) > 1e-8
-
-
-def test_fan_quadrature_integrates_low_degree_polynomials_over_polygons_exactly() -> None:
-    """Over several convex polygons at once: area, first and polar moments from the
-    quadrature equal shapely's area and centroid and the rectangle handbook formula."""
-    pentagon = np.array([[0, 0], [4, -1], [6, 2], [3, 5], [-1, 3]], dtype=float)
-    rectangle = np.array([[1, 1], [4, 1], [4, 3], [1, 3]], dtype=float)
-    points, weights, owner = fan_quadrature([pentagon, np.zeros((0, 2)), rectangle], 0.7)
-    assert set(owner.tolist()) == {0, 2}
-    for index, polygon in ((0, pentagon), (2, rectangle)):
-        pick = owner == index
-        reference = shapely.Polygon(polygon)
-        assert weights[pick].sum() == pytest.approx(reference.area, rel=1e-12)
-        centroid = weights[pick] @ points[pick] / weights[pick].sum()
-        np.testing.assert_allclose(centroid, [reference.centroid.x, reference.centroid.y],
-                                   rtol=1e-12)
-    pick = owner == 2
-    polar = weights[pick] @ np.sum((points[pick] - [2.5, 2.0]) ** 2, axis=1)
-    # b*h*(b^2 + h^2)/12 with b = 3, h = 2 (rectangle polar moment, handbook formula).
-    assert polar == pytest.approx(3 * 2 * (9 + 4) / 12, rel=1e-12)
 
 
 # --- Gaussian bumps ---------------------------------------------------------------------
@@ -81,12 +37,24 @@ def one_d(f, low: float, high: float) -> float:
     return value
 
 
-@pytest.mark.parametrize(("sigma_x", "sigma_y"), [(0.3, 0.5), (2.0, 1.5), (0.05, 0.08)])
-def test_gaussian_moments_on_a_rectangle_match_scipy_quad(sigma_x, sigma_y) -> None:
+@pytest.mark.parametrize(
+    ("sigma_x", "sigma_y", "mean"),
+    [
+        (0.3, 0.5, (1.1, 2.2)),
+        (2.0, 1.5, (1.1, 2.2)),
+        (0.05, 0.08, (1.1, 2.2)),
+        (0.7, 0.4, (2.0, 0.0)),  # the mean on an edge of the rectangle
+        (0.7, 0.4, (4.0, 3.0)),  # the mean on a corner
+        (0.6, 0.2, (5.5, 1.0)),  # the mean outside, the bump partly in
+    ],
+)
+def test_gaussian_moments_on_a_rectangle_match_scipy_quad(sigma_x, sigma_y, mean) -> None:
     """Axis-aligned bump: the moments factorise into 1-D integrals, computed with
-    scipy.integrate.quad (QUADPACK) as the reference. Relative error bound claimed in
-    density.QUADRATURE_SPACING: 1e-9."""
-    mean = np.array([1.1, 2.2])
+    scipy.integrate.quad (QUADPACK) as the reference. The closed form
+    (geometry/gaussian_moments.py) agrees to 1e-12; the quadrature it replaced was good to
+    1e-9 (worst seen 6e-10). A mean on an edge or a corner puts an edge's line through the
+    origin of the whitened coordinates (h = 0 there)."""
+    mean = np.array(mean, dtype=float)
     weight = 3.0
     density = GaussianBumpsDensity([GaussianBump(weight, mean, np.diag([sigma_x**2,
                                                                         sigma_y**2]))])
@@ -102,10 +70,10 @@ def test_gaussian_moments_on_a_rectangle_match_scipy_quad(sigma_x, sigma_y) -> N
     x2 = one_d(lambda t: (t - agent[0]) ** 2 * pdf(t, mean[0], sigma_x), 0, 4)
     y2 = one_d(lambda t: (t - agent[1]) ** 2 * pdf(t, mean[1], sigma_y), 0, 3)
     got = density.moments([SQUARE.vertices], agent[None])
-    assert got.mass[0] == pytest.approx(weight * x0 * y0, rel=1e-9)
+    assert got.mass[0] == pytest.approx(weight * x0 * y0, rel=1e-12)
     np.testing.assert_allclose(got.first[0], weight * np.array([x1 * y0, x0 * y1]),
-                               rtol=1e-9, atol=1e-12)
-    assert got.polar[0] == pytest.approx(weight * (x2 * y0 + x0 * y2), rel=1e-9)
+                               rtol=1e-12, atol=1e-15)
+    assert got.polar[0] == pytest.approx(weight * (x2 * y0 + x0 * y2), rel=1e-12)
 
 
 def test_correlated_gaussian_on_a_triangle_matches_scipy_dblquad() -> None:
@@ -133,9 +101,40 @@ def test_correlated_gaussian_on_a_triangle_matches_scipy_dblquad() -> None:
     fx = over_triangle(lambda y, x: x - agent[0])
     polar = over_triangle(lambda y, x: (x - agent[0]) ** 2 + (y - agent[1]) ** 2)
     got = density.moments([np.array([[0, 0], [3, 0], [1, 2]], dtype=float)], agent[None])
-    assert got.mass[0] == pytest.approx(mass, rel=1e-9)
-    assert got.first[0, 0] == pytest.approx(fx, rel=1e-9)
-    assert got.polar[0] == pytest.approx(polar, rel=1e-9)
+    assert got.mass[0] == pytest.approx(mass, rel=1e-11)
+    assert got.first[0, 0] == pytest.approx(fx, rel=1e-11)
+    assert got.polar[0] == pytest.approx(polar, rel=1e-11)
+
+
+@pytest.mark.parametrize(
+    ("low", "side"), [((3.0, 0.2), 0.01), ((2.5, 1.1), 0.001), ((2.0, 0.7), 0.05)]
+)
+def test_small_cell_far_from_a_bump_keeps_its_relative_precision(low, side) -> None:
+    """Cells of 1 mm to 5 cm, 4-6 standard deviations from a bump, no background: their
+    mass is 1e-7 to 1e-13 of the bump's, so terms of the bump's own size that cancel would
+    leave errors of 1e-5 of it (measured before geometry/gaussian_moments.py took the
+    winding number whole and Owen's identity for edges pointing at the bump) and a
+    centroid anywhere. Reference: the bump is isotropic, so the moments factorise into
+    1-D integrals (scipy.integrate.quad, QUADPACK), as in the rectangle test above."""
+    sigma = 0.5
+    density = GaussianBumpsDensity([GaussianBump(1.0, np.zeros(2), np.eye(2) * sigma**2)])
+    low = np.array(low)
+    square = low + side * np.array([[0, 0], [1, 0], [1, 1], [0, 1]], dtype=float)
+
+    def pdf(t):
+        return math.exp(-0.5 * (t / sigma) ** 2) / (sigma * math.sqrt(2 * math.pi))
+
+    x0 = one_d(pdf, low[0], low[0] + side)
+    y0 = one_d(pdf, low[1], low[1] + side)
+    x1 = one_d(lambda t: (t - low[0]) * pdf(t), low[0], low[0] + side)
+    got = density.moments([square], low[None])
+    # abs=0: pytest.approx's default absolute tolerance (1e-12) would pass any mass here.
+    assert got.mass[0] == pytest.approx(x0 * y0, rel=1e-9, abs=0.0)
+    centroid = low + got.first[0] / got.mass[0]
+    assert np.all(centroid > low) and np.all(centroid < low + side)
+    # Measured: within 3e-7 of the side (the first moment about a point 2.7 m from the
+    # bump's centre cancels terms 1e3 times its size); 3e-5 of it before.
+    assert abs(centroid[0] - (low[0] + x1 / x0)) < 1e-6 * side
 
 
 def test_gaussian_evaluate_is_the_normal_pdf() -> None:

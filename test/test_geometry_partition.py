@@ -265,7 +265,7 @@ BUMPS = GaussianBumpsDensity(
 @given(points_strategy, st.sampled_from(["raster", "bumps"]))
 def test_masses_sum_to_the_density_mass_in_the_region(point_list, kind) -> None:
     """Partition property for non-uniform densities: cell masses add up to the density's
-    mass in the region (exact raster integration; bump quadrature to 1e-9), and every
+    mass in the region (exact raster integration, closed-form bump moments), and every
     centroid lies inside its own cell (a convex cell contains its mass centroid)."""
     density = RASTER if kind == "raster" else BUMPS
     points = np.array(point_list, dtype=float)

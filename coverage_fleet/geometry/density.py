@@ -6,8 +6,9 @@ the partition needs, and batching lets the raster density answer for all cells a
 
 Three kinds, each with the integration that suits it:
 - UniformDensity: exact closed-form polygon moments.
-- GaussianBumpsDensity: background (exact) + bumps by quadrature in each bump's whitened
-  coordinates (relative error below 1e-9, see QUADRATURE_SPACING).
+- GaussianBumpsDensity: background (exact) + bumps in closed form in each bump's whitened
+  coordinates (Owen's T function and the normal distribution function over the cells'
+  edges: geometry/gaussian_moments.py).
 - RasterDensity: a piecewise-constant grid, integrated exactly from per-row prefix sums.
 
 Raster layout (files and inline values alike): rows are listed north first, i.e. the first
@@ -31,9 +32,8 @@ from typing import Any
 import numpy as np
 
 from coverage_fleet.errors import ConfigError, Problem
+from coverage_fleet.geometry.gaussian_moments import standard_normal_moments
 from coverage_fleet.geometry.geodetic import LocalFrame, check_lonlat
-from coverage_fleet.geometry.polygon import clip_halfplane
-from coverage_fleet.geometry.quadrature import fan_quadrature
 from coverage_fleet.geometry.raster_moments import (
     boundary_sums,
     cell_table,
@@ -50,13 +50,10 @@ from coverage_fleet.inputs.fields import (
 )
 from coverage_fleet.inputs.reader import decode_text, read_bytes
 
-#: Quadrature piece size in standard deviations of a bump. With the degree-6 rule this
-#: gives relative errors below 1e-9 on mass and moments (test_geometry_density measures it
-#: against scipy.integrate; worst case seen 6e-10, for a bump wider than the cell; 1.0
-#: would already exceed 1e-9).
-QUADRATURE_SPACING = 0.75
-#: Bumps are integrated over +-BUMP_CUTOFF standard deviations per whitened axis; the mass
-#: left out is below 2 * erfc(8.5 / sqrt(2)) ~ 2e-17 of the bump.
+#: A cell that lies wholly beyond +-BUMP_CUTOFF standard deviations of a bump along an axis
+#: gets none of it (the mass left out is below 2 * erfc(8.5 / sqrt(2)) ~ 2e-17 of the
+#: bump): exactly 0 rather than a sum of closed-form terms that cancel to rounding noise,
+#: which would give a cell holding nothing else a centroid anywhere.
 BUMP_CUTOFF = 8.5
 
 
@@ -177,37 +174,37 @@ class GaussianBumpsDensity(Density):
             mass, first, polar = base.mass.copy(), base.first.copy(), base.polar.copy()
         else:
             mass, first, polar = np.zeros(count), np.zeros((count, 2)), np.zeros(count)
-        box = [(np.array(n), BUMP_CUTOFF) for n in ((1, 0), (-1, 0), (0, 1), (0, -1))]
         lows = [p.min(axis=0) if len(p) >= 3 else None for p in polygons]
         highs = [p.max(axis=0) if len(p) >= 3 else None for p in polygons]
         for bump, chol in zip(self.bumps, self._chol, strict=True):
-            # Axis-aligned reach of the bump's cut-off, to skip far cells cheaply.
+            # Axis-aligned reach of the bump's cut-off: cells beyond it get nothing of it.
             reach = BUMP_CUTOFF * np.sqrt(np.diag(bump.covariance))
-            clipped, owners = [], []
-            for i, polygon in enumerate(polygons):
-                if lows[i] is None or np.any(lows[i] > bump.mean + reach) or np.any(
-                        highs[i] < bump.mean - reach):
-                    continue
-                # Whitened coordinates z = L^-1 (q - mean): the bump is a standard normal
-                # there, so one piece size (in standard deviations) suits every bump.
-                # det L > 0 keeps the polygon counter-clockwise.
-                local = np.linalg.solve(chol, (polygon - bump.mean).T).T
-                for normal, offset in box:
-                    local = clip_halfplane(local, normal, offset)
-                if len(local) >= 3:
-                    clipped.append(local)
-                    owners.append(i)
-            if not clipped:
+            near = [
+                i for i in range(count)
+                if lows[i] is not None
+                and not np.any(lows[i] > bump.mean + reach)
+                and not np.any(highs[i] < bump.mean - reach)
+            ]
+            if not near:
                 continue
-            z, w, which = fan_quadrature(clipped, QUADRATURE_SPACING)
-            owner = np.asarray(owners)[which]
-            w = w * (bump.weight / (2.0 * math.pi)) * np.exp(-0.5 * np.einsum("ij,ij->i", z, z))
-            rel = bump.mean - about[owner] + z @ chol.T
-            mass += np.bincount(owner, weights=w, minlength=count)
-            first[:, 0] += np.bincount(owner, weights=w * rel[:, 0], minlength=count)
-            first[:, 1] += np.bincount(owner, weights=w * rel[:, 1], minlength=count)
-            polar += np.bincount(owner, weights=w * np.einsum("ij,ij->i", rel, rel),
-                                 minlength=count)
+            # Whitened coordinates z = L^-1 (q - mean): the bump is the standard normal
+            # there (det L > 0 keeps the polygons counter-clockwise), and
+            # int f(q) N(q; mean, L L') dq = int f(mean + L z) phi(z) dz.
+            local = [np.linalg.solve(chol, (polygons[i] - bump.mean).T).T for i in near]
+            starts = np.cumsum([0] + [len(p) for p in local[:-1]])
+            z_mass, z_first, z_second = standard_normal_moments(
+                np.concatenate(local), starts, len(near)
+            )
+            offset = bump.mean - about[near]  # mean - a_i
+            lifted = z_first @ chol.T  # L int z phi
+            gram = chol.T @ chol
+            mass[near] += bump.weight * z_mass
+            first[near] += bump.weight * (offset * z_mass[:, None] + lifted)
+            polar[near] += bump.weight * (
+                np.einsum("ij,ij->i", offset, offset) * z_mass
+                + 2.0 * np.einsum("ij,ij->i", offset, lifted)
+                + np.einsum("kij,ij->k", z_second, gram)
+            )
         return CellMoments(mass, first, polar)
 
     def check_region(self, region: ConvexRegion, source: str, key: str) -> list[Problem]:
