@@ -41,9 +41,12 @@ machine; cost per robot-step flat as the fleet grows.
 
 Durations are short for large fleets so that the whole script takes a few minutes;
 `--quick` runs 4, 16 and 64 robots for even shorter durations (a check that it works).
+With those, the printed slope mixes fleet size with run length (a short run's cold starts
+and first builds weigh more per robot-step); `--duration S` runs every size for S
+simulated seconds, so that the slope says how the cost grows with the fleet alone.
 The machine may be shared: the load average is printed at the start and the end.
 Run: .venv/bin/python benchmarks/fleet_sim_benchmark.py [--quick] [--workers N]
-     [--sizes 4,16]
+     [--sizes 4,16] [--duration S]
 """
 
 from __future__ import annotations
@@ -188,13 +191,23 @@ def main() -> None:
                         help="processes of the method, this one included (default: one per "
                              "core)")
     parser.add_argument("--sizes", help="fleet sizes, comma-separated (default: all)")
+    parser.add_argument("--duration", type=float,
+                        help="simulated seconds for every size (default: shorter for larger "
+                             "fleets, see the module docstring)")
     args = parser.parse_args()
     if args.workers < 2:
         parser.error("--workers must be at least 2 (1 is the baseline)")
+    if args.duration is not None and not (math.isfinite(args.duration) and args.duration > 0):
+        parser.error(f"--duration must be a positive number of seconds, got {args.duration}")
     column = 1 if args.quick else 0
     sizes = [n for n in DURATIONS if DURATIONS[n][column] is not None]
     if args.sizes:
-        sizes = [int(text) for text in args.sizes.split(",")]
+        try:
+            sizes = [int(text) for text in args.sizes.split(",")]
+        except ValueError:
+            parser.error(f"--sizes takes whole numbers separated by commas, got {args.sizes!r}")
+        if any(n < 1 for n in sizes):
+            parser.error(f"--sizes must be at least 1 robot each, got {args.sizes!r}")
     print(f"fleet simulation benchmark, {load_text()}")
     print(f"  {'':<10} {'':>6}        {'':>7}        {'':>10}  {'':>7}              "
           + "  ".join(f"{s:>6}" for s in StageTimes.STAGES))
@@ -206,7 +219,7 @@ def main() -> None:
         compute_partition(np.array([e.initial_pose[:2] for e in warm.roster]), warm.region,
                           warm.density)
         for robots in sizes:
-            duration = DURATIONS.get(robots, (5.0, 1.0))[column] or 1.0
+            duration = args.duration or DURATIONS.get(robots, (5.0, 1.0))[column] or 1.0
             mission = survey_mission(robots, duration, Path(folder))
             print(f"{robots} robots ({', '.join(VEHICLES)} in turn), {duration:g} s simulated")
             cpu_started, wall_started = time.process_time(), time.perf_counter()
