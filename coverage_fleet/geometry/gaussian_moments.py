@@ -9,7 +9,9 @@ normal, h = a . n its signed distance from the origin, t from t_a = a . d to t_b
   r = h / cos(psi) on the edge (psi the angle from n, tan psi = t / h); and
   (1 / 2 pi) int_0^psi exp(-h^2 / (2 cos^2 s)) ds is Owen's T function T(h, tan psi)
   (D. B. Owen, "Tables for computing bivariate normal probabilities", Ann. Math. Statist.
-  27(4), 1956, eq. 2.1, with x = tan s). So the triangle holds
+  27(4), 1956: T(h, a) = (1 / 2 pi) int_0^a exp(-h^2 (1 + x^2) / 2) / (1 + x^2) dx, here
+  with x = tan s; the definition from memory, the results checked against scipy.integrate
+  by test_geometry_density; scipy.special.owens_t evaluates it). So the triangle holds
   dtheta / (2 pi) - sign(h) (T(|h|, t_b / |h|) - T(|h|, t_a / |h|)), dtheta its signed
   angle at the origin (0 for h = 0: a triangle with no area). The angles add up to the
   polygon's winding number about the origin.
@@ -43,20 +45,22 @@ WINDING_TOLERANCE = 1e-9
 def _owens_t_change(h: np.ndarray, t_a: np.ndarray, t_b: np.ndarray) -> np.ndarray:
     """T(h, t_b / h) - T(h, t_a / h) for h > 0. Where both ends lie beyond the foot of the
     perpendicular on the same side (|t| > h), by Owen's identity T(h, a) + T(ah, 1/a) =
-    Phi(h) / 2 + Phi(ah) / 2 - Phi(h) Phi(ah) (h, a >= 0; Owen 1956, eq. 2.3): both T
+    Phi(h) / 2 + Phi(ah) / 2 - Phi(h) Phi(ah) (h, a >= 0; Owen 1956, sec. 2, from
+    memory; test_geometry_density's small far cells fail without it): both T
     values there are near T(h, inf), up to 1/4, and a small cell's edge pointing at the
     origin would lose their difference (measured: a 1 cm cell 6 standard deviations out
     had its mass 3e-5 off), while the identity's terms are its own size."""
     far = (np.abs(t_a) > h) & (np.abs(t_b) > h) & (np.sign(t_a) == np.sign(t_b))
     direct = owens_t(h, t_b / h) - owens_t(h, t_a / h)
-    side = np.sign(t_b)
-    near_end, far_end = np.abs(t_a), np.abs(t_b)
-    gain = ndtr(-near_end) - ndtr(-far_end)  # Phi(|t_b|) - Phi(|t_a|), from the tails
+    side = np.sign(t_b)  # T is odd in a
+    end_a, end_b = np.abs(t_a), np.abs(t_b)
+    gain = ndtr(-end_a) - ndtr(-end_b)  # Phi(|t_b|) - Phi(|t_a|), from the tails
     with np.errstate(divide="ignore", invalid="ignore"):
+        # 1/2 - Phi(h) = -erf(h / sqrt 2) / 2.
         turned = side * (
             -0.5 * erf(h / math.sqrt(2.0)) * gain
-            - owens_t(far_end, h / far_end)
-            + owens_t(near_end, h / near_end)
+            - owens_t(end_b, h / end_b)
+            + owens_t(end_a, h / end_a)
         )
     return np.where(far, turned, direct)
 
