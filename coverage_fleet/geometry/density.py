@@ -174,33 +174,37 @@ class GaussianBumpsDensity(Density):
             mass, first, polar = base.mass.copy(), base.first.copy(), base.polar.copy()
         else:
             mass, first, polar = np.zeros(count), np.zeros((count, 2)), np.zeros(count)
-        lows = [p.min(axis=0) if len(p) >= 3 else None for p in polygons]
-        highs = [p.max(axis=0) if len(p) >= 3 else None for p in polygons]
+        used = np.array([i for i, p in enumerate(polygons) if len(p) >= 3], dtype=np.int64)
+        if len(used) == 0 or not self.bumps:
+            return CellMoments(mass, first, polar)
+        lengths = np.array([len(polygons[i]) for i in used])
+        starts = np.cumsum(lengths) - lengths
+        vertices = np.concatenate([polygons[i] for i in used])
+        lows = np.minimum.reduceat(vertices, starts)
+        highs = np.maximum.reduceat(vertices, starts)
         for bump, chol in zip(self.bumps, self._chol, strict=True):
             # Axis-aligned reach of the bump's cut-off: cells beyond it get nothing of it.
             reach = BUMP_CUTOFF * np.sqrt(np.diag(bump.covariance))
-            near = [
-                i for i in range(count)
-                if lows[i] is not None
-                and not np.any(lows[i] > bump.mean + reach)
-                and not np.any(highs[i] < bump.mean - reach)
-            ]
-            if not near:
+            near = ~(np.any(lows > bump.mean + reach, axis=1)
+                     | np.any(highs < bump.mean - reach, axis=1))
+            if not near.any():
                 continue
+            cells = used[near]
             # Whitened coordinates z = L^-1 (q - mean): the bump is the standard normal
             # there (det L > 0 keeps the polygons counter-clockwise), and
             # int f(q) N(q; mean, L L') dq = int f(mean + L z) phi(z) dz.
-            local = [np.linalg.solve(chol, (polygons[i] - bump.mean).T).T for i in near]
-            starts = np.cumsum([0] + [len(p) for p in local[:-1]])
+            picked = np.repeat(near, lengths)
+            local = np.linalg.solve(chol, (vertices[picked] - bump.mean).T).T
+            near_lengths = lengths[near]
             z_mass, z_first, z_second = standard_normal_moments(
-                np.concatenate(local), starts, len(near)
+                local, np.cumsum(near_lengths) - near_lengths, len(cells)
             )
-            offset = bump.mean - about[near]  # mean - a_i
+            offset = bump.mean - about[cells]  # mean - a_i
             lifted = z_first @ chol.T  # L int z phi
             gram = chol.T @ chol
-            mass[near] += bump.weight * z_mass
-            first[near] += bump.weight * (offset * z_mass[:, None] + lifted)
-            polar[near] += bump.weight * (
+            mass[cells] += bump.weight * z_mass
+            first[cells] += bump.weight * (offset * z_mass[:, None] + lifted)
+            polar[cells] += bump.weight * (
                 np.einsum("ij,ij->i", offset, offset) * z_mass
                 + 2.0 * np.einsum("ij,ij->i", offset, lifted)
                 + np.einsum("kij,ij->k", z_second, gram)
