@@ -25,6 +25,7 @@ from support_control import (
     polygon_halfspaces,
 )
 
+from coverage_fleet.control import solver_chain
 from coverage_fleet.control.controller import (
     FALLBACK_BRAKING,
     FALLBACK_PREVIOUS_PLAN,
@@ -352,6 +353,35 @@ def test_offline_mpc_builds_its_full_solve_when_a_sample_first_needs_it():
     solution = mpc.solve(_start_state(model, (3.0, 3.0)), np.array([6.0, 4.0]))
     assert solution.success and solution.status == "fatrop: Success"
     assert full._solver is not None and rescue._solver is None
+
+
+def test_a_cold_start_stopped_at_the_cap_runs_again_and_a_shifted_plan_hands_over(monkeypatch):
+    """A start that is no shifted plan (here the cold start) whose capped fatrop run stops
+    at the cap runs fatrop again from that run's last iterate (up to max_iter // cap runs)
+    instead of going to IPOPT, and reaches the answer of an uncapped fatrop; a sample from
+    the shifted plan that needs more than the cap still hands over to IPOPT after one run
+    (solver_chain.FAST_ITERATION_CAP's comment). The cap is lowered to 8 so that this small
+    problem (15 fatrop iterations from rest) meets it."""
+    model, settings = _double_integrator()
+    full = dataclasses.replace(settings, solver={"plugin": "fatrop", "path": "full"})
+    start, target = _start_state(model, (3.0, 3.0)), np.array([6.0, 4.0])
+    uncapped = TrackingMpc(model, full, REGION).solve(start, target)
+    assert uncapped.success and uncapped.iterations > 8
+    monkeypatch.setattr(solver_chain, "FAST_ITERATION_CAP", 8)
+    mpc = TrackingMpc(model, full, REGION)
+    cold = mpc.solve(start, target)
+    assert cold.success and cold.status == "Success after 2 runs", cold.status
+    np.testing.assert_allclose(cold.first_input, uncapped.first_input, atol=1e-6)
+    # A far new target: from the shifted plan fatrop needs more than 8 iterations.
+    moved = mpc.solve(_start_state(model, (3.1, 3.0)), np.array([1.0, 9.0]))
+    assert moved.success
+    assert moved.status == "fatrop: MaxIterExceeded; ipopt: Solve_Succeeded", moved.status
+    # A budget below two runs (max_iter 12, cap 8) keeps the cold start to one run.
+    tight = dataclasses.replace(
+        settings, solver={"plugin": "fatrop", "path": "full", "max_iter": 12}
+    )
+    single = TrackingMpc(model, tight, REGION).solve(start, target)
+    assert single.status == "fatrop: MaxIterExceeded; ipopt: Solve_Succeeded", single.status
 
 
 def test_fatrop_status_names_its_own_flag_not_casadis_success_bit():

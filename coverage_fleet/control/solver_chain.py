@@ -11,7 +11,8 @@ The real-time chain (`mpc.solver.path: real_time`, the default; see vehicles/set
 one real-time SQP iteration from the shifted plan (rti.py), which reports failure when its
 iterate fails the acceptance test and is tried again at the next sample (hold 0); then the
 full solve by the configured plugin (fatrop by default, its budget capped at
-FAST_ITERATION_CAP when a rescue stands behind it); then IPOPT from the same warm start
+FAST_ITERATION_CAP when a rescue stands behind it; a start that is no shifted plan may run
+it again from where the cap stopped it); then IPOPT from the same warm start
 with RESCUE_ITERATION_FACTOR times the budget (slower but more forgiving far from the
 previous solution). `path: full` drops the first strategy.
 
@@ -113,6 +114,17 @@ RESCUE_HOLD_SAMPLES = 10
 #: warm-started in the primal only: casadi's interface passes it no multipliers (measured:
 #: the same iterations with the last solve's, none or random ones).
 FAST_ITERATION_CAP = 40
+# A start that is no shifted plan gets max_iter // FAST_ITERATION_CAP runs of the capped
+# plugin, each from the last one's iterate (NlpsolStrategy's unshifted_runs; the vehicle
+# file's budget still bounds it). Why: the cap above is what a sample from the
+# shifted plan needs, and a cold start from rest, far from its target and packed among
+# neighbours, needs more. Measured (benchmarks/fleet_sim_benchmark.py, 16 mixed robots,
+# one process): three of the sixteen cold starts (two surface vessels and a car-like robot)
+# stopped at 40 fatrop iterations and went to IPOPT, 77-255 ms each with IPOPT's two
+# builds; a second fatrop run from the first's last iterate converged in 12-16 more
+# iterations (6-11 ms), and the run's full solves took 0.74 s against 1.37 s. Samples from
+# a shifted plan keep one run: there a failure is handed over at the cap, which bounds
+# what a failing sample spends before the rescue (the real-time controller's deadline).
 #: QP solvers whose memory carries something from one call into the next that changes
 #: the answer: measured, two robots alternating on one OSQP real-time step got other
 #: answers than the same robots with a step each (with HPIPM bit for bit the same; the
@@ -200,14 +212,29 @@ class NlpsolStrategy:
     hold_samples: int | None = None
     needs_shifted_plan = False
 
-    def __init__(self, name: str, solver: ca.Function | Callable[[], ca.Function]) -> None:
+    def __init__(
+        self,
+        name: str,
+        solver: ca.Function | Callable[[], ca.Function],
+        iteration_cap: int | None = None,
+        unshifted_runs: int = 1,
+    ) -> None:
         """solver: the nlpsol, or a function that builds it at the first attempt (offline:
         the rescue answers few samples, e.g. 25 of 2816 in a 16-robot fleet run, and
         building it was about 30 % of building an MPC problem; on the real-time path many
-        problems never need their full solve either: build_strategies)."""
+        problems never need their full solve either: build_strategies).
+
+        iteration_cap, unshifted_runs: a start that is no shifted plan (a cold start, the
+        stall restarts: NlpInstance.shifted_plan) whose run stops at iteration_cap runs
+        again from that run's last iterate, up to unshifted_runs runs in all (a shifted
+        plan always gets one run): FAST_ITERATION_CAP's comment."""
+        if unshifted_runs < 1 or (unshifted_runs > 1 and iteration_cap is None):
+            raise ValueError("unshifted_runs must be at least 1, and above 1 needs the cap")
         self.name = name
         self._build = None if isinstance(solver, ca.Function) else solver
         self._solver = BufferedFunction(solver) if self._build is None else None
+        self._iteration_cap = iteration_cap
+        self._unshifted_runs = unshifted_runs
 
     @property
     def solver(self) -> BufferedFunction:
@@ -216,6 +243,28 @@ class NlpsolStrategy:
         return self._solver
 
     def attempt(self, instance: NlpInstance) -> Attempt:
+        answer = self._run(instance)
+        runs = 1
+        while (
+            not instance.shifted_plan
+            and not answer.success
+            and runs < self._unshifted_runs
+            and answer.iterations >= self._iteration_cap
+            and np.all(np.isfinite(answer.x))
+        ):
+            again = self._run(dataclasses.replace(
+                instance, guess=answer.x, lam_x0=answer.lam_x, lam_g0=answer.lam_g
+            ))
+            runs += 1
+            answer = dataclasses.replace(
+                again,
+                status=f"{again.status} after {runs} runs",
+                iterations=answer.iterations + again.iterations,
+                elapsed=answer.elapsed + again.elapsed,
+            )
+        return answer
+
+    def _run(self, instance: NlpInstance) -> Attempt:
         n_w, n_g = len(instance.guess), len(instance.lbg)
         cold = instance.lam_g0 is None
         started = time.perf_counter()
@@ -411,11 +460,13 @@ def build_strategies(
     plugin = configured_plugin(settings)
     budget = int(settings.solver.get("max_iter", DEFAULT_MAX_ITER))
     rescued = plugin != RESCUE_PLUGIN
-    options = _plugin_options(
-        plugin,
-        min(budget, FAST_ITERATION_CAP) if rescued else budget,
-        equality,
-        settings.solver.get("options", {}),
+    extra = settings.solver.get("options", {})
+    run_cap = min(budget, FAST_ITERATION_CAP) if rescued else budget
+    options = _plugin_options(plugin, run_cap, equality, extra)
+    # More runs for a start that is no shifted plan only under the cap set here (a vehicle
+    # file that sets the plugin's own max_iter option has chosen its run's budget).
+    unshifted_runs = (
+        max(1, budget // run_cap) if rescued and f"{plugin}.max_iter" not in extra else 1
     )
     name = f"tracking_mpc_{plugin}"
     compiled = compiles(settings)
@@ -427,7 +478,12 @@ def build_strategies(
         return primary
 
     strategies: list[SolveStrategy] = [
-        NlpsolStrategy(plugin, build_primary if full_solves_on_first_use else build_primary())
+        NlpsolStrategy(
+            plugin,
+            build_primary if full_solves_on_first_use else build_primary(),
+            iteration_cap=run_cap,
+            unshifted_runs=unshifted_runs,
+        )
     ]
     if configured_path(settings) == "real_time":
         if fast is None:
