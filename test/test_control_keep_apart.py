@@ -28,6 +28,7 @@ from coverage_fleet.control.mpc import (
     STEADY_SET_MIN_RADIUS,
     TrackingMpc,
 )
+from coverage_fleet.control.shared_problems import SharedProblems
 from coverage_fleet.control.stage_cost import stage_weights
 from coverage_fleet.control.terminal import terminal_for_vehicle
 from coverage_fleet.geometry.region import ConvexRegion
@@ -270,6 +271,57 @@ def test_padding_rows_left_out_give_the_same_closed_loop() -> None:
     assert budgets == [0] * 5 + [2] * 15 + [8] * 10 + [2] * 10
     # The neighbour's row held (soft row: the slack stays at micrometres here).
     assert x[0] <= 2.0 - budgeted.cell_pad + 1e-3
+
+
+def test_an_offline_robot_rents_the_full_problem_until_it_has_needed_a_budget_enough() -> None:
+    """Offline (prebuild False) with rented_samples k, a robot solves with the problem built
+    for all its rows, filled up with padding rows, until it has needed a smaller budget's
+    problem k times; then it builds that one (mpc.RENTED_SAMPLES: rent or buy, Karlin et
+    al., Algorithmica 3, 1988). The rented answers are the budgets' own (the padding rows
+    cannot bind: test_padding_rows_left_out_give_the_same_closed_loop), through the same
+    changes of budget as there, and the renting robot never builds a second problem."""
+    spec = spec_for("differential_drive", path="full")
+    terminal, _ = terminal_for_vehicle(spec)
+    rows = 12
+
+    def mpc(rented: int, shared: SharedProblems | None = None) -> TrackingMpc:
+        return TrackingMpc(
+            spec.model, spec.mpc, REGION.halfspaces(), terminal, cell_rows=rows,
+            prebuild=False, shared=shared, rented_samples=rented,
+        )
+
+    builds = SharedProblems()
+    bought, renting, after_three = mpc(0), mpc(1000, builds), mpc(3)
+    ahead = [((1.0, 0.0), 2.0), ((1.0, 0.1), 2.05)]
+    far = [((0.0, 1.0), 5.0), ((0.0, -1.0), 5.0), ((-1.0, 0.0), 5.0)]
+    schedule = [[]] * 5 + [ahead] * 15 + [ahead + far] * 10 + [ahead[:1]] * 10
+    x = np.zeros(spec.model.nx)
+    target = np.array([4.0, 0.5])
+    F = spec.model.discrete_dynamics(spec.mpc.sample_time, spec.mpc.substeps)
+    budgets: dict[str, list[int]] = {"bought": [], "renting": [], "after_three": []}
+    for real in schedule:
+        normals, offsets = np.zeros((rows, 2)), np.ones(rows)
+        for k, (normal, offset) in enumerate(real):
+            n = np.asarray(normal, float)
+            normals[k], offsets[k] = n / np.linalg.norm(n), offset / np.linalg.norm(n)
+        answers = {
+            name: controller.solve(x, target, (normals, offsets))
+            for name, controller in
+            (("bought", bought), ("renting", renting), ("after_three", after_three))
+        }
+        reference = answers["bought"]
+        for name, answer in answers.items():
+            assert answer.success, name
+            budgets[name].append(answer.row_budget)
+            # Both solved to fatrop's tolerance: the bound of the padding-row test.
+            assert np.max(np.abs(answer.first_input - reference.first_input)) < 1e-4
+            assert np.max(np.abs(answer.predicted_states - reference.predicted_states)) < 1e-4
+        x = np.array(F(x, reference.first_input)).ravel()
+    assert budgets["bought"] == [0] * 5 + [2] * 15 + [8] * 10 + [2] * 10
+    assert budgets["renting"] == [rows] * 40 and builds.builds == 1
+    assert budgets["after_three"] == (
+        [rows] * 2 + [0] * 3 + [rows] * 2 + [2] * 13 + [rows] * 2 + [8] * 8 + [2] * 10
+    )
 
 
 def test_a_robot_with_no_row_within_reach_solves_the_problem_without_keep_apart() -> None:

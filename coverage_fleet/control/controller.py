@@ -71,12 +71,14 @@ class RobotController:
         cell_rows: int = 0,
         prebuild: bool = True,
         shared: SharedProblems | None = None,
+        rented_samples: int = 0,
     ) -> None:
-        """prebuild, shared: see TrackingMpc (offline runs: False, the fleet's builds)."""
+        """prebuild, shared, rented_samples: see TrackingMpc (offline runs: False, the
+        fleet's builds, mpc.RENTED_SAMPLES)."""
         self.model = model
         self.mpc = TrackingMpc(
             model, settings, region_halfspaces, terminal, cell_rows, prebuild=prebuild,
-            shared=shared,
+            shared=shared, rented_samples=rented_samples,
         )
         self._u_lower, self._u_upper = (np.asarray(v, float) for v in model.input_bounds())
         E, e = model.input_polytope()

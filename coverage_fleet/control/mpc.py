@@ -91,7 +91,10 @@ without rows, 1.05x now).
 The problem is built for `cell_rows` rows and for the smaller row budgets CELL_ROW_BUDGETS;
 a solve leaves out the padding rows it was given (normal 0: they cannot bind) and takes the
 smallest problem that holds the rest, so a robot pays for the neighbours within its reach,
-not for the fleet's worst case (`MpcSolution.row_budget` says which answered).
+not for the fleet's worst case (`MpcSolution.row_budget` says which answered). Offline, a
+budget's problem may be rented before it is bought (`rented_samples`, RENTED_SAMPLES):
+until the robot has needed it that many times, the problem built for `cell_rows` answers,
+filled up with padding rows.
 
 Headings stay continuous (frames.py); the steady heading is a free parameter.
 
@@ -180,6 +183,20 @@ PATH_SLACK_UNIT = 1e-3
 #: 1.46x to 1.23x its time without keep-apart, and to 1.16x with budget 0's slacks left out
 #: (TrackingMpc._make).
 CELL_ROW_BUDGETS = (0, 2, 4, 8)
+#: How many times an offline robot (fleet/controllers.py) needs a budget's problem before
+#: it builds it (rents before it buys, TrackingMpc's rented_samples); until then the problem
+#: built for cell_rows answers, filled up with padding rows (the same optimum:
+#: _cell_instance). The deterministic rent-or-buy rule: rent until the rent paid would buy
+#: (Karlin, Manasse, Rudolph & Sleator, "Competitive snoopy caching", Algorithmica 3, 1988:
+#: at most twice the cost of the best choice made knowing the future). Rent: the larger
+#: QP, about 0.1-0.3 ms more per real-time sample (12 rows against 2: 1.35x against 1.15x
+#: the rover's time without rows, above); price: a build of 40-150 ms (the surface vessel
+#: the most), and its full solver's 45-150 ms on first use: about 400 samples either way
+#: (measured, the four shipped vehicles). In the 16-robot fleet run of
+#: benchmarks/fleet_sim_benchmark.py (20 s), 10 of 15 builds were of budgets a robot needed
+#: 3-75 times; a robot counts its own needs, so its answers do not depend on which other
+#: robots share its process (fleet/controller_pool.py).
+RENTED_SAMPLES = 400
 #: Offset given to the padding rows a budget's problem is filled up with (metres above the
 #: pad: 0 . p - sigma <= offset - pad never binds, see TrackingMpc._cell_instance).
 PADDING_ROW_OFFSET = 1.0
@@ -361,6 +378,7 @@ class TrackingMpc:
         row_budgets: Sequence[int] | None = None,
         prebuild: bool = True,
         shared: SharedProblems[_SharedBuild] | None = None,
+        rented_samples: int = 0,
     ) -> None:
         """cell_rows: how many keep-apart rows each solve takes (0: none, the problem is
         exactly the one without keep-apart). row_budgets: the smaller row counts the
@@ -372,10 +390,18 @@ class TrackingMpc:
         rescue on the first sample that needs them (solver_chain.build_strategies).
         shared: builds shared with the other TrackingMpcs given the same
         (control/shared_problems.py: robots of one process that solve one at a time);
-        None builds this MPC's own."""
+        None builds this MPC's own. rented_samples: with prebuild False, a smaller budget's
+        problem is built only at the rented_samples-th solve that needs it; the solves
+        before are answered by the problem for cell_rows (RENTED_SAMPLES; 0: built at the
+        first)."""
         _require_checked(model, settings, terminal)
+        if rented_samples < 0:
+            raise ValueError(f"rented_samples must be >= 0, got {rented_samples}")
         self._prebuild = prebuild
         self._shared = shared
+        self._rented_samples = 0 if prebuild else int(rented_samples)
+        #: Solves so far that needed each budget whose problem this MPC has not yet got.
+        self._budget_needs: dict[int, int] = {}
         if cell_rows < 0:
             raise ValueError(f"cell_rows must be >= 0, got {cell_rows}")
         self.cell_rows = int(cell_rows)
@@ -1021,12 +1047,21 @@ class TrackingMpc:
         vacuous = np.all(normals == 0.0, axis=1) & (offsets >= self._vacuous_offset)
         kept = ~vacuous
         count = int(np.count_nonzero(kept))
-        budget = next(b for b in self.row_budgets if b >= count)
+        budget = self._rent_or_buy(next(b for b in self.row_budgets if b >= count))
         out_normals = np.zeros((budget, 2))
         out_offsets = np.full(budget, self._vacuous_offset + PADDING_ROW_OFFSET)
         out_normals[:count] = normals[kept]
         out_offsets[:count] = offsets[kept]
         return out_normals, out_offsets
+
+    def _rent_or_buy(self, budget: int) -> int:
+        """The budget whose problem answers a solve that needs `budget`: its own once this
+        MPC has it or has needed it rented_samples times, else cell_rows' (RENTED_SAMPLES)."""
+        if budget in self._problems or not self._rented_samples:
+            return budget
+        needs = self._budget_needs.get(budget, 0) + 1
+        self._budget_needs[budget] = needs
+        return budget if needs >= self._rented_samples else self.cell_rows
 
     @property
     def _vacuous_offset(self) -> float:

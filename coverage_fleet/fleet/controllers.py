@@ -29,6 +29,7 @@ import numpy as np
 
 from coverage_fleet.control.controller import RobotController
 from coverage_fleet.control.keep_apart import CellLayout, CellWindow, cell_layout, horizon_reach
+from coverage_fleet.control.mpc import RENTED_SAMPLES
 from coverage_fleet.control.sampling import Answer, SampledController
 from coverage_fleet.control.shared_problems import SharedProblems, thread_builds
 from coverage_fleet.control.terminal import terminal_for_vehicle
@@ -48,11 +49,13 @@ def sampled_controller(
     spec = entry.vehicle
     terminal, _ = terminal_for_vehicle(spec)
     layout = mission_cell_layout(mission)
-    # Offline, a keep-apart row budget's problem is built when first needed (start-up of
-    # large fleets; no solve waits in real time here).
+    # Offline, a keep-apart row budget's problem is built when the robot has needed it
+    # RENTED_SAMPLES times (start-up of large fleets, short runs; no solve waits in real
+    # time here).
     controller = RobotController(
         spec.model, spec.mpc, mission.region.halfspaces(), terminal,
         cell_rows=0 if layout is None else layout.rows, prebuild=False, shared=shared,
+        rented_samples=RENTED_SAMPLES,
     )
     sampled = SampledController(
         controller,
@@ -212,7 +215,11 @@ def phase_loads(roster: Sequence[RobotEntry], step: float) -> np.ndarray:
 #: of 56ad906: 0.3-0.5 s a vehicle type, 50 000-65 000 units.
 #: Every process that holds a robot of a vehicle file pays them again (casadi objects do
 #: not pickle), so on a short run a split that keeps the robots of one vehicle file
-#: together can beat one that balances each tick.
+#: together can beat one that balances each tick. Since the row budgets are rented
+#: (control/mpc.RENTED_SAMPLES) a type's builds in that run are 0.1-0.3 s; a split tuned
+#: to that (and a solve size fitted to each vehicle's measured solve time) balanced the
+#: ticks better but built more, and measured no faster over setup and tick loop (three
+#: alternating runs, 2.88-3.37 s against 2.98-3.24 s), so this stays.
 BUILD_WORK = 60_000.0
 #: Splits of whole vehicle groups tried at most (processes ** groups); beyond, only the
 #: robot-by-robot split.
