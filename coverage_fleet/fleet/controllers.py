@@ -218,8 +218,9 @@ def phase_loads(roster: Sequence[RobotEntry], step: float) -> np.ndarray:
 #: together can beat one that balances each tick. Since the row budgets are rented
 #: (control/mpc.RENTED_SAMPLES) a type's builds in that run are 0.1-0.3 s; a split tuned
 #: to that (and a solve size fitted to each vehicle's measured solve time) balanced the
-#: ticks better but built more, and measured no faster over setup and tick loop (three
-#: alternating runs, 2.88-3.37 s against 2.98-3.24 s), so this stays.
+#: ticks better but built more, and measured no faster (setup and tick loop, 16 robots on
+#: two processes, three alternating runs: 2.98-3.24 s against 2.88-3.37 s with this one),
+#: so this stays.
 BUILD_WORK = 60_000.0
 #: Splits of whole vehicle groups tried at most (processes ** groups); beyond, only the
 #: robot-by-robot split.
