@@ -1038,7 +1038,8 @@ class TrackingMpc:
         self, normals: np.ndarray, offsets: np.ndarray
     ) -> tuple[np.ndarray, np.ndarray]:
         """The rows that can bind, in the order given, filled up with padding rows to the
-        smallest budget that holds them. A row with normal (0, 0) and offset c reads
+        smallest budget that holds them (to cell_rows while that budget is rented:
+        _rent_or_buy). A row with normal (0, 0) and offset c reads
         sigma >= pad - c (pad: the cell pad on the path, the terminal extent at the steady
         state); for c >= both pads it never binds, because the optimal sigma is >= 0 (a
         negative sigma only tightens rows and adds cost), so leaving it out changes no
