@@ -120,7 +120,7 @@ import scipy.optimize
 from coverage_fleet.control.frames import heading_index, steady_frame_error
 from coverage_fleet.control.ingredients import TerminalIngredients
 from coverage_fleet.control.limits import input_limits, state_limits, steady_limits
-from coverage_fleet.control.rti import LeastSquaresTerm, QuadraticRow, StageLayout
+from coverage_fleet.control.rti import LeastSquaresTerm, QuadraticRow
 from coverage_fleet.control.shared_problems import SharedProblems, problem_key
 from coverage_fleet.control.solver_chain import (
     RESCUE_HOLD_SAMPLES,
@@ -137,6 +137,7 @@ from coverage_fleet.control.solver_chain import (
     terminal_equality_width,
 )
 from coverage_fleet.control.stage_cost import stage_weights
+from coverage_fleet.control.stage_qp import StageLayout
 from coverage_fleet.control.terminal import compute_terminal_ingredients
 from coverage_fleet.vehicles.base import VehicleModel
 from coverage_fleet.vehicles.settings import SOLVER_PLUGINS, MpcSettings, not_stabilisable_reason

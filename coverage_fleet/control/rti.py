@@ -78,6 +78,7 @@ import numpy as np
 from coverage_fleet.control.attempts import Attempt, NlpInstance
 from coverage_fleet.control.buffered_call import BufferedFunction
 from coverage_fleet.control.codegen import compiled_functions
+from coverage_fleet.control.stage_qp import ConicQp, StageLayout, StageQp
 from coverage_fleet.interrupts import sigint_held
 from coverage_fleet.vehicles.settings import QP_PLUGINS
 
@@ -92,19 +93,10 @@ VIOLATION_TOLERANCE = 1e-2
 #: last iterate, so their linearisation error shrinks quadratically) rescue most samples of
 #: the nonlinear models (the surface vessel turning) at a fraction of a full solve's cost.
 MAX_STEPS = 3
+#: Settings of each QP solver: StageQp's keywords for HPIPM, casadi's conic options for
+#: OSQP.
 QP_DEFAULTS: dict[str, dict[str, Any]] = {
-    "hpipm": {
-        "print_problem": False,
-        "error_on_fail": False,
-        "hpipm": {
-            "mode": "speed",
-            "iter_max": 100,
-            "res_g_max": 1e-6,
-            "res_b_max": 1e-6,
-            "res_d_max": 1e-6,
-            "res_m_max": 1e-6,
-        },
-    },
+    "hpipm": {"mode": "speed", "tolerance": 1e-6, "iteration_limit": 100},
     "osqp": {
         "print_problem": False,
         "error_on_fail": False,
@@ -119,26 +111,6 @@ QP_DEFAULTS: dict[str, dict[str, Any]] = {
         },
     },
 }
-
-
-@dataclass(frozen=True)
-class StageLayout:
-    """Where each stage's rows sit: decision variables [z_0 u_0 ... z_{N-1} u_{N-1} z_N]
-    with len(z_k) = nz, len(u_k) = nu[k]; constraint rows per stage k: first the nz
-    dynamics rows z_{k+1} - F(z_k, u_k) (k < N), then `path_rows[k]` other rows."""
-
-    horizon: int
-    nz: int
-    nu: tuple[int, ...]
-    path_rows: tuple[int, ...]
-
-    def dynamics_mask(self) -> np.ndarray:
-        rows = []
-        for k in range(self.horizon + 1):
-            if k < self.horizon:
-                rows.append(np.ones(self.nz, dtype=bool))
-            rows.append(np.zeros(self.path_rows[k], dtype=bool))
-        return np.concatenate(rows)
 
 
 @dataclass(frozen=True)
@@ -238,31 +210,31 @@ class RealTimeIterationStrategy:
             w,
         ) + dynamics_curvature(dynamics_increments, lam_g[dynamics_rows.tolist()], w)
         jacobian = ca.jacobian(g_qp, w)
+        # Nonzeros as dense columns: the QP data is evaluated on bound arrays
+        # (buffered_call.py) and scattered into the QP solver's own layout.
         qp_data = ca.Function(
             "rti_qp_data",
             [w, p, lam_g],
-            [hessian, ca.gradient(f, w), g_qp, jacobian],
+            [hessian.nz[:], ca.gradient(f, w), g_qp, jacobian.nz[:]],
             ["w", "p", "lam_g"],
             ["h", "grad", "g", "a"],
         )
-        check = ca.Function("rti_check", [w, p], [f, g_qp], ["w", "p"], ["f", "g"])
+        check = _check_function(f, g_qp, w, p)
         if compile_functions:
             library = str(compiled_functions([qp_data, check], "tracking_mpc_rti"))
             qp_data = ca.external("rti_qp_data", library)
             check = ca.external("rti_check", library)
-        options = dict(QP_DEFAULTS[qp_plugin])
-        if qp_plugin == "hpipm":
-            N = layout.horizon
-            options.update(
-                N=N,
-                nx=[layout.nz] * (N + 1),
-                nu=[*layout.nu, 0],
-                ng=list(layout.path_rows),
-            )
-        sparsity = {"h": hessian.sparsity(), "a": jacobian.sparsity()}
         self.qp_plugin = qp_plugin
-        qp = ca.conic("rti_qp", qp_plugin, sparsity, options)
-        self._step = BufferedFunction(_sqp_step(qp_data, check, qp, sign, w.shape[0], p.shape[0]))
+        if qp_plugin == "hpipm":
+            self._qp: StageQp | ConicQp = StageQp(
+                layout, hessian.sparsity(), jacobian.sparsity(), **QP_DEFAULTS["hpipm"]
+            )
+        else:
+            self._qp = ConicQp(
+                qp_plugin, hessian.sparsity(), jacobian.sparsity(), QP_DEFAULTS[qp_plugin]
+            )
+        self._qp_data = BufferedFunction(qp_data)
+        self._check = BufferedFunction(check)
         self._last_bounds: tuple[np.ndarray, ...] | None = None
 
     def _bounds_for_qp(self, lower: np.ndarray, upper: np.ndarray) -> tuple[np.ndarray, ...]:
@@ -287,14 +259,20 @@ class RealTimeIterationStrategy:
         with sigint_held():
             while steps < MAX_STEPS:
                 steps += 1
-                result = self._step(
-                    w=w, p=p, lam_g=lam_g, lam_x=lam_x, lbg=lbg, ubg=ubg,
-                    lbx=instance.lbx, ubx=instance.ubx,
+                data = self._qp_data(w=w, p=p, lam_g=lam_g)
+                g = data["g"]
+                solution = self._qp.solve(
+                    h=data["h"], grad=data["grad"], a=data["a"], lba=lbg - g, uba=ubg - g,
+                    lbx=instance.lbx - w, ubx=instance.ubx - w,
+                    lam_a0=self._sign * lam_g, lam_x0=lam_x,
                 )
-                w, lam_g, lam_x = (result[k].copy() for k in ("w_next", "lam_g_next", "lam_x_next"))
-                violation, cost = float(result["violation"][0]), float(result["f"][0])
-                qp_ok = bool(self._step.stats().get("success", False))
-                if not (qp_ok and np.all(np.isfinite(w)) and np.isfinite(violation)):
+                w = w + solution.step
+                lam_g, lam_x = self._sign * solution.lam_a, solution.lam_x
+                checked = self._check(
+                    w=w, p=p, lbg=lbg, ubg=ubg, lbx=instance.lbx, ubx=instance.ubx
+                )
+                violation, cost = float(checked["violation"][0]), float(checked["f"][0])
+                if not (solution.success and np.all(np.isfinite(w)) and np.isfinite(violation)):
                     status = "QP failed"
                     break
                 success = violation <= VIOLATION_TOLERANCE
@@ -318,42 +296,23 @@ class RealTimeIterationStrategy:
         )
 
 
-def _sqp_step(
-    qp_data: ca.Function,
-    check: ca.Function,
-    qp: ca.Function,
-    sign: np.ndarray,
-    n_w: int,
-    n_p: int,
-) -> ca.Function:
-    """One SQP step as a single casadi Function (one call from Python per step, evaluated
-    on bound arrays: buffered_call.py): QP data at w, the QP, the full step, and the new
-    iterate's cost and constraint violation (largest distance of g(w+) and w+ outside
-    their bounds; 0 when inside). lbg, ubg are the bounds of the sign-flipped rows
-    (RealTimeIterationStrategy._bounds_for_qp); lam_g in and out in the NLP's signs."""
-    n_g = len(sign)
-    w, lam_x, lbx, ubx = (ca.MX.sym(name, n_w) for name in ("w", "lam_x", "lbx", "ubx"))
-    lam_g, lbg, ubg = (ca.MX.sym(name, n_g) for name in ("lam_g", "lbg", "ubg"))
-    p = ca.MX.sym("p", n_p)
-    signs = ca.DM(sign)
-    h, grad, g, a = qp_data(w, p, lam_g)
-    solution = qp(
-        h=h, g=grad, a=a, lba=lbg - g, uba=ubg - g, lbx=lbx - w, ubx=ubx - w,
-        lam_a0=signs * lam_g, lam_x0=lam_x,
-    )
-    w_next = w + solution["x"]
-    f_next, g_next = check(w_next, p)
+def _check_function(f: ca.SX, g: ca.SX, w: ca.SX, p: ca.SX) -> ca.Function:
+    """The new iterate's cost and constraint violation: the largest distance of g(w) and w
+    outside their bounds, 0 when inside. lbg, ubg are the bounds of the sign-flipped rows
+    (RealTimeIterationStrategy._bounds_for_qp)."""
+    lbg, ubg = (ca.SX.sym(name, g.shape[0]) for name in ("lbg", "ubg"))
+    lbx, ubx = (ca.SX.sym(name, w.shape[0]) for name in ("lbx", "ubx"))
     violation = ca.fmax(
         0.0,
         ca.fmax(
-            ca.mmax(ca.fmax(lbg - g_next, g_next - ubg)),
-            ca.mmax(ca.fmax(lbx - w_next, w_next - ubx)),
+            ca.mmax(ca.fmax(lbg - g, g - ubg)),
+            ca.mmax(ca.fmax(lbx - w, w - ubx)),
         ),
     )
     return ca.Function(
-        "rti_step",
-        [w, p, lam_g, lam_x, lbg, ubg, lbx, ubx],
-        [w_next, signs * solution["lam_a"], solution["lam_x"], f_next, violation],
-        ["w", "p", "lam_g", "lam_x", "lbg", "ubg", "lbx", "ubx"],
-        ["w_next", "lam_g_next", "lam_x_next", "f", "violation"],
+        "rti_check",
+        [w, p, lbg, ubg, lbx, ubx],
+        [f, violation],
+        ["w", "p", "lbg", "ubg", "lbx", "ubx"],
+        ["f", "violation"],
     )

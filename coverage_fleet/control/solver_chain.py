@@ -52,8 +52,8 @@ from coverage_fleet.control.rti import (
     LeastSquaresTerm,
     QuadraticRow,
     RealTimeIterationStrategy,
-    StageLayout,
 )
+from coverage_fleet.control.stage_qp import StageLayout
 from coverage_fleet.interrupts import sigint_held
 from coverage_fleet.vehicles.settings import (
     QP_PLUGINS,
