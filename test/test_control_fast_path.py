@@ -16,6 +16,7 @@ import pytest
 import scipy.linalg
 from support_control import ORCHARD_BLOCK, closed_loop_cost, on_solver_path, polygon_halfspaces
 
+from coverage_fleet.control.limits import input_limits
 from coverage_fleet.control.mpc import TrackingMpc
 from coverage_fleet.control.stage_cost import stage_weights
 from coverage_fleet.control.terminal import compute_terminal_ingredients
@@ -200,3 +201,35 @@ def test_real_time_commands_are_not_rougher_than_the_full_solves(name):
     rough_full = _input_variation(full, model, settings, start, targets, 80)
     rough_fast = _input_variation(fast, model, settings, start, targets, 80)
     assert np.all(rough_fast <= 2.0 * rough_full + 1e-9), (rough_fast, rough_full)
+
+
+def test_osqp_and_hpipm_give_the_same_real_time_steps():
+    """The QP of each real-time step solved by OSQP (casadi's interface; Stellato et al.,
+    "OSQP: an operator splitting solver for quadratic programs", Math. Program. Comput.
+    12, 2020), a general-purpose first-order method, against HPIPM called on the stage
+    blocks (control/stage_qp.py): the same first inputs on a closed loop from rest to a
+    target 10 m away, the acceleration limit binding on the way (multirotor: an octagon
+    around the 2.5 m/s^2 disc; HPIPM's absolute mode answers each QP to about 1e-2,
+    rti.QP_DEFAULTS)."""
+    spec = load_vehicle_file(VEHICLES / "multirotor.yaml")
+    settings = on_solver_path(spec.mpc, "real_time")
+    with_osqp = dataclasses.replace(settings, solver={**settings.solver, "qp": "osqp"})
+    terminal = compute_terminal_ingredients(spec.model, settings)
+    hpipm = TrackingMpc(spec.model, settings, REGION, terminal)
+    osqp = TrackingMpc(spec.model, with_osqp, REGION, terminal)
+    F = spec.model.discrete_dynamics(settings.sample_time, settings.substeps)
+    x, target = _at_rest(spec.model, (2.0, 2.0)), np.array([10.0, 8.0])
+    limits = input_limits(spec.model)  # G u <= g: the acceleration polygon
+    at_limit, osqp_accepted = 0, 0
+    for k in range(30):
+        first, second = hpipm.solve(x, target), osqp.solve(x, target)
+        if k > 0:  # the first is a cold start, always a full solve
+            assert first.status == ACCEPTED, first.status
+            osqp_accepted += second.status == ACCEPTED
+        np.testing.assert_allclose(first.first_input, second.first_input, atol=5e-3)
+        at_limit += bool(np.max(limits.G @ first.first_input - limits.g) > -1e-3)
+        x = np.array(F(x, first.first_input)).reshape(-1)
+    assert at_limit >= 1
+    # OSQP's iteration limit stops it on an odd QP (one of 29 here); the full solve
+    # answers that sample, with the same input.
+    assert osqp_accepted >= 27

@@ -15,12 +15,15 @@ library. Measured on the rover's QPs of mpc_benchmark's loop (166 variables, 231
 the interior-point solve is 248 us and the scatters and copies about 20 us.
 
 Partial condensing (HPIPM's part_cond; Axehill, "Controlling the level of sparsity in MPC",
-Systems & Control Letters 76, 2015): the states inside each block of STAGES_PER_BLOCK stages
-are eliminated, so the interior-point method works on N/4 larger stages. For these small
-stages (6-8 states with the steady state, 2-3 inputs) each of HPIPM's stage operations
-costs more in its fixed per-call work than in arithmetic, and fewer, larger stages are
-faster: on the same QPs 1, 2, 4, 5, 10 and 20 blocks took 525, 287, 238, 214, 318 and 299
-us (the same answers to 2e-4, the interior point's own tolerance).
+Systems & Control Letters 76, 2015, citation from memory): the states inside each block of
+STAGES_PER_BLOCK stages are eliminated, so the interior-point method works on fewer, larger
+stages. For these small stages (6-9 states with the steady state, 2-3 inputs) each of
+HPIPM's stage operations costs more in its fixed per-call work than in arithmetic, so fewer
+stages are faster, until the condensed rows (every path row of a block depends on all its
+inputs) cost more than they save. Median QP time over the QPs of mpc_benchmark's loops,
+1 / 2 / 3 / 4 stages per block, HPIPM's absolute mode: car 522 / 321 / 441 / 271 us, rover
+211 / 180 / 179 / 172, multirotor (21 rows a stage) 387 / 364 / 402 / 428, vessel 748 / 528
+/ 599 / 607; two is the one choice near the best for all four.
 
 HPIPM's problem (the paper's eq. 1), per stage k:
     min sum_k 0.5 [u;x]' [R S; S' Q] [u;x] + [r;q]' [u;x]
@@ -57,7 +60,7 @@ HPIPM_SUCCESS = 0
 #: The missing side of a one-sided row or box (casadi's HPIPM interface uses the same,
 #: its `inf` option): HPIPM wants finite bounds.
 INFINITE_BOUND = 1e8
-#: Stages per block of the partially condensed QP (module docstring: 4-5 were fastest).
+#: Stages per block of the partially condensed QP (module docstring: why two).
 STAGES_PER_BLOCK = 2
 
 
