@@ -99,18 +99,17 @@ class QpSolution:
 
 @functools.cache
 def _hpipm() -> ctypes.CDLL:
-    """libhpipm from casadi's wheel, with the return types of the size queries set."""
+    """libhpipm from casadi's wheel (it finds its libblasfeo beside it: runpath $ORIGIN),
+    with the return types of the size queries set."""
     folder = Path(ca.__file__).parent
-    for prefix, suffix in (("lib", ".so"), ("lib", ".dylib"), ("", ".dll")):
-        path = folder / f"{prefix}hpipm{suffix}"
-        if path.exists():
-            blasfeo = folder / f"{prefix}blasfeo{suffix}"
-            if blasfeo.exists():
-                ctypes.CDLL(str(blasfeo), mode=ctypes.RTLD_GLOBAL)
-            library = ctypes.CDLL(str(path))
-            break
-    else:
-        raise RuntimeError(f"casadi's HPIPM library is not in {folder}")
+    candidates = [folder / name for name in ("libhpipm.so", "libhpipm.dylib", "hpipm.dll")]
+    found = [path for path in candidates if path.exists()]
+    if not found:
+        raise RuntimeError(
+            f"casadi's HPIPM library is not in {folder}: the real-time path needs casadi "
+            "from the package index, whose wheels ship it (or set mpc.solver.qp: osqp)"
+        )
+    library = ctypes.CDLL(str(found[0]))
     for structure in ("dim", "", "sol", "ipm_arg", "ipm_ws"):
         name = "d_ocp_qp" + (f"_{structure}" if structure else "")
         getattr(library, f"{name}_strsize").restype = ctypes.c_size_t
