@@ -9,7 +9,7 @@ state a box of +-1e8 where the problem has none (the tracking MPC's states carry
 artificial steady state too: 6-8 boxes per stage, about as many inequalities as the real
 ones, each with its slack and multiplier pair in every interior-point iteration). Here the
 structures are built once per problem and pattern of bounded variables, only the bounds
-that exist become boxes, and a call is a handful of numpy scatters and four calls into the
+that exist become boxes, and a call is a handful of numpy scatters and a few calls into the
 library. Measured on the rover's QPs of mpc_benchmark's loop (166 variables, 231 rows,
 2-core machine): casadi's interface 317 us, this one without condensing 269 us, of which
 the interior-point solve is 248 us and the scatters and copies about 20 us.
@@ -94,7 +94,6 @@ class QpSolution:
     lam_a: np.ndarray
     lam_x: np.ndarray
     success: bool
-    iterations: int
 
 
 @functools.cache
@@ -135,8 +134,10 @@ class _Flat:
         self.starts[field] = np.array(starts, dtype=int)
 
     def pointers(self, buffer: np.ndarray, field: str, count: int) -> ctypes.Array:
-        base = buffer.ctypes.data
-        return (ctypes.c_void_p * count)(*(base + 8 * int(s) for s in self.starts[field][:count]))
+        base, size = buffer.ctypes.data, buffer.itemsize
+        return (ctypes.c_void_p * count)(
+            *(base + size * int(s) for s in self.starts[field][:count])
+        )
 
 
 class StageQp:
@@ -290,7 +291,6 @@ class _HpipmProblem:
         row_stage, dynamics, row_local = qp.rows(rows)
         col_stage, col_input, col_local = qp.variables(cols)
         same_stage = col_stage == row_stage
-        self._identity = np.nonzero(dynamics & ~same_stage)[0]
         destination = np.full(len(rows), -1)
         for mask, field, height in (
             (dynamics & same_stage & ~col_input, "A", np.full(len(rows), nz)),
@@ -479,7 +479,7 @@ class _HpipmProblem:
             solved_dim, self._arg, self._ws,
             allocate(library.d_ocp_qp_ipm_ws_memsize(solved_dim, self._arg)),
         )
-        self._status, self._iterations = ctypes.c_int(), ctypes.c_int()
+        self._status = ctypes.c_int()
 
     def solve(
         self,
@@ -507,7 +507,6 @@ class _HpipmProblem:
                 self._qp, self._solved_sol, self._sol, self._cond_arg, self._cond_ws
             )
         library.d_ocp_qp_ipm_get_status(self._ws, ctypes.byref(self._status))
-        library.d_ocp_qp_ipm_get_iter(self._ws, ctypes.byref(self._iterations))
         library.d_ocp_qp_sol_get_all(self._sol, *self._get_all_arguments)
         answer = self._answer
         lam_a = answer[self._lam_a_plus] - answer[self._lam_a_minus]
@@ -517,12 +516,7 @@ class _HpipmProblem:
             lam_a=lam_a,
             lam_x=lam_x,
             success=self._status.value == HPIPM_SUCCESS,
-            iterations=self._iterations.value,
         )
-
-    def identity_entries(self, a: np.ndarray) -> np.ndarray:
-        """The nonzeros of A on z_{k+1} in the dynamics rows (all -1 in a valid QP)."""
-        return a[self._identity]
 
 
 class ConicQp:
@@ -573,11 +567,9 @@ class ConicQp:
             lam_a0=np.zeros(self._n_rows) if lam_a0 is None else lam_a0,
             lam_x0=np.zeros(self._n_w) if lam_x0 is None else lam_x0,
         )
-        stats = self._solve.stats()
         return QpSolution(
             step=result["x"].copy(),
             lam_a=result["lam_a"].copy(),
             lam_x=result["lam_x"].copy(),
-            success=bool(stats.get("success", False)),
-            iterations=int(stats.get("iter_count", 0)),
+            success=bool(self._solve.stats().get("success", False)),
         )
