@@ -10,6 +10,8 @@ for them); the figures below are the ones each test sets.
 
 from __future__ import annotations
 
+import math
+
 import pytest
 
 from coverage_fleet.fleet.liveness import FleetLiveness, LivenessChange, fresh
@@ -22,8 +24,19 @@ from coverage_fleet.fleet.lockstep import (
     complete_step,
 )
 
-TIMEOUTS = LockstepTimeouts(answer=3.0, startup=20.0, republish=0.5)
+#: These tests poll only at the moments that matter, as if every poll in between had come on
+#: time (the simulator polls every 2 ms), so the pause rule is off here and on in its own tests.
+TIMEOUTS = LockstepTimeouts(answer=3.0, startup=20.0, republish=0.5, pause=math.inf)
+PAUSING = LockstepTimeouts(answer=3.0, startup=20.0, republish=0.5, pause=0.25)
 STEP = 0.1
+POLL = 0.002  # the simulator node's poll period (s)
+
+
+def poll_every(barrier: LockstepBarrier, start: float, end: float, period: float = POLL):
+    """Polls at `period` from start to end (wall seconds), as the simulator's timer does;
+    the decisions in order."""
+    count = round((end - start) / period)
+    return [barrier.poll(start + k * period) for k in range(1, count + 1)]
 
 
 def answer(barrier: LockstepBarrier, name: str, now: float, state_time: float | None = None):
@@ -77,6 +90,54 @@ def test_a_silent_controller_is_marked_lost_and_the_fleet_goes_on() -> None:
     barrier.advanced(barrier.time + STEP, now=3.6)
     answer(barrier, "a", now=3.7)
     assert barrier.poll(now=3.7).advance  # nobody waits for a lost controller
+
+
+def test_time_the_simulator_was_held_counts_against_nobody() -> None:
+    """A held simulator process (or machine) finds the answers of that time queued behind
+    its next poll: the pause moves every deadline, so nobody is lost for it."""
+    barrier = LockstepBarrier(["a", "b"], PAUSING, now=0.0)
+    for name in ("a", "b"):
+        answer(barrier, name, now=0.1)
+    poll_every(barrier, 0.0, 0.1)
+    take_step(barrier, now=0.102)
+    # Held for 5 s (more than the 3 s answer timeout) right after publishing the state.
+    decision = barrier.poll(now=5.102)
+    assert decision.paused == pytest.approx(5.0)
+    assert not decision.lost and not decision.advance and decision.waiting == ("a", "b")
+    # The answers that arrived meanwhile are read next and the step goes ahead.
+    answer(barrier, "a", now=5.103)
+    answer(barrier, "b", now=5.103)
+    assert barrier.poll(now=5.104).advance
+
+
+def test_after_a_pause_a_silent_controller_is_still_lost_on_the_running_clock() -> None:
+    barrier = LockstepBarrier(["a", "b"], PAUSING, now=0.0)
+    for name in ("a", "b"):
+        answer(barrier, name, now=0.1)
+    poll_every(barrier, 0.0, 0.1)
+    take_step(barrier, now=0.102)  # the state of t = 0.1 goes out at 0.102
+    answer(barrier, "a", now=0.2)
+    decisions = poll_every(barrier, 0.102, 1.0)  # 0.9 s of polling, then held 4 s
+    decisions.append(barrier.poll(now=5.0))
+    decisions += poll_every(barrier, 5.0, 7.1)
+    # 2.998 s of running clock since the state went out (0.898 before the pause, 2.1 after) ...
+    assert not any(d.lost for d in decisions)
+    lost = [(k, d) for k, d in enumerate(poll_every(barrier, 7.1, 7.3)) if d.lost]
+    # ... so b is lost at the first poll past 3 s of it: 7.102 + 0.002.
+    assert [(k, d.lost) for k, d in lost] == [(1, ("b",))]
+    lost = [d for _, d in lost]
+    assert barrier.is_lost("b") and lost[0].advance
+
+
+def test_polls_at_the_simulator_rate_never_count_as_a_pause() -> None:
+    barrier = LockstepBarrier(["a"], PAUSING, now=0.0)
+    decisions = poll_every(barrier, 0.0, 3.2, period=0.05)  # 25 times slower than the node
+    assert all(d.paused == 0.0 for d in decisions)
+    assert not barrier.is_lost("a")  # a first answer has the startup timeout
+    answer(barrier, "a", now=3.2)
+    take_step(barrier, now=3.2)
+    decisions = poll_every(barrier, 3.2, 6.3, period=0.05)
+    assert [d.lost for d in decisions if d.lost] == [("a",)]
 
 
 def test_a_first_answer_gets_the_startup_timeout() -> None:

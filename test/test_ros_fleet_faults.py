@@ -7,6 +7,10 @@
   a centroidal Voronoi configuration has every generator at its cell's centroid, Du, Faber
   & Gunzburger, SIAM Review 41(4), 1999, sec. 1) and the launcher ends with status 3,
   naming the robot;
+- the simulator itself held (SIGSTOP, three times 3.5 s, longer than the 3 s answer timeout:
+  what a loaded or paused machine does to it): the held time is counted against nobody, no
+  participant is marked not answering, and every robot solves at every step (one solve per
+  sample time, common practice of sampled-data control);
 - the simulator stopped (SIGTERM) a few seconds into the run: the launcher says so, ends
   with a failure status, and still writes the trial of what was recorded.
 
@@ -15,11 +19,13 @@ Judged by exit statuses, log lines and the trial written, never by timings.
 
 from __future__ import annotations
 
+import csv
 import json
 import os
 import re
 import signal
 import sys
+import time
 from pathlib import Path
 
 import pytest
@@ -90,6 +96,32 @@ def test_a_stopped_controller_never_lets_the_run_end_settled(tmp_path: Path) -> 
     assert metrics["outcome"] != "settled", metrics["outcome"]
     # The others went on without rover_d: a roster change committed after it was lost.
     assert "rover_d leaves the gate" in run.log("base_station")
+
+
+def test_a_held_simulator_marks_nobody_lost(tmp_path: Path) -> None:
+    run = Launch(tmp_path)
+    run.wait_for_log("base_station", "generation 1 committed")
+    simulator = run.pid("simulator")
+    for pause in (0.3, 0.5, 0.7):  # unlike phases of the step: waiting, or about to step
+        os.kill(simulator, signal.SIGSTOP)
+        time.sleep(3.5)
+        os.kill(simulator, signal.SIGCONT)
+        time.sleep(pause)
+    status = run.wait()
+    log = run.log("simulator")
+    assert log.count("this process was held for") == 3, log[-3000:]
+    assert "no answer" not in log, log[-3000:]
+    assert status == 0, run.output[-3000:]
+    # Every robot's log has one row per state of the run, and from the second state on (the
+    # first may be answered before a controller's first solve is recorded) every one was
+    # answered with a solve: each rover's sample time is the simulation step.
+    metrics = json.loads((run.trial / "report" / "metrics.json").read_text())
+    states = round(metrics["simulated_time_s"] / 0.1) + 1
+    for robot, entry in metrics["solve_time"].items():
+        with (run.trial / "robots" / f"{robot}.csv").open(newline="") as handle:
+            ran = [row["controller_ran"] for row in csv.DictReader(handle)]
+        assert len(ran) == states and ran[1:] == ["1"] * (states - 1), (robot, ran)
+        assert entry["solves"] >= states - 1, (robot, entry, states)
 
 
 def test_a_simulator_stopped_mid_run_gives_a_clear_outcome_and_a_trial(tmp_path: Path) -> None:

@@ -71,6 +71,13 @@ def command(*args: str, timeout: float = RUN_TIMEOUT) -> subprocess.CompletedPro
     )
 
 
+def simulator_warnings(trial: Path) -> list[str]:
+    """The simulator's warnings (participants not answering, pauses): why solves went
+    missing, for a failure message."""
+    log = trial / "logs" / "simulator.log"
+    return [line for line in log.read_text().splitlines() if "[WARN]" in line]
+
+
 def rows(path: Path) -> list[dict[str, str]]:
     with path.open(newline="") as handle:
         return list(csv.DictReader(handle))
@@ -161,7 +168,9 @@ def test_the_recording_reads_back_with_the_mcap_reader_and_the_ros2_decoder(reco
         stamps = {(m.header.stamp.sec, m.header.stamp.nanosec) for m in decoded[f"/{robot}/odom"]}
         assert abs(len(stamps) - (steps + 1)) <= 2, (robot, len(stamps), steps)
         solves = len(decoded[f"/{robot}/coverage/solve"])
-        assert abs(solves - steps * STEP / sample_time) <= 3, (robot, solves, steps)
+        assert abs(solves - steps * STEP / sample_time) <= 3, (
+            robot, solves, steps, simulator_warnings(trial)
+        )
         first = decoded[f"/{robot}/odom"][0].pose.pose.position
         pose = load_mission_pose(trial, robot)
         # Recording starts before the simulator's first step: the first state recorded is
@@ -233,7 +242,9 @@ def test_the_trial_built_from_the_recording_agrees_with_the_offline_run(
     )
     for robot in ROBOTS:
         ros, off = ros_metrics["solve_time"][robot], offline_metrics["solve_time"][robot]
-        assert abs(ros["solves"] - off["solves"]) <= 3, (robot, ros, off)
+        assert abs(ros["solves"] - off["solves"]) <= 3, (
+            robot, ros, off, simulator_warnings(trial)
+        )
     openings = rows(trial / "gate_openings.csv")
     assert min(float(r["time"]) for r in openings) >= 0.0  # nothing before the first step
     for robot in ROBOTS:

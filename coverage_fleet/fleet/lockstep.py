@@ -36,6 +36,14 @@ controllers from step t + 1 (offline: at t), a one-step lag, the same on every r
 the controllers wait for the gate before answering would remove that lag but put the base
 station on every robot's control path, which real robots (with no barrier) never have.
 
+Only wall time during which the simulator itself ran counts against a participant. A gap
+between two polls longer than `LockstepTimeouts.pause` means the simulator's process (or the whole
+machine) was held; the answers that arrived meanwhile are still queued behind the poll
+(rclpy's executor runs a ready timer before ready subscriptions), so without this rule the
+first poll after a pause of more than `answer` seconds marked every participant lost, and the
+simulator raced ahead of all of them for tens of steps (seen once in CI: 33 of 150 solves
+missing on each robot of a 3-robot run). The pause is added to every deadline instead.
+
 While anyone is waited for, the current state is re-published every `republish` wall
 seconds, so that a participant that joins late still receives it. An answer to a
 re-publication counts as much as one to the first publication. The very first step also
@@ -64,11 +72,14 @@ SAME_TIME = 1e-6
 @dataclass(frozen=True)
 class LockstepTimeouts:
     """Wall seconds: per answer of a live controller, for a first answer, between
-    re-publications while waiting."""
+    re-publications while waiting, and between two polls beyond which the simulator counts
+    itself paused (module docstring; it polls every few milliseconds, so a hundred times that
+    is no scheduling jitter; inf: never)."""
 
     answer: float = 3.0
     startup: float = 120.0
     republish: float = 0.5
+    pause: float = 0.25
 
 
 @dataclass
@@ -95,6 +106,9 @@ class LockstepDecision:
     lost: tuple[str, ...] = ()
     #: Participants still waited for.
     waiting: tuple[str, ...] = field(default_factory=tuple)
+    #: Wall seconds the simulator was paused before this poll (0: no pause), counted
+    #: against nobody.
+    paused: float = 0.0
 
 
 class LockstepBarrier:
@@ -119,6 +133,7 @@ class LockstepBarrier:
             self._controllers[name] = _Participant(needs_command=False)
         self._published_wall = float(now)
         self._republished_wall = float(now)
+        self._polled_wall = float(now)
 
     def condition(self, name: str) -> str:
         return self._controllers[name].condition
@@ -154,6 +169,15 @@ class LockstepBarrier:
 
     def poll(self, now: float, connected: bool = True) -> LockstepDecision:
         """Check the barrier at wall time `now`; marks late participants lost."""
+        pause = now - self._polled_wall
+        self._polled_wall = float(now)
+        if pause <= self.timeouts.pause:
+            pause = 0.0
+        else:
+            # Nobody's lateness (module docstring): every deadline moves by the pause.
+            self._published_wall += pause
+            for controller in self._controllers.values():
+                controller.revived_wall += pause
         waiting: list[str] = []
         lost: list[str] = []
         for name, controller in self._controllers.items():
@@ -183,8 +207,8 @@ class LockstepBarrier:
             republish = now - self._republished_wall > self.timeouts.republish
             if republish:
                 self._republished_wall = float(now)
-            return LockstepDecision(False, republish, tuple(lost), tuple(waiting))
-        return LockstepDecision(True, False, tuple(lost), ())
+            return LockstepDecision(False, republish, tuple(lost), tuple(waiting), pause)
+        return LockstepDecision(True, False, tuple(lost), (), pause)
 
     def advanced(self, time: float, now: float) -> None:
         """The step was taken: the state at `time` was published at wall time `now`."""

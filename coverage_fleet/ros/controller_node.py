@@ -257,9 +257,13 @@ class ControllerNode(LifecycleNode):
             command_message_type(spec.command_kind, spec.command_stamped),
             topics.command_topic(spec.command_kind), qos.COMMAND,
         )
-        self.progress_pub = self.create_publisher(Vector3Stamped, topics.PROGRESS, qos.REPORTS)
+        self.progress_pub = self.create_publisher(
+            Vector3Stamped, topics.PROGRESS, qos.ROBOT_REPORTS
+        )
         self.plan_pub = self.create_publisher(Path, topics.PLAN, qos.DISPLAY)
-        self.solve_pub = self.create_publisher(DiagnosticStatus, topics.SOLVE, qos.REPORTS)
+        self.solve_pub = self.create_publisher(
+            DiagnosticStatus, topics.SOLVE, qos.ROBOT_REPORTS
+        )
         self.diag_pub = self.create_publisher(DiagnosticArray, topics.DIAGNOSTICS, qos.DISPLAY)
         # Fleet-wide topics are in the fleet's namespace, one level up (topics.py).
         fleet = fleet_namespace_of(self.get_namespace())

@@ -59,6 +59,13 @@ STATE_RECORDED = QoSProfile(
 COMMAND = STATE
 
 REPORTS = _reliable(10)
+#: A controller's own reports (progress, solve): as REPORTS, and the last ten are kept for a
+#: reader that matches late. The recorder's subscription to a controller can match after the
+#: controller's first answers (discovery runs per pair of processes; the lockstep simulator
+#: waits for the recorder's odometry subscriptions, not these), and a recording missed the
+#: first solves of a robot (seen in tests: 4 of 151). Readers that ask for volatile
+#: durability (the gate, the simulator) still match and get no history.
+ROBOT_REPORTS = _reliable(10, latched=True)
 
 #: Plans, cost, diagnostics: for people and tools watching; losing one is harmless.
 DISPLAY = _reliable(1)

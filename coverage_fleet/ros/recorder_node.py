@@ -103,10 +103,10 @@ def graph_topics(mission: Mission) -> list[tuple[str, str, QoSProfile]]:
             (topics.robot_topic(name, topics.TARGET), "geometry_msgs/msg/PointStamped",
              qos.LATCHED),
             (topics.robot_topic(name, topics.PROGRESS), "geometry_msgs/msg/Vector3Stamped",
-             qos.REPORTS),
+             qos.ROBOT_REPORTS),
             (topics.robot_topic(name, topics.PLAN), "nav_msgs/msg/Path", qos.DISPLAY),
             (topics.robot_topic(name, topics.SOLVE), "diagnostic_msgs/msg/DiagnosticStatus",
-             qos.REPORTS),
+             qos.ROBOT_REPORTS),
         ]
     found += [
         (topics.robot_topic(e.name, topics.ODOM), "nav_msgs/msg/Odometry", qos.STATE_RECORDED)

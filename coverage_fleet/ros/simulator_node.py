@@ -431,6 +431,11 @@ class SimulatorNode(Node):
         if barrier is None:  # only polled in lockstep mode
             return
         decision = barrier.poll(wallclock.monotonic(), self._connected())
+        if decision.paused:
+            self.get_logger().warning(
+                f"lockstep: this process was held for {decision.paused:.2f} s (a loaded or "
+                "paused machine); that time is counted against no controller"
+            )
         for name in decision.lost:
             consequence = (
                 "the fleet goes on without new commits until it answers"
