@@ -59,13 +59,16 @@ STATE_RECORDED = QoSProfile(
 COMMAND = STATE
 
 REPORTS = _reliable(10)
-#: A controller's own reports (progress, solve): as REPORTS, and the last ten are kept for a
-#: reader that matches late. The recorder's subscription to a controller can match after the
-#: controller's first answers (discovery runs per pair of processes; the lockstep simulator
-#: waits for the recorder's odometry subscriptions, not these), and a recording missed the
-#: first solves of a robot (seen in tests: 4 of 151). Readers that ask for volatile
-#: durability (the gate, the simulator) still match and get no history.
-ROBOT_REPORTS = _reliable(10, latched=True)
+#: A controller's own reports (progress, solve): as REPORTS, and the last thousand are kept
+#: for a reader that matches late. Discovery runs per pair of processes and each side
+#: matches on its own: in a full test run the recorder had matched a controller's report
+#: writers a second before the lockstep simulator started, but the writers matched the
+#: recorder only 14 steps into the run (a participant announces itself every few seconds),
+#: and the first solves, published to no reader yet, were lost (5 of 151; once 28 of 151
+#: with volatile reports). A lockstep run takes 50-100 steps a second, so a thousand
+#: samples (a few hundred bytes each) cover a lag of 10 s or more. Readers that ask for
+#: volatile durability (the gate, the simulator, the live view) match and get no history.
+ROBOT_REPORTS = _reliable(1000, latched=True)
 
 #: Plans, cost, diagnostics: for people and tools watching; losing one is harmless.
 DISPLAY = _reliable(1)
