@@ -8,16 +8,22 @@ example after the simulated clock stopped) then ignored SIGINT until the launch 
 escalated to SIGTERM. Instead the interpreter's wakeup file descriptor (written by the
 C-level trampoline for every handled signal, whichever Python handler is current) is read
 by a small thread that wakes the executor through a guard condition (StopSignals).
+
+A stopping process first lets every node say its last word (`before_stop`: the controller's
+braking input, the recorder's last messages), then destroys the nodes; a console script
+gives that teardown `TEARDOWN_LIMIT` seconds and then exits anyway, so that a stall inside
+the middleware never outlasts a launch service's grace period.
 """
 
 from __future__ import annotations
 
+import contextlib
 import faulthandler
 import os
 import signal
 import sys
 import threading
-from collections.abc import Callable, Sequence
+from collections.abc import Callable, Iterator, Sequence
 from typing import NoReturn
 
 import rclpy
@@ -116,9 +122,12 @@ def run_nodes(
     factories: Sequence[Callable[[], Node]],
     program: str,
     args: Sequence[str] | None = None,
+    teardown_limit: float | None = None,
 ) -> int:
     """Create the nodes and spin them in one executor until shutdown. Returns the exit
-    status: 0 on a signal or a finished run, 2 on bad configuration."""
+    status: 0 on a signal or a finished run, 2 on bad configuration. With `teardown_limit`
+    (wall seconds; only for a process that ends right after, see `_bounded_teardown`) the
+    process exits with that status if destroying the nodes takes longer."""
     # `kill -USR1 <pid>` prints every thread's stack to the node's log: the way to see
     # where a node that stopped answering is stuck.
     faulthandler.register(signal.SIGUSR1, all_threads=True)
@@ -155,14 +164,53 @@ def run_nodes(
     except Exception:
         # A signal during start-up shuts the context down under the node being built.
         if rclpy.ok():
+            status = 1
             raise
         status = 0
     finally:
         for node in nodes:
             _before_stop(node, program)
-            node.destroy_node()
-        rclpy.try_shutdown()
+        with _bounded_teardown(program, status, teardown_limit):
+            for node in nodes:
+                node.destroy_node()
+            rclpy.try_shutdown()
     return status
+
+
+#: Wall seconds the middleware gets to destroy a stopping process's nodes. It usually takes
+#: 10-70 ms on this project's graph; once in a CI run two controllers and the base station
+#: took more than 5 s after their last word (the braking input, acknowledged) and the
+#: launch service escalated to SIGTERM; probing under load found single destroys of 1.0 and
+#: 3.0 s. A launch service waits 5 s (from memory: launch's default sigterm_timeout) before
+#: it escalates, and a process stopped on its own must free its robot's name for a restart.
+TEARDOWN_LIMIT = 2.0
+
+
+@contextlib.contextmanager
+def _bounded_teardown(program: str, status: int, limit: float | None) -> Iterator[None]:
+    """Exit the process with `status` if the block takes longer than `limit` wall seconds.
+
+    Only for the teardown after every node's last word: nothing the nodes still owe their
+    robots or peers is left, and peers notice a participant that left without saying so
+    when its lease runs out, as they do for a process that was killed."""
+    if limit is None:
+        yield
+        return
+
+    def give_up() -> None:
+        rclpy.logging.get_logger(program).warning(
+            f"stopping: the middleware took more than {limit} s to destroy the nodes; "
+            "exiting without waiting further (everything the nodes had to send was sent)"
+        )
+        exit_process(status)
+
+    timer = threading.Timer(limit, give_up)
+    timer.daemon = True
+    timer.start()
+    try:
+        yield
+    finally:
+        timer.cancel()
 
 
 def _status_on_stop(node: Node, number: int | None) -> int:
@@ -198,4 +246,4 @@ def exit_process(status: int) -> NoReturn:
 
 def main_for(*factories: Callable[[], Node], program: str) -> NoReturn:
     """Console-script entry point body: run the nodes in one process, then exit."""
-    exit_process(run_nodes(list(factories), program))
+    exit_process(run_nodes(list(factories), program, teardown_limit=TEARDOWN_LIMIT))

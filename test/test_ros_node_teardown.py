@@ -1,0 +1,82 @@
+"""A node process that was told to stop ends even when the middleware's teardown stalls.
+
+A launch service gives a stopping process a few seconds before it escalates to SIGTERM and
+then SIGKILL (launch's default sigterm_timeout of 5 s, from memory); once in CI two
+controllers and the base station stayed in DDS teardown longer than that, after their last
+word had gone out. A process ends within `runtime.TEARDOWN_LIMIT` of its teardown starting
+and says why, with the status it would have had (common practice: an emergency or operator
+stop must not depend on a clean middleware shutdown).
+
+Real node processes over DDS on loopback, run through the same `main_for` as every console
+script. The stalled teardown is a node whose `destroy_node` waits an hour (the real stall
+could not be produced on demand); the same node without the wait is the positive control:
+it ends without the warning.
+"""
+
+from __future__ import annotations
+
+import signal
+import sys
+import textwrap
+
+import pytest
+from support_processes import WatchedProcess
+
+pytest.importorskip("rclpy", reason="ROS 2 wheels not installed (scripts/setup_env.sh)")
+
+#: Wall seconds before the test gives up on a process (a hang, not a timing check: the limit
+#: under test is a few seconds).
+PATIENCE = 60.0
+
+NODE_PROCESS = textwrap.dedent(
+    """
+    import sys
+    import time
+
+    from rclpy.node import Node
+
+    from coverage_fleet.ros.runtime import main_for
+
+    STALL = sys.argv[1] == "stall"
+
+
+    class TeardownProbe(Node):
+        def __init__(self):
+            super().__init__("teardown_probe")
+            self.create_timer(0.05, self._spinning)
+            self._said = False
+
+        def _spinning(self):
+            if not self._said:
+                print("spinning", flush=True)
+                self._said = True
+
+        def before_stop(self):
+            print("last word sent", flush=True)
+
+        def destroy_node(self):
+            if STALL:
+                time.sleep(3600.0)
+            super().destroy_node()
+
+
+    main_for(TeardownProbe, program="teardown_probe")
+    """
+)
+
+
+@pytest.mark.parametrize("stop_signal", [signal.SIGINT, signal.SIGTERM], ids=["sigint", "sigterm"])
+@pytest.mark.parametrize("teardown", ["stall", "prompt"])
+def test_a_stopped_node_process_ends_even_when_its_teardown_stalls(
+    teardown: str, stop_signal: signal.Signals
+) -> None:
+    process = WatchedProcess([sys.executable, "-c", NODE_PROCESS, teardown], PATIENCE)
+    process.wait_until(lambda: "spinning" in process.output, "the node spinning")
+    process.process.send_signal(stop_signal)
+    status = process.wait()
+    output = process.output
+    assert status == 0, output
+    assert "last word sent" in output, output
+    warned = "took more than" in output and "to destroy the nodes" in output
+    assert warned == (teardown == "stall"), output
+    assert "Traceback" not in output, output
