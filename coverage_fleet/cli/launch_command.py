@@ -14,6 +14,7 @@ import argparse
 import contextlib
 import os
 import shlex
+import signal
 import sys
 import time
 from collections.abc import Callable
@@ -372,6 +373,24 @@ def _start_view(mission: Mission, namespace: str = ""):
         return None
 
 
+#: Signals with which a process crashes (rather than is stopped); launched nodes print their
+#: Python stack on them (`launcher.ros_environment`: PYTHONFAULTHANDLER).
+CRASH_SIGNALS = frozenset({signal.SIGSEGV, signal.SIGBUS, signal.SIGFPE, signal.SIGILL,
+                           signal.SIGABRT})
+
+
+def exit_text(code: int | None) -> str:
+    """"status N", naming the signal that ended the process (subprocess gives -number)."""
+    if code is None or code >= 0:
+        return f"status {code}"
+    try:
+        name = signal.Signals(-code).name
+    except ValueError:
+        name = f"signal {-code}"
+    crashed = "; its log ends with the Python stack" if -code in CRASH_SIGNALS else ""
+    return f"status {code} (ended by {name}{crashed})"
+
+
 def _watch(graph: GraphProcesses, wait: Callable[[float], None] = time.sleep) -> int:
     """Until the simulation is over or a node other than a controller exits; returns the
     exit status (EXIT_NODE_DIED when any node died). `wait` passes the time between checks
@@ -394,7 +413,7 @@ def _watch(graph: GraphProcesses, wait: Callable[[float], None] = time.sleep) ->
             if node.spec.role.startswith("controller"):
                 # A fault in one robot never takes the fleet down: the others go on.
                 print(
-                    f"launch: {node.spec.label} exited with status {code} "
+                    f"launch: {node.spec.label} exited with {exit_text(code)} "
                     f"(see {node.log_path}); the rest of the fleet goes on",
                     file=sys.stderr, flush=True,
                 )
@@ -402,7 +421,7 @@ def _watch(graph: GraphProcesses, wait: Callable[[float], None] = time.sleep) ->
                 continue
             partial = "; the trial is partial" if node.spec.role == SIMULATOR_ROLE else ""
             print(
-                f"launch: {node.spec.label} exited with status {code} "
+                f"launch: {node.spec.label} exited with {exit_text(code)} "
                 f"(see {node.log_path}); stopping the graph{partial}",
                 file=sys.stderr, flush=True,
             )

@@ -52,6 +52,11 @@ def ros_environment(environ: Mapping[str, str]) -> tuple[dict[str, str], list[st
     if not env.get("ROS_DOMAIN_ID"):
         env["ROS_DOMAIN_ID"] = str(random.SystemRandom().randint(5, 95))
         notes.append(f"ROS_DOMAIN_ID={env['ROS_DOMAIN_ID']} (chosen for this run)")
+    # A node that crashes (in the middleware, a solver, or while importing them) prints its
+    # Python stack into its log from the interpreter's first instruction on: once in CI a
+    # recorder ended by SIGSEGV during start-up with an empty log. runtime.run_nodes
+    # enables the same for nodes started any other way, from its own start.
+    env.setdefault("PYTHONFAULTHANDLER", "1")
     return env, notes
 
 

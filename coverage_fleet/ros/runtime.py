@@ -131,6 +131,8 @@ def run_nodes(
     # `kill -USR1 <pid>` prints every thread's stack to the node's log: the way to see
     # where a node that stopped answering is stuck.
     faulthandler.register(signal.SIGUSR1, all_threads=True)
+    # A crash (SIGSEGV in the middleware or a solver, ...) prints the Python stack too.
+    faulthandler.enable(all_threads=True)
     rclpy.init(
         args=list(sys.argv if args is None else args),
         signal_handler_options=SignalHandlerOptions.NO,
