@@ -10,8 +10,8 @@ C-level trampoline for every handled signal, whichever Python handler is current
 by a small thread that wakes the executor through a guard condition (StopSignals).
 
 A stopping process first lets every node say its last word (`before_stop`: the controller's
-braking input, the recorder's last messages), then destroys the nodes; a console script
-gives that teardown `TEARDOWN_LIMIT` seconds and then exits anyway, so that a stall inside
+braking input, the recorder's last messages), then destroys the nodes; it gives that
+teardown `TEARDOWN_LIMIT` seconds and then exits anyway, so that a stall inside
 the middleware never outlasts a launch service's grace period.
 """
 
@@ -122,12 +122,11 @@ def run_nodes(
     factories: Sequence[Callable[[], Node]],
     program: str,
     args: Sequence[str] | None = None,
-    teardown_limit: float | None = None,
 ) -> int:
     """Create the nodes and spin them in one executor until shutdown. Returns the exit
-    status: 0 on a signal or a finished run, 2 on bad configuration. With `teardown_limit`
-    (wall seconds; only for a process that ends right after, see `_bounded_teardown`) the
-    process exits with that status if destroying the nodes takes longer."""
+    status: 0 on a signal or a finished run, 2 on bad configuration. For a process that
+    ends right after (`main_for`): if destroying the nodes takes longer than
+    `TEARDOWN_LIMIT`, the process exits with that status there and then."""
     # `kill -USR1 <pid>` prints every thread's stack to the node's log: the way to see
     # where a node that stopped answering is stuck.
     faulthandler.register(signal.SIGUSR1, all_threads=True)
@@ -172,7 +171,7 @@ def run_nodes(
     finally:
         for node in nodes:
             _before_stop(node, program)
-        with _bounded_teardown(program, status, teardown_limit):
+        with _bounded_teardown(program, status):
             for node in nodes:
                 node.destroy_node()
             rclpy.try_shutdown()
@@ -180,7 +179,7 @@ def run_nodes(
 
 
 #: Wall seconds the middleware gets to destroy a stopping process's nodes. It usually takes
-#: 10-70 ms on this project's graph; once in a CI run two controllers and the base station
+#: 6-70 ms on this project's graph; once in a CI run two controllers and the base station
 #: took more than 5 s after their last word (the braking input, acknowledged) and the
 #: launch service escalated to SIGTERM; probing under load found single destroys of 1.0 and
 #: 3.0 s. A launch service waits 5 s (from memory: launch's default sigterm_timeout) before
@@ -189,24 +188,21 @@ TEARDOWN_LIMIT = 2.0
 
 
 @contextlib.contextmanager
-def _bounded_teardown(program: str, status: int, limit: float | None) -> Iterator[None]:
-    """Exit the process with `status` if the block takes longer than `limit` wall seconds.
+def _bounded_teardown(program: str, status: int) -> Iterator[None]:
+    """Exit the process with `status` if the block takes longer than `TEARDOWN_LIMIT`.
 
     Only for the teardown after every node's last word: nothing the nodes still owe their
     robots or peers is left, and peers notice a participant that left without saying so
     when its lease runs out, as they do for a process that was killed."""
-    if limit is None:
-        yield
-        return
 
     def give_up() -> None:
         rclpy.logging.get_logger(program).warning(
-            f"stopping: the middleware took more than {limit} s to destroy the nodes; "
+            f"stopping: the middleware took more than {TEARDOWN_LIMIT} s to destroy the nodes; "
             "exiting without waiting further (everything the nodes had to send was sent)"
         )
         exit_process(status)
 
-    timer = threading.Timer(limit, give_up)
+    timer = threading.Timer(TEARDOWN_LIMIT, give_up)
     timer.daemon = True
     timer.start()
     try:
@@ -248,4 +244,4 @@ def exit_process(status: int) -> NoReturn:
 
 def main_for(*factories: Callable[[], Node], program: str) -> NoReturn:
     """Console-script entry point body: run the nodes in one process, then exit."""
-    exit_process(run_nodes(list(factories), program, teardown_limit=TEARDOWN_LIMIT))
+    exit_process(run_nodes(list(factories), program))
