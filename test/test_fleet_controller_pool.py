@@ -17,10 +17,12 @@ What is checked, and against what:
   optimum found by trying every split; for a fleet whose slower vehicles all solve on the
   same ticks, its busiest tick is lighter than with the same rule on the mean work per
   tick alone (which piles the slow vehicles' ticks on one process), and no lighter than
-  the optimum found by trying every split (a check of the test's own arithmetic); on a
-  short run it keeps each vehicle file's robots on one process (each process builds the
-  problems of fewer vehicle files) when that lowers the expected work builds included,
-  and a long run gets the tick-balanced split;
+  the optimum found by trying every split (a check of the test's own arithmetic); for 16
+  robots of four vehicle files it mixes the files, its busiest ticks lighter than those of
+  every split that keeps each file's robots together (all 16 tried);
+- the pool builds each vehicle file's problem once, before it forks its workers: a worker
+  whose robots share vehicle files with this process's builds no problem while starting,
+  and its robots' cold starts are answered by the inherited full solve;
 - while the pool runs, this thread and each worker run on CPUs of their own (as far as
   there are CPUs), and this thread gets its former CPUs back when the pool closes;
 - the stage counters count what the log holds (ticks, robot-steps, solves) and their times
@@ -42,13 +44,14 @@ from support_missions import short_quick_mission
 from coverage_fleet.cli.main import main
 from coverage_fleet.fleet.controller_pool import ControllerPool, usable_cpus
 from coverage_fleet.fleet.controllers import (
-    BUILD_WORK,
     assign_robots,
+    fleet_snapshot,
     phase_loads,
     solve_weight,
     split_work,
 )
 from coverage_fleet.fleet.mission import Mission, RobotEntry, simulation_step
+from coverage_fleet.fleet.plants import initial_state
 from coverage_fleet.fleet.simulation import simulate_mission
 from coverage_fleet.fleet.step import StageTimes
 from coverage_fleet.fleet.trial import log_texts_without_wall_clock
@@ -156,24 +159,45 @@ def test_robot_split_balances_the_ticks_on_which_slower_vehicles_solve(
     assert _busiest_tick(loads, split, 2) < _busiest_tick(loads, mean_split, 2)
 
 
-def test_a_short_run_keeps_each_vehicle_files_robots_together(mixed_mission: Mission) -> None:
+def test_split_mixes_vehicle_files_when_that_balances_the_ticks_better(
+    mixed_mission: Mission,
+) -> None:
     step = 0.1
     roster = _renamed(mixed_mission.roster * 4)  # 16 robots, four vehicle files
     loads = phase_loads(roster, step)
     groups = [entry.vehicle.cache_key for entry in roster]
+    where = {name: w for w, share in enumerate(assign_robots(roster, step, 2)) for name in share}
+    split = [where[entry.name] for entry in roster]
+    assert len({g for g, w in zip(groups, split, strict=True) if w == 0}) > 2  # mixed
+    kinds = list(dict.fromkeys(groups))
+    whole_groups = min(
+        split_work(loads, [dict(zip(kinds, placing, strict=True))[g] for g in groups], 2)
+        for placing in itertools.product(range(2), repeat=len(kinds))
+    )
+    assert split_work(loads, split, 2) < whole_groups
 
-    def process_of(shares: list[list[str]]) -> list[int]:
-        where = {name: w for w, share in enumerate(shares) for name in share}
-        return [where[entry.name] for entry in roster]
 
-    short, long = process_of(assign_robots(roster, step, 2, ticks=201)), process_of(
-        assign_robots(roster, step, 2))
-    held = [{g for g, w in zip(groups, short, strict=True) if w == p} for p in (0, 1)]
-    assert [len(h) for h in held] == [2, 2]  # every vehicle file on one process
-    assert len({g for g, w in zip(groups, long, strict=True) if w == 0}) > 2  # mixed
-    build = BUILD_WORK / 201
-    assert split_work(loads, groups, short, 2, build) < split_work(loads, groups, long, 2, build)
-    assert split_work(loads, groups, long, 2, 0.0) <= split_work(loads, groups, short, 2, 0.0)
+def test_pool_builds_each_vehicle_files_problem_once_before_the_workers_fork(
+    mixed_mission: Mission,
+) -> None:
+    roster = _renamed(mixed_mission.roster * 2)  # 8 robots, four vehicle files
+    mission = replace(mixed_mission, roster=roster)
+    step = simulation_step(roster, mission.simulation)
+    with ControllerPool(mission, step, 2) as pool:
+        held = [{e.vehicle.cache_key for e in roster if e.name in share}
+                for share in pool.shares]
+        assert held[0] & held[1]  # a vehicle file on both processes: built once all the same
+        states = {e.name: initial_state(e, e.initial_pose) for e in roster}
+        positions = {e.name: e.vehicle.model.position(states[e.name]) for e in roster}
+        for name, position in positions.items():
+            pool.set_target(name, 1, position + np.array([0.5, 0.3]), 0.6)
+        if mission.keep_apart.enabled:
+            pool.add_snapshot(fleet_snapshot(mission, 0.0, positions))
+        answers = pool.answer_all(states, 0.0)
+        assert pool.start_builds == [0]  # the worker inherited every problem it needs
+        # Every robot's cold start went to the inherited full solve (IPOPT may rescue it).
+        assert all(answers[e.name].step.success for e in roster)
+        assert all(answers[e.name].step.status.startswith("fatrop: ") for e in roster)
 
 
 def test_three_processes_and_more_processes_than_robots_write_the_same_log(

@@ -127,6 +127,7 @@ from coverage_fleet.control.solver_chain import (
     ChainResult,
     FastProblem,
     NlpInstance,
+    NlpsolStrategy,
     SolverChain,
     SolveStrategy,
     VariableSubset,
@@ -478,6 +479,17 @@ class TrackingMpc:
         self._steady_centre: np.ndarray | None = None
         #: _shift_index's answers by decision-vector size.
         self._shift_indices: dict[int, np.ndarray] = {}
+
+    def build_full_solve(self) -> None:
+        """Build now the configured plugin's full solve of the problem for cell_rows, which
+        an MPC built with prebuild False builds at the first sample that needs it. Every
+        robot's cold start needs it (the real-time step never answers one), so an offline
+        fleet builds it with its controllers (fleet/controllers.LocalControllers), and a
+        controller pool before it forks its workers, which then all hold it
+        (fleet/controller_pool.py)."""
+        for strategy in self._problems[self.cell_rows].chain.strategies:
+            if isinstance(strategy, NlpsolStrategy) and strategy.name == self.plugin:
+                strategy.build()
 
     # --- construction ------------------------------------------------------------------
 

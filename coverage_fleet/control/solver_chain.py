@@ -242,6 +242,10 @@ class NlpsolStrategy:
             self._solver = BufferedFunction(self._build())
         return self._solver
 
+    def build(self) -> None:
+        """Build the solver now when it is built at the first attempt (a no-op once built)."""
+        _ = self.solver
+
     def attempt(self, instance: NlpInstance) -> Attempt:
         answer = self._run(instance)
         runs = 1

@@ -25,18 +25,22 @@ cores):
   POSIX only, as the socket pairs already were.
 - A worker holds its robots' sampled controllers for the whole run: warm starts, held
   inputs and fallback plans stay where they were made, and only states, targets and
-  answers cross the process boundary (a few hundred bytes per robot and tick). The MPC
-  problems are built after the fork, in the process that solves them (casadi objects do
-  not pickle, and a build is only made when a robot first needs it: 15 problems and 7 full
-  solvers, 1.2-1.5 s, in a 16-robot run of four vehicle types), so every process builds
-  the problems of the vehicle files it holds; the split weighs that
-  (`controllers.assign_robots`). The terminal ingredients are computed (or read) once
-  here first (control/terminal.py). This process's own share gets a fresh set of builds
-  (control/shared_problems.py), as a worker's: a run does not borrow builds from the
-  thread's earlier runs, so a pooled run and a one-process run pay the same builds.
+  answers cross the process boundary (a few hundred bytes per robot and tick).
+- Every vehicle file's MPC problem (for the fleet's keep-apart row count) and its full
+  solve are built here, for one robot of each vehicle file, before the workers are
+  forked: casadi objects do not pickle, but a forked worker inherits them in memory (copy
+  on write), so each is built once per run instead of once per process that holds a
+  robot of that vehicle file (the worker reports the problems it built while starting:
+  `start_builds`, 0). The terminal ingredients go into their cache on the way
+  (control/terminal.py). Before, each process built its own (the split then kept vehicle
+  files together on short runs to build fewer, and so balanced the ticks worse). What is
+  built on first use (the smaller row budgets' problems, the IPOPT rescue, the full solve
+  of a budget's problem) is still built in the process that first needs it. This
+  process's own share uses the same builds as the workers: a run does not borrow builds
+  from the thread's earlier runs, so a pooled run and a one-process run build the same
+  problems.
 - The first tick waits for a worker's "ready" only when it needs its answers: this
-  process builds its own share's controllers and answers its share of the first tick
-  meanwhile.
+  process answers its share of the first tick meanwhile.
 - Every process runs on a CPU of its own (process k on the k-th usable CPU, modulo their
   number; this thread's former CPUs come back at `close`). Unpinned, two workers on a
   quiet 2-core machine waited for a CPU while the other CPU idled, in some runs little
@@ -47,14 +51,11 @@ cores):
   with other work cannot escape a busy CPU this way; on two cores it hardly could anyway.
 - Robots are split for the least expected critical work (`controllers.assign_robots`):
   tick by tick, so that a mixed fleet neither puts its slow vehicles on one process nor
-  all the robots that solve on the same ticks (0.2 s vessels among 0.1 s vehicles), and,
-  on a short run, with whole vehicle groups on one process when the builds that saves
-  outweigh the balance lost (16 robots of four vehicle types, 20 s: the two processes
-  built 9 + 9 problems with the vehicles mixed, 5 + 5 with two vehicle types each). The
+  all the robots that solve on the same ticks (0.2 s vessels among 0.1 s vehicles). The
   split is fixed for the run (a controller's state does not move between processes), so
-  it cannot follow the work that comes in bursts: a build, and the full solves of samples
-  the real-time step could not answer (1 % of the samples, a third of the solve time);
-  in those ticks one process works while the other waits.
+  it cannot follow the work that comes in bursts: the full solves of samples the
+  real-time step could not answer (1 % of the samples, a quarter of the solve time); in
+  those ticks one process works while the other waits.
 - Each tick this process sends every worker its robots' states (and any newly committed
   targets and keep-apart snapshots) before it answers its own share and then waits for
   the replies, so all processes solve at the same time; the answers are put back in
@@ -98,7 +99,6 @@ import numpy as np
 
 from coverage_fleet.control.sampling import Answer
 from coverage_fleet.control.shared_problems import SharedProblems
-from coverage_fleet.control.terminal import terminal_for_vehicle
 from coverage_fleet.errors import ConfigError
 from coverage_fleet.fleet.controllers import LocalControllers, assign_robots
 from coverage_fleet.fleet.mission import Mission
@@ -153,27 +153,28 @@ class ControllerPool:
     worker processes (fewer when there are fewer robots). Use as a context manager, or call
     `close`."""
 
-    def __init__(
-        self, mission: Mission, step: float, workers: int, ticks: int | None = None
-    ) -> None:
-        """ticks: how many ticks the run lasts, if known (the split weighs the builds each
-        process pays against balance: controllers.assign_robots)."""
+    def __init__(self, mission: Mission, step: float, workers: int) -> None:
         if workers < 1:
             raise ValueError(f"workers must be at least 1, got {workers}")
-        split = assign_robots(mission.roster, step, workers, ticks)
+        split = assign_robots(mission.roster, step, workers)
         #: Robot names per process: this process's first (it may be empty), then each
         #: worker's.
         self.shares = [split[0], *(share for share in split[1:] if share)]
         self._worker_of = {name: w for w, share in enumerate(self.shares) for name in share}
-        seen: set[str] = set()
-        for entry in mission.roster:
-            if entry.vehicle.cache_key not in seen:
-                seen.add(entry.vehicle.cache_key)
-                terminal_for_vehicle(entry.vehicle)  # into the cache before the workers read
+        # One robot of each vehicle file: its terminal ingredients go into the cache and
+        # its problem and full solve into `builds` before the workers are forked, so every
+        # process holds them (module docstring).
+        firsts = list({e.vehicle.cache_key: e.name for e in reversed(mission.roster)}.values())
+        builds: SharedProblems = SharedProblems()
+        LocalControllers(mission, step, firsts, builds=builds)
         self._processes: list[multiprocessing.process.BaseProcess] = []
         self._connections: list[Connection] = []
         #: Whether each worker has said it built its controllers (its first tick waits).
         self._started: list[bool] = []
+        #: Problems each worker built while it built its controllers (the ones this
+        #: process built before the fork are inherited: 0 for a roster's own vehicle
+        #: files), known once it has started.
+        self.start_builds: list[int | None] = []
         self._targets: list[list[tuple[str, Hashable, np.ndarray, float]]] = [
             [] for _ in self.shares
         ]
@@ -200,15 +201,15 @@ class ControllerPool:
             gc.freeze()
             try:
                 for index, share in enumerate(self.shares[1:], start=1):
-                    self._start_worker(mission, step, share, self._cpu_of[index])
+                    self._start_worker(mission, step, share, self._cpu_of[index], builds)
                     self._started.append(False)
+                    self.start_builds.append(None)
             finally:
                 gc.unfreeze()
             self._allowed_before = pin_to(self._cpu_of[0])
-            # Built while the workers build theirs (a fresh set of builds, as a worker's:
-            # a run does not borrow the builds of this thread's earlier runs).
-            self._local = LocalControllers(mission, step, self.shares[0],
-                                           builds=SharedProblems())
+            # The builds made above, as the workers' (a run does not borrow the builds of
+            # this thread's earlier runs).
+            self._local = LocalControllers(mission, step, self.shares[0], builds=builds)
         except BaseException:
             self.close()
             raise
@@ -224,7 +225,8 @@ class ControllerPool:
         return [process.pid for process in self._processes]
 
     def _start_worker(
-        self, mission: Mission, step: float, names: list[str], cpu: int | None
+        self, mission: Mission, step: float, names: list[str], cpu: int | None,
+        builds: SharedProblems,
     ) -> None:
         ours, theirs = socket.socketpair()
         with ours, theirs:
@@ -232,7 +234,7 @@ class ControllerPool:
             inherited = [c.fileno() for c in self._connections] + [ours.fileno()]
             process = _FORK.Process(
                 target=_worker_main, name=f"controller-worker-{len(self._processes) + 1}",
-                args=(theirs.fileno(), inherited, mission, float(step), names, cpu),
+                args=(theirs.fileno(), inherited, mission, float(step), names, cpu, builds),
                 daemon=True,
             )
             process.start()
@@ -297,7 +299,8 @@ class ControllerPool:
         self.cpu_seconds[0] += time.process_time() - cpu_started
         for process in range(1, len(self.shares)):
             if not self._started[process - 1]:
-                self._receive(process - 1, WORKER_START_TIMEOUT_S, "start")
+                self.start_builds[process - 1] = self._receive(
+                    process - 1, WORKER_START_TIMEOUT_S, "start")
                 self._started[process - 1] = True
             share_answers, busy, cpu = self._receive(process - 1, None, "a tick")
             answers.update(share_answers)
@@ -334,27 +337,32 @@ class ControllerPool:
 
 def _worker_main(
     descriptor: int, inherited: list[int], mission: Mission, step: float, names: list[str],
-    cpu: int | None,
+    cpu: int | None, builds: SharedProblems,
 ) -> None:
     """A forked worker's first steps: a session of its own (a terminal's Ctrl-C reaches only
-    the parent), only its own socket, its CPU; then `serve`."""
+    the parent), only its own socket, its CPU; then `serve` with the builds it inherited."""
     os.setsid()
     for other in inherited:
         with contextlib.suppress(OSError):
             os.close(other)
     pin_to(cpu)
-    serve(Connection(descriptor), mission, step, names)
+    serve(Connection(descriptor), mission, step, names, builds)
 
 
-def serve(connection: Connection, mission: Mission, step: float, names: list[str]) -> None:
-    """The worker's side: build the controllers of `names`, say "ready", then answer ticks
-    until told to stop or the socket closes. Faults go back as ("error", traceback)."""
+def serve(
+    connection: Connection, mission: Mission, step: float, names: list[str],
+    builds: SharedProblems,
+) -> None:
+    """The worker's side: build the controllers of `names` (with `builds`), say "ready" with
+    the number of problems that took, then answer ticks until told to stop or the socket
+    closes. Faults go back as ("error", traceback)."""
+    before = builds.builds
     try:
-        controllers = LocalControllers(mission, step, names, builds=SharedProblems())
+        controllers = LocalControllers(mission, step, names, builds=builds)
     except Exception:
         connection.send(("error", traceback.format_exc()))
         return
-    connection.send(("ready", None))
+    connection.send(("ready", builds.builds - before))
     while True:
         try:
             message = connection.recv()

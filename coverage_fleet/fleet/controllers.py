@@ -20,7 +20,6 @@ of that tick.
 
 from __future__ import annotations
 
-import itertools
 import math
 from collections.abc import Hashable, Mapping, Sequence
 from typing import Protocol
@@ -145,6 +144,11 @@ class LocalControllers:
             )
             for name in chosen
         }
+        # Built here, not at the first tick: every robot's cold start needs it (with
+        # shared builds, once per vehicle file; a controller pool builds them before it
+        # forks its workers).
+        for controller in self.controllers.values():
+            controller.controller.mpc.build_full_solve()
 
     def set_target(
         self, name: str, key: Hashable, target: np.ndarray, distance_at_commit: float
@@ -207,85 +211,37 @@ def phase_loads(roster: Sequence[RobotEntry], step: float) -> np.ndarray:
     ]).reshape(len(roster), cycle)
 
 
-#: What one process's builds of one vehicle file's MPC problems cost, in `solve_size` units
-#: (the work of one solve): the builds of a 16-robot run of the four shipped vehicle types
-#: (benchmarks/fleet_sim_benchmark.py, 20 s simulated, one process: 15 problems, vehicle
-#: types times keep-apart row budgets, and 7 full solvers) took 1.9-2.1 s while a solve of
-#: size 100 (the rover's) took 0.8 ms, and 1.2-1.5 s against 0.6 ms after the faster builds
-#: of 56ad906: 0.3-0.5 s a vehicle type, 50 000-65 000 units.
-#: Every process that holds a robot of a vehicle file pays them again (casadi objects do
-#: not pickle), so on a short run a split that keeps the robots of one vehicle file
-#: together can beat one that balances each tick. Since the row budgets are rented
-#: (control/mpc.RENTED_SAMPLES) a type's builds in that run are 0.1-0.3 s; a split tuned
-#: to that (and a solve size fitted to each vehicle's measured solve time) balanced the
-#: ticks better but built more, and measured no faster (setup and tick loop, 16 robots on
-#: two processes, three alternating runs: 2.98-3.24 s against 2.88-3.37 s with this one),
-#: so this stays.
-BUILD_WORK = 60_000.0
-#: Splits of whole vehicle groups tried at most (processes ** groups); beyond, only the
-#: robot-by-robot split.
-GROUP_SPLITS_MAX = 4096
-
-
 def assign_robots(
-    roster: Sequence[RobotEntry], step: float, workers: int, ticks: int | None = None
+    roster: Sequence[RobotEntry], step: float, workers: int
 ) -> list[list[str]]:
     """Robot names per process (exactly `workers` lists, some possibly empty), for the
-    least expected critical work per tick, `split_work`: the busiest process's solve work at
-    each tick of the sampling cycle (`phase_loads`), plus, for a run of `ticks` ticks, the
-    builds each process pays for every vehicle file it holds (BUILD_WORK spread over the
-    run; None: a run long enough that they do not count). Two candidates, the lighter kept
-    (ties: the first):
-    - robot by robot: heaviest robot first (mean work per tick), each to the process whose
-      busiest tick stays lightest, builds included (ties: the lighter process over the
-      cycle, then the lower one); with one tick per cycle and no builds this is the
-      longest-processing-time-first rule. It spreads the robots that solve on the same
-      ticks (0.2 s vessels among 0.1 s vehicles) over the processes;
-    - whole vehicle groups (the robots of one vehicle file), every way of placing them
-      (up to GROUP_SPLITS_MAX): each process builds fewer vehicle files.
+    least expected critical work per tick (`split_work`: the busiest process's solve work
+    at each tick of the sampling cycle, `phase_loads`): robot by robot, heaviest first
+    (mean work per tick), each to the process whose busiest tick stays lightest (ties: the
+    lighter process over the cycle, then the lower one). With one tick per cycle this is
+    the longest-processing-time-first rule; over a cycle it spreads the robots that solve
+    on the same ticks (0.2 s vessels among 0.1 s vehicles) over the processes. Vehicle
+    files are mixed freely: every process holds every vehicle file's builds at the cost of
+    one (fleet/controller_pool.py builds them before it forks its workers).
     Deterministic; within a process the names keep roster order."""
     if workers < 1:
         raise ValueError(f"workers must be at least 1, got {workers}")
     loads = phase_loads(roster, step)
-    groups = [entry.vehicle.cache_key for entry in roster]
-    build = 0.0 if ticks is None else BUILD_WORK / max(1, ticks)
-    candidates = [_robot_by_robot(loads, groups, workers, build)]
-    kinds = list(dict.fromkeys(groups))
-    if workers > 1 and len(kinds) > 1 and workers ** len(kinds) <= GROUP_SPLITS_MAX:
-        for placing in itertools.product(range(workers), repeat=len(kinds)):
-            home = dict(zip(kinds, placing, strict=True))
-            candidates.append([home[g] for g in groups])
-    best = min(candidates, key=lambda split: split_work(loads, groups, split, workers, build))
-    return [[roster[k].name for k in range(len(roster)) if best[k] == w]
+    work = np.zeros((workers, loads.shape[1]))
+    split = [0] * len(roster)
+    for k in sorted(range(len(roster)), key=lambda k: (-loads[k].mean(), k)):
+        after = [work[w] + loads[k] for w in range(workers)]
+        target = min(range(workers), key=lambda w: (after[w].max(), after[w].sum(), w))
+        work[target] = after[target]
+        split[k] = target
+    return [[roster[k].name for k in range(len(roster)) if split[k] == w]
             for w in range(workers)]
 
 
-def split_work(
-    loads: np.ndarray, groups: Sequence[str], split: Sequence[int], workers: int, build: float
-) -> float:
+def split_work(loads: np.ndarray, split: Sequence[int], workers: int) -> float:
     """The expected critical work per tick of a split (the process of each robot): mean over
-    the cycle's ticks of the busiest process's work, each process's including `build` per
-    vehicle group it holds."""
+    the cycle's ticks of the busiest process's work."""
     work = np.zeros((workers, loads.shape[1]))
-    held: list[set[str]] = [set() for _ in range(workers)]
     for k, w in enumerate(split):
         work[w] += loads[k]
-        held[w].add(groups[k])
-    work += build * np.array([len(h) for h in held], dtype=float)[:, None]
     return float(work.max(axis=0).mean())
-
-
-def _robot_by_robot(
-    loads: np.ndarray, groups: Sequence[str], workers: int, build: float
-) -> list[int]:
-    work = np.zeros((workers, loads.shape[1]))
-    held: list[set[str]] = [set() for _ in range(workers)]
-    split = [0] * len(groups)
-    for k in sorted(range(len(groups)), key=lambda k: (-loads[k].mean(), k)):
-        after = [work[w] + loads[k] + (0.0 if groups[k] in held[w] else build)
-                 for w in range(workers)]
-        target = min(range(workers), key=lambda w: (after[w].max(), after[w].sum(), w))
-        work[target] = after[target]
-        held[target].add(groups[k])
-        split[k] = target
-    return split

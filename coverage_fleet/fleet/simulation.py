@@ -72,8 +72,7 @@ def simulate_mission(
     seed = settings.seed if seed is None else int(seed)
     duration = settings.duration if duration is None else float(duration)
     step = simulation_step(mission.roster, settings)
-    ticks = int(np.floor(duration / step + 1e-9)) + 1
-    pool = ControllerPool(mission, step, workers, ticks) if workers > 1 else None
+    pool = ControllerPool(mission, step, workers) if workers > 1 else None
     try:
         controllers = (
             pool if pool is not None
