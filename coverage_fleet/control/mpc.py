@@ -988,7 +988,7 @@ class TrackingMpc:
                 f"keep-apart rows must have shapes ({self.cell_rows}, 2) and "
                 f"({self.cell_rows},), got {normals.shape} and {offsets.shape}"
             )
-        if not (np.all(np.isfinite(normals)) and np.all(np.isfinite(offsets))):
+        if not (np.isfinite(normals).all() and np.isfinite(offsets).all()):
             raise ValueError("keep-apart rows must be finite")
         normals, offsets = self._cell_instance(normals, offsets)
         problem = self._problem(len(offsets))
@@ -1022,8 +1022,8 @@ class TrackingMpc:
         for point in (self._steady_centre, position):
             if (
                 point is not None
-                and np.all(normals @ point <= bounds - radius)
-                and np.all(region_rows @ point <= region_bounds - radius)
+                and (normals @ point <= bounds - radius).all()
+                and (region_rows @ point <= region_bounds - radius).all()
             ):
                 return np.zeros(2)
         n_cell, n_region = len(bounds), len(region_bounds)
@@ -1058,12 +1058,12 @@ class TrackingMpc:
         negative sigma only tightens rows and adds cost), so leaving it out changes no
         solution. Every other row is kept (a zero normal with a smaller offset would force
         sigma > 0: an empty cell, honoured as given)."""
-        vacuous = np.all(normals == 0.0, axis=1) & (offsets >= self._vacuous_offset)
-        kept = ~vacuous
+        vacuous_offset = self._vacuous_offset
+        kept = normals.any(axis=1) | (offsets < vacuous_offset)
         count = int(np.count_nonzero(kept))
         budget = self._rent_or_buy(next(b for b in self.row_budgets if b >= count))
         out_normals = np.zeros((budget, 2))
-        out_offsets = np.full(budget, self._vacuous_offset + PADDING_ROW_OFFSET)
+        out_offsets = np.full(budget, vacuous_offset + PADDING_ROW_OFFSET)
         out_normals[:count] = normals[kept]
         out_offsets[:count] = offsets[kept]
         return out_normals, out_offsets

@@ -313,21 +313,43 @@ class VariableSubset:
         self.name = strategy.name
         self.hold_samples = strategy.hold_samples
         self.needs_shifted_plan = strategy.needs_shifted_plan
+        #: The last variable bounds given and their kept part: a problem's bounds are the
+        #: same arrays at every sample (mpc.py), so they are cut once.
+        self._last_bounds: tuple[np.ndarray, ...] | None = None
 
     def attempt(self, instance: NlpInstance) -> Attempt:
         kept = self.kept
-        answer = self.strategy.attempt(
-            dataclasses.replace(
-                instance,
-                guess=instance.guess[kept],
-                lbx=instance.lbx[kept],
-                ubx=instance.ubx[kept],
-                lam_x0=None if instance.lam_x0 is None else instance.lam_x0[kept],
-            )
-        )
+        last = self._last_bounds
+        if last is None or last[0] is not instance.lbx or last[1] is not instance.ubx:
+            last = (instance.lbx, instance.ubx, instance.lbx[kept], instance.ubx[kept])
+            self._last_bounds = last
+        # The records built directly: dataclasses.replace costs more than this whole call
+        # on the real-time path (keep-apart solves, README's Performance).
+        answer = self.strategy.attempt(NlpInstance(
+            guess=instance.guess[kept],
+            parameters=instance.parameters,
+            lbx=last[2],
+            ubx=last[3],
+            lbg=instance.lbg,
+            ubg=instance.ubg,
+            lam_x0=None if instance.lam_x0 is None else instance.lam_x0[kept],
+            lam_g0=instance.lam_g0,
+            shifted_plan=instance.shifted_plan,
+        ))
         x, lam_x = np.zeros(self.size), np.zeros(self.size)
         x[kept], lam_x[kept] = answer.x, answer.lam_x
-        return dataclasses.replace(answer, x=x, lam_x=lam_x)
+        return Attempt(
+            strategy=answer.strategy,
+            success=answer.success,
+            status=answer.status,
+            iterations=answer.iterations,
+            elapsed=answer.elapsed,
+            x=x,
+            cost=answer.cost,
+            lam_x=lam_x,
+            lam_g=answer.lam_g,
+            converged=answer.converged,
+        )
 
 
 class SolverChain:
