@@ -148,6 +148,7 @@ class TrialAssembler:
         self.targets: dict[str, np.ndarray] = {}
         self.time_origin: float | None = None
         self._raw_times: dict[str, list[float]] = {name: [] for name in self.log.robots}
+        self._models = {entry.name: entry.vehicle.model for entry in mission.roster}
         #: Progress and solve records of states not recorded yet (messages from different
         #: publishers may arrive in either order); applied when the state arrives.
         self._early: dict[str, list[ProgressRecord | SolveRecord]] = {
@@ -232,7 +233,7 @@ class TrialAssembler:
         if raw and record.time <= raw[-1] + SAME_TIME:
             return  # a repetition of a state already recorded
         robot = self.log.robots[record.robot]
-        model = self.mission.roster[self.mission.robot_names.index(record.robot)].vehicle.model
+        model = self._models[record.robot]
         raw.append(float(record.time))
         robot.time.append(self._relative(record.time))
         robot.generation.append(self.generation)
