@@ -452,10 +452,14 @@ class TrackingMpc:
             self.region_A / self._region_norms[:, None],
             self.steady_region_b / self._region_norms,
         )
+        #: Their offsets less STEADY_SET_MIN_RADIUS (steady_relaxation's quick test).
+        self._steady_region_inner = self._steady_region_rows[1] - STEADY_SET_MIN_RADIUS
         #: How far the centre may stray between samples from the nearer sample point.
         self.cell_pad = (
             model.max_planar_speed * settings.sample_time / 2.0 if self.cell_rows else 0.0
         )
+        #: A row with normal 0 and at least this offset never binds (_cell_instance).
+        self._vacuous_offset = max(self.cell_pad, self.terminal.position_extent)
         self.plugin = configured_plugin(settings)
         #: The decision vector's stage sizes (_unpack): z_k = (x_k, theta), v_k = (u_k,
         #: keep-apart slacks), as in the problem for cell_rows rows (a smaller budget's
@@ -1019,11 +1023,12 @@ class TrackingMpc:
         extent = self.terminal.position_extent
         bounds = np.asarray(offsets, dtype=float) - extent
         region_rows, region_bounds = self._steady_region_rows
+        inner_bounds = bounds - radius
         for point in (self._steady_centre, position):
             if (
                 point is not None
-                and (normals @ point <= bounds - radius).all()
-                and (region_rows @ point <= region_bounds - radius).all()
+                and (normals @ point <= inner_bounds).all()
+                and (region_rows @ point <= self._steady_region_inner).all()
             ):
                 return np.zeros(2)
         n_cell, n_region = len(bounds), len(region_bounds)
@@ -1058,12 +1063,15 @@ class TrackingMpc:
         negative sigma only tightens rows and adds cost), so leaving it out changes no
         solution. Every other row is kept (a zero normal with a smaller offset would force
         sigma > 0: an empty cell, honoured as given)."""
+        # Elementwise operations, not reductions or np.full: on a dozen rows numpy's
+        # per-call costs are the whole cost (README, Performance: keep-apart rows).
         vacuous_offset = self._vacuous_offset
-        kept = normals.any(axis=1) | (offsets < vacuous_offset)
+        kept = (normals[:, 0] != 0.0) | (normals[:, 1] != 0.0) | (offsets < vacuous_offset)
         count = int(np.count_nonzero(kept))
         budget = self._rent_or_buy(next(b for b in self.row_budgets if b >= count))
         out_normals = np.zeros((budget, 2))
-        out_offsets = np.full(budget, vacuous_offset + PADDING_ROW_OFFSET)
+        out_offsets = np.empty(budget)
+        out_offsets.fill(vacuous_offset + PADDING_ROW_OFFSET)
         out_normals[:count] = normals[kept]
         out_offsets[:count] = offsets[kept]
         return out_normals, out_offsets
@@ -1077,9 +1085,6 @@ class TrackingMpc:
         self._budget_needs[budget] = needs
         return budget if needs >= self._rented_samples else self.cell_rows
 
-    @property
-    def _vacuous_offset(self) -> float:
-        return max(self.cell_pad, self.terminal.position_extent)
 
     def _multipliers_for(self, problem: _BuiltProblem) -> np.ndarray | None:
         """The last solve's constraint multipliers in `problem`'s row layout: the rows
