@@ -65,9 +65,17 @@ cores):
   4 / 16 / 64 robots 1.09x / 1.13x / 1.43x before, 1.29x / 1.40x / 1.51-1.61x after;
   setup + loop 0.76x / 0.86x / 1.04x before, 1.28x / 1.38x / 1.49-1.57x after. A pooled
   solve now takes as long as in one process (mean 1.08 against 1.09 ms at 16 robots).
-  What keeps it from 2x: the bursts above and the fixed split (at 16 robots the busiest
-  process per tick is 85 % of the loop against 62 % and 69 % busy), and the partition,
-  gate, plants and records (about 10 % of the loop), while the workers wait.
+  What kept it from 2x then: the bursts above and the fixed split (at 16 robots the
+  busiest process per tick was 85 % of the loop against 62 % and 69 % busy), and the
+  partition, gate, plants and records (about 10 % of the loop), while the workers wait.
+  With the builds made before the fork (16 mixed robots, 20 s, alternating with the
+  commit before): the split that kept two vehicle files on each process left the vessels'
+  process 8.4 ms busy on the ticks they solve and 2.8 ms on the others, against 6.1 and
+  5.8 ms for the other process (per-tick medians; the busiest process summed over the
+  ticks 1.97 s against 1.49-1.57 s busy); mixed, both are 7.4-7.6 and 4.5 ms, and the
+  first tick, which built four full solvers per process, 0.31 -> 0.14 s. Tick loop
+  2.33-2.36 -> 1.96-1.98 s, setup 0.19-0.21 -> 0.57-0.63 s (the builds now before the
+  fork, in one process), setup + loop 2.52-2.58 -> 2.54-2.60 s.
 - Same results as in one process: a controller's answer depends only on what it was given
   and on its own history, never on where it runs. Only the measured solve times differ
   from run to run (as they do between two runs in one process).
