@@ -1085,7 +1085,6 @@ class TrackingMpc:
         self._budget_needs[budget] = needs
         return budget if needs >= self._rented_samples else self.cell_rows
 
-
     def _multipliers_for(self, problem: _BuiltProblem) -> np.ndarray | None:
         """The last solve's constraint multipliers in `problem`'s row layout: the rows
         outside the cell as they were, cell row m of each group from the same slot (slots
