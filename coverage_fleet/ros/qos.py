@@ -47,7 +47,16 @@ STATE_IN = QoSProfile(
     durability=DurabilityPolicy.VOLATILE,
 )
 
-#: The recorder's odometry subscription: best effort for the same reason, with a queue so
+#: The headless simulator's odometry: reliable, and the last thousand states are kept for a
+#: reliable reader that must see every one (the recorder), so that a state lost on the way
+#: (a reader's transport queue full on a loaded machine) is sent again. In one full test run
+#: the recorder's best-effort subscription missed 3 of a robot's 151 states. Best-effort
+#: readers (the controllers, the gate) get only the newest, as before: the history does not
+#: delay them.
+SIMULATED_STATE = _reliable(1000)
+
+#: The recorder's odometry subscription for a robot whose state comes from elsewhere (a
+#: driver, often best effort): best effort for the same reason as STATE_IN, with a queue so
 #: that a burst of states is not thinned out.
 STATE_RECORDED = QoSProfile(
     history=HistoryPolicy.KEEP_LAST,

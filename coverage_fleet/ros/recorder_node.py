@@ -77,8 +77,14 @@ def recording_profile(profile: QoSProfile) -> QoSProfile:
     )
 
 
-def graph_topics(mission: Mission) -> list[tuple[str, str, QoSProfile]]:
-    """(topic, type, QoS) of every topic of the graph's contract for `mission`."""
+def graph_topics(mission: Mission, simulated_run: bool) -> list[tuple[str, str, QoSProfile]]:
+    """(topic, type, QoS) of every topic of the graph's contract for `mission`.
+
+    In a simulated run (`simulated_run`) the simulated robots' odometry comes from the
+    headless simulator, which publishes it reliably with a history (qos.SIMULATED_STATE):
+    the recorder subscribes reliably and so gets every state. Other robots' odometry comes
+    from their drivers, which may publish best effort: subscribed best effort.
+    """
     found = [
         (topics.CELLS, "visualization_msgs/msg/MarkerArray", qos.LATCHED),
         (topics.COST, "std_msgs/msg/Float64", qos.DISPLAY),
@@ -109,7 +115,10 @@ def graph_topics(mission: Mission) -> list[tuple[str, str, QoSProfile]]:
              qos.ROBOT_REPORTS),
         ]
     found += [
-        (topics.robot_topic(e.name, topics.ODOM), "nav_msgs/msg/Odometry", qos.STATE_RECORDED)
+        (
+            topics.robot_topic(e.name, topics.ODOM), "nav_msgs/msg/Odometry",
+            qos.SIMULATED_STATE if simulated_run and e.simulated else qos.STATE_RECORDED,
+        )
         for e in mission.roster
     ]
     return found
@@ -162,7 +171,7 @@ class RecorderNode(Node):
         self._describe_run(duration, simulation, command_line)
         self.subscribed: dict[str, str] = {}
         self.received = 0
-        for topic, type_name, profile in graph_topics(self.mission):
+        for topic, type_name, profile in graph_topics(self.mission, bool(simulation)):
             self._record(topic, type_name, recording_profile(profile))
         self.create_timer(FLUSH_PERIOD, self._tick)
         self.get_logger().info(
