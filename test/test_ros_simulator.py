@@ -1,5 +1,7 @@
 """The headless simulator publishes state only for robots the mission marks simulated: a
-real robot's odometry comes from the robot (its localization), never from the simulator."""
+real robot's odometry comes from the robot (its localization), never from the simulator.
+At the end of a run it waits for its reliable readers to acknowledge the last states and
+names the topics where one did not."""
 
 from __future__ import annotations
 
@@ -48,3 +50,63 @@ def test_an_unknown_mode_is_a_config_error(tmp_path: Path) -> None:
             SimulatorNode()
     finally:
         rclpy.shutdown()
+
+
+STALLED_READER = """
+import sys
+import rclpy
+from nav_msgs.msg import Odometry
+from rclpy.qos import QoSProfile, ReliabilityPolicy
+
+rclpy.init()
+node = rclpy.create_node("stalled_reader")
+told = []
+
+def heard(_msg):
+    if not told:
+        told.append(True)
+        print("heard", flush=True)
+
+profile = QoSProfile(depth=1000, reliability=ReliabilityPolicy.RELIABLE)
+node.create_subscription(Odometry, "/rover_a/odom", heard, profile)
+rclpy.spin(node)
+"""
+
+
+def test_a_reliable_reader_that_stops_acknowledging_is_named_at_the_end(tmp_path: Path) -> None:
+    """At the end of a run the simulator waits for its reliable readers (the recorder) to
+    acknowledge the last states, and names the topic when one does not: here a reader
+    process frozen with SIGSTOP (its middleware threads stop too). Reliable readers
+    acknowledge what they received and writers keep what is unacknowledged (OMG, "DDS
+    Interoperability Wire Protocol (DDSI-RTPS)" 2.5, 2022, sec. 8.4.7 and 8.4.12)."""
+    import os
+    import signal
+    import subprocess
+    import sys
+
+    from coverage_fleet.ros.simulator_node import DELIVERY_LIMIT
+
+    mission = tmp_path / "mission.yaml"
+    mission.write_text(MISSION)
+    reader = subprocess.Popen([sys.executable, "-c", STALLED_READER],
+                              stdout=subprocess.PIPE, stderr=subprocess.DEVNULL, text=True)
+    simulator = None
+    try:
+        simulator = subprocess.Popen(
+            [sys.executable, "-m", "coverage_fleet.ros.simulator_node", "--ros-args",
+             "-p", f"mission_file:={mission}", "-p", "mode:=realtime", "-p", "duration:=3.0"],
+            stdout=subprocess.PIPE, stderr=subprocess.STDOUT, text=True,
+        )
+        assert reader.stdout is not None and reader.stdout.readline().strip() == "heard"
+        os.kill(reader.pid, signal.SIGSTOP)
+        output, _ = simulator.communicate(timeout=120)
+    finally:
+        for process in (reader, simulator):
+            if process is not None and process.poll() is None:
+                process.kill()
+                process.wait()
+    assert (
+        f"the last states were not acknowledged within {DELIVERY_LIMIT:g} s on rover_a/odom"
+        in output
+    ), output
+    assert "/clock" not in output.split("not acknowledged")[1].splitlines()[0]

@@ -414,7 +414,10 @@ class SimulatorNode(Node):
         and clock published; say so when they did not."""
         deadline = wallclock.monotonic() + DELIVERY_LIMIT
         late = []
-        for topic, publisher in [(topics.CLOCK, self.clock_pub), *self.odom_pubs.items()]:
+        writers = [(topics.CLOCK, self.clock_pub)] + [
+            (topics.robot_topic(name, topics.ODOM), pub) for name, pub in self.odom_pubs.items()
+        ]
+        for topic, publisher in writers:
             left = max(0.0, deadline - wallclock.monotonic())
             if not publisher.wait_for_all_acked(Duration(seconds=left)):
                 late.append(topic)
