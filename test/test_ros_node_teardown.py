@@ -10,7 +10,8 @@ stop must not depend on a clean middleware shutdown).
 Real node processes over DDS on loopback, run through the same `main_for` as every console
 script. The stalled teardown is a node whose `destroy_node` waits an hour (the real stall
 could not be produced on demand); the same node without the wait is the positive control:
-it ends without the warning.
+it ends without the warning. A stall that holds the interpreter lock (libc's sleep through
+ctypes.PyDLL) is ended by faulthandler's watchdog instead, with status 1 and the stacks.
 """
 
 from __future__ import annotations
@@ -38,6 +39,7 @@ NODE_PROCESS = textwrap.dedent(
     from coverage_fleet.ros.runtime import main_for
 
     STALL = sys.argv[1] == "stall"
+    LOCKED_STALL = sys.argv[1] == "locked stall"
 
 
     class TeardownProbe(Node):
@@ -57,6 +59,12 @@ NODE_PROCESS = textwrap.dedent(
         def destroy_node(self):
             if STALL:
                 time.sleep(3600.0)
+            if LOCKED_STALL:
+                import ctypes
+
+                # libc's sleep called through PyDLL keeps the interpreter lock, as a
+                # middleware call that never returns would.
+                ctypes.PyDLL(None).sleep(3600)
             super().destroy_node()
 
 
@@ -80,3 +88,21 @@ def test_a_stopped_node_process_ends_even_when_its_teardown_stalls(
     warned = "took more than" in output and "to destroy the nodes" in output
     assert warned == (teardown == "stall"), output
     assert "Traceback" not in output, output
+
+
+@pytest.mark.parametrize("stop_signal", [signal.SIGINT, signal.SIGTERM], ids=["sigint", "sigterm"])
+def test_a_teardown_stalled_with_the_interpreter_lock_held_still_ends_and_shows_where(
+    stop_signal: signal.Signals,
+) -> None:
+    """A stall that keeps the interpreter lock leaves no Python thread able to run (the
+    timer of the test above cannot fire; Python's documentation of the global interpreter
+    lock): the process still ends, on its own, with status 1 and every thread's stack in its
+    output, the stalled call included (Python's faulthandler.dump_traceback_later)."""
+    process = WatchedProcess([sys.executable, "-c", NODE_PROCESS, "locked stall"], PATIENCE)
+    process.wait_until(lambda: "spinning" in process.output, "the node spinning")
+    process.process.send_signal(stop_signal)
+    status = process.wait()
+    output = process.output
+    assert status == 1, output
+    assert "last word sent" in output, output
+    assert "Timeout" in output and "in destroy_node" in output, output

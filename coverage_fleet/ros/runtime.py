@@ -185,6 +185,9 @@ def run_nodes(
 #: 3.0 s. A launch service waits 5 s (from memory: launch's default sigterm_timeout) before
 #: it escalates, and a process stopped on its own must free its robot's name for a restart.
 TEARDOWN_LIMIT = 2.0
+#: A teardown that holds the interpreter lock is ended this long after TEARDOWN_LIMIT, still
+#: before a launch service escalates (`_bounded_teardown`).
+HARD_TEARDOWN_MARGIN = 1.5
 
 
 @contextlib.contextmanager
@@ -196,19 +199,29 @@ def _bounded_teardown(program: str, status: int) -> Iterator[None]:
     when its lease runs out, as they do for a process that was killed."""
 
     def give_up() -> None:
-        rclpy.logging.get_logger(program).warning(
-            f"stopping: the middleware took more than {TEARDOWN_LIMIT} s to destroy the nodes; "
-            "exiting without waiting further (everything the nodes had to send was sent)"
-        )
+        # Straight to the log's descriptor: the ROS logger could wait on a lock held by the
+        # teardown that stalled.
+        os.write(2, (
+            f"[WARN] [{program}]: stopping: the middleware took more than {TEARDOWN_LIMIT} s "
+            "to destroy the nodes; exiting without waiting further (everything the nodes had "
+            "to send was sent)\n"
+        ).encode())
         exit_process(status)
 
     timer = threading.Timer(TEARDOWN_LIMIT, give_up)
     timer.daemon = True
     timer.start()
+    # The timer above needs the interpreter lock; a stall inside a middleware call that
+    # holds it (seen once in a CI run: the simulator ignored SIGINT and SIGTERM for 15 s
+    # and was killed) keeps the timer from running. faulthandler's watchdog is a thread
+    # of its own without the lock: it prints every thread's stack to the log (where the
+    # stall was) and exits with status 1.
+    faulthandler.dump_traceback_later(TEARDOWN_LIMIT + HARD_TEARDOWN_MARGIN, exit=True)
     try:
         yield
     finally:
         timer.cancel()
+        faulthandler.cancel_dump_traceback_later()
 
 
 def _status_on_stop(node: Node, number: int | None) -> int:
