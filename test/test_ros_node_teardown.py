@@ -73,16 +73,22 @@ NODE_PROCESS = textwrap.dedent(
 )
 
 
+def stopped_probe(teardown: str, stop_signal: signal.Signals) -> tuple[int, str]:
+    """Start the probe node with `teardown` ("stall", "locked stall", "prompt"), stop it once
+    it spins; its exit status and output."""
+    process = WatchedProcess([sys.executable, "-c", NODE_PROCESS, teardown], PATIENCE)
+    process.wait_until(lambda: "spinning" in process.output, "the node spinning")
+    process.process.send_signal(stop_signal)
+    status = process.wait()
+    return status, process.output
+
+
 @pytest.mark.parametrize("stop_signal", [signal.SIGINT, signal.SIGTERM], ids=["sigint", "sigterm"])
 @pytest.mark.parametrize("teardown", ["stall", "prompt"])
 def test_a_stopped_node_process_ends_even_when_its_teardown_stalls(
     teardown: str, stop_signal: signal.Signals
 ) -> None:
-    process = WatchedProcess([sys.executable, "-c", NODE_PROCESS, teardown], PATIENCE)
-    process.wait_until(lambda: "spinning" in process.output, "the node spinning")
-    process.process.send_signal(stop_signal)
-    status = process.wait()
-    output = process.output
+    status, output = stopped_probe(teardown, stop_signal)
     assert status == 0, output
     assert "last word sent" in output, output
     warned = "took more than" in output and "to destroy the nodes" in output
@@ -98,11 +104,7 @@ def test_a_teardown_stalled_with_the_interpreter_lock_held_still_ends_and_shows_
     timer of the test above cannot fire; Python's documentation of the global interpreter
     lock): the process still ends, on its own, with status 1 and every thread's stack in its
     output, the stalled call included (Python's faulthandler.dump_traceback_later)."""
-    process = WatchedProcess([sys.executable, "-c", NODE_PROCESS, "locked stall"], PATIENCE)
-    process.wait_until(lambda: "spinning" in process.output, "the node spinning")
-    process.process.send_signal(stop_signal)
-    status = process.wait()
-    output = process.output
+    status, output = stopped_probe("locked stall", stop_signal)
     assert status == 1, output
     assert "last word sent" in output, output
     assert "Timeout" in output and "in destroy_node" in output, output
