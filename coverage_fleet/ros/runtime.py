@@ -11,7 +11,8 @@ by a small thread that wakes the executor through a guard condition (StopSignals
 
 A stopping process first lets every node say its last word (`before_stop`: the controller's
 braking input, the recorder's last messages), then destroys the nodes; it gives that
-teardown `TEARDOWN_LIMIT` seconds and then exits anyway, so that a stall inside
+teardown `TEARDOWN_LIMIT` seconds and then exits anyway (a stall that holds the interpreter
+lock: `HARD_TEARDOWN_MARGIN` later, status 1, stacks in the log), so that a stall inside
 the middleware never outlasts a launch service's grace period.
 """
 
@@ -212,7 +213,7 @@ def _bounded_teardown(program: str, status: int) -> Iterator[None]:
     timer.daemon = True
     timer.start()
     # The timer above needs the interpreter lock; a stall inside a middleware call that
-    # holds it (seen once in a CI run: the simulator ignored SIGINT and SIGTERM for 15 s
+    # holds it (seen once in a full test run: the simulator ignored SIGINT and SIGTERM for 15 s
     # and was killed) keeps the timer from running. faulthandler's watchdog is a thread
     # of its own without the lock: it prints every thread's stack to the log (where the
     # stall was) and exits with status 1.
