@@ -5,14 +5,18 @@ names the topics where one did not."""
 
 from __future__ import annotations
 
+import os
+import signal
+import sys
 from pathlib import Path
 
 import pytest
+from support_processes import WatchedProcess
 
 rclpy = pytest.importorskip("rclpy", reason="ROS 2 wheels not installed (scripts/setup_env.sh)")
 
 from coverage_fleet.ros import topics  # noqa: E402
-from coverage_fleet.ros.simulator_node import SimulatorNode  # noqa: E402
+from coverage_fleet.ros.simulator_node import DELIVERY_LIMIT, SimulatorNode  # noqa: E402
 
 MISSION = """\
 name: mixed_real_quay   # invented test scenario
@@ -53,7 +57,6 @@ def test_an_unknown_mode_is_a_config_error(tmp_path: Path) -> None:
 
 
 STALLED_READER = """
-import sys
 import rclpy
 from nav_msgs.msg import Odometry
 from rclpy.qos import QoSProfile, ReliabilityPolicy
@@ -71,6 +74,8 @@ profile = QoSProfile(depth=1000, reliability=ReliabilityPolicy.RELIABLE)
 node.create_subscription(Odometry, "/rover_a/odom", heard, profile)
 rclpy.spin(node)
 """
+#: Wall seconds before a wait gives up (a hang, not a timing check).
+PATIENCE = 120.0
 
 
 def test_a_reliable_reader_that_stops_acknowledging_is_named_at_the_end(tmp_path: Path) -> None:
@@ -79,32 +84,24 @@ def test_a_reliable_reader_that_stops_acknowledging_is_named_at_the_end(tmp_path
     process frozen with SIGSTOP (its middleware threads stop too). Reliable readers
     acknowledge what they received and writers keep what is unacknowledged (OMG, "DDS
     Interoperability Wire Protocol (DDSI-RTPS)" 2.5, 2022, sec. 8.4.7 and 8.4.12)."""
-    import os
-    import signal
-    import subprocess
-    import sys
-
-    from coverage_fleet.ros.simulator_node import DELIVERY_LIMIT
-
     mission = tmp_path / "mission.yaml"
     mission.write_text(MISSION)
-    reader = subprocess.Popen([sys.executable, "-c", STALLED_READER],
-                              stdout=subprocess.PIPE, stderr=subprocess.DEVNULL, text=True)
+    reader = WatchedProcess([sys.executable, "-c", STALLED_READER], PATIENCE)
     simulator = None
     try:
-        simulator = subprocess.Popen(
+        simulator = WatchedProcess(
             [sys.executable, "-m", "coverage_fleet.ros.simulator_node", "--ros-args",
              "-p", f"mission_file:={mission}", "-p", "mode:=realtime", "-p", "duration:=3.0"],
-            stdout=subprocess.PIPE, stderr=subprocess.STDOUT, text=True,
+            PATIENCE,
         )
-        assert reader.stdout is not None and reader.stdout.readline().strip() == "heard"
-        os.kill(reader.pid, signal.SIGSTOP)
-        output, _ = simulator.communicate(timeout=120)
+        reader.wait_until(lambda: "heard" in reader.output, "the reader hearing odometry")
+        os.kill(reader.process.pid, signal.SIGSTOP)
+        simulator.wait()
     finally:
         for process in (reader, simulator):
-            if process is not None and process.poll() is None:
-                process.kill()
-                process.wait()
+            if process is not None:
+                process.cleanup()
+    output = simulator.output
     assert (
         f"the last states were not acknowledged within {DELIVERY_LIMIT:g} s on rover_a/odom"
         in output
