@@ -18,6 +18,9 @@ Defined behaviour at the edges of the input space (each tested):
   special case needed beyond the fallback above.
 - A cell whose density mass is (numerically) zero: centroid = the cell's geometric
   centroid (a point of the cell, so a target there stays inside the region); mass 0.
+- A cell with a tiny mass (a sliver between robots a micrometre apart): its centroid is
+  exact to the rounding of its first moment over its mass, about 1e-15 x the region's mass
+  and extent / the cell's mass, which may put it that far outside the sliver.
 Non-finite positions raise ValueError: they are a caller fault the node must filter out.
 """
 
